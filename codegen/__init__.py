@@ -1,0 +1,1 @@
+"""Config loading, loop tuning, C rendering and building for pfcrig."""

@@ -1,0 +1,114 @@
+"""Fill the config values left to be derived (from sizing numbers) and check them.
+
+The harness passes the sized inductance, capacitance and peak current as plain
+numbers; this module imports nothing of the plant.
+"""
+from __future__ import annotations
+
+import math
+from dataclasses import asdict, dataclass
+
+from .config import Config, ConfigError
+
+
+@dataclass(frozen=True)
+class Resolved:
+    """Every number the controller and the plant need, SI units in the names."""
+
+    inductance_H: float
+    capacitance_F: float
+    current_bandwidth_Hz: float
+    zc_hysteresis_V: float
+    zc_blank_V: float
+    ov_trip_V: float
+    oc_trip_A: float
+    brownout_off_rms_V: float
+    brownout_on_rms_V: float
+    vac_range_V: float
+    il_range_A: float
+    vbus_range_V: float
+    vac_offset_counts: float
+    il_offset_counts: float
+    adc_full_counts: int
+    pwm_period_counts: int
+
+    def as_dict(self) -> dict[str, float]:
+        return asdict(self)
+
+
+def _pick(value, default):
+    return default if value is None else value
+
+
+def resolve(cfg: Config, inductance_H: float, capacitance_F: float, il_peak_A: float) -> Resolved:
+    """Derive the missing values; ``il_peak_A`` is the sized peak inductor current."""
+    s, c, pr, se = cfg.spec, cfg.control, cfg.protection, cfg.sensing
+    vpk_min = math.sqrt(2.0) * s.vin_rms_min
+    vpk_max = math.sqrt(2.0) * s.vin_rms_max
+    oc = _pick(pr.oc_trip, 1.5 * il_peak_A)
+    ov = _pick(pr.ov_trip, 1.1 * s.vout)
+    mid = float(2 ** (se.adc_bits - 1))
+    r = Resolved(
+        inductance_H=_pick(cfg.plant.inductance, inductance_H),
+        capacitance_F=_pick(cfg.plant.capacitance, capacitance_F),
+        current_bandwidth_Hz=_pick(c.current_bandwidth, s.fsw / 15.0),
+        zc_hysteresis_V=_pick(c.zc_hysteresis, 0.04 * vpk_min),
+        zc_blank_V=_pick(c.zc_blank_voltage, 0.08 * vpk_min),
+        ov_trip_V=ov,
+        oc_trip_A=oc,
+        brownout_off_rms_V=_pick(pr.brownout_off_rms, 0.85 * s.vin_rms_min),
+        brownout_on_rms_V=_pick(pr.brownout_on_rms, 0.92 * s.vin_rms_min),
+        vac_range_V=_pick(se.vac_range, 1.25 * vpk_max),
+        il_range_A=_pick(se.il_range, 1.25 * oc),
+        vbus_range_V=_pick(se.vbus_range, 1.25 * ov),
+        vac_offset_counts=_pick(se.vac_offset, mid),
+        il_offset_counts=_pick(se.il_offset, mid),
+        adc_full_counts=2**se.adc_bits - 1,
+        pwm_period_counts=int(round(c.pwm_timer_clock / s.fsw)),
+    )
+    _check(cfg, r)
+    return r
+
+
+def _check(cfg: Config, r: Resolved) -> None:
+    src = cfg.source
+    s = cfg.spec
+    vpk_max = math.sqrt(2.0) * s.vin_rms_max
+    if r.zc_blank_V <= r.zc_hysteresis_V:
+        raise ConfigError(
+            f"{src}: [control] zc_blank_voltage = {r.zc_blank_V:g} V: must be > zc_hysteresis = {r.zc_hysteresis_V:g} V "
+            "(the polarity must settle inside the blanking window)"
+        )
+    if r.zc_blank_V >= math.sqrt(2.0) * r.brownout_off_rms_V:
+        raise ConfigError(
+            f"{src}: [control] zc_blank_voltage = {r.zc_blank_V:g} V: must be below the brown-out line peak "
+            f"{math.sqrt(2.0) * r.brownout_off_rms_V:.1f} V"
+        )
+    if r.brownout_on_rms_V <= r.brownout_off_rms_V:
+        raise ConfigError(
+            f"{src}: [protection] brownout_on_rms = {r.brownout_on_rms_V:g} V: must be > brownout_off_rms = {r.brownout_off_rms_V:g} V"
+        )
+    if r.brownout_on_rms_V > s.vin_rms_min:
+        raise ConfigError(
+            f"{src}: [protection] brownout_on_rms = {r.brownout_on_rms_V:g} V: must be <= vin_rms_min = {s.vin_rms_min:g} V"
+        )
+    if r.ov_trip_V <= s.vout:
+        raise ConfigError(f"{src}: [protection] ov_trip = {r.ov_trip_V:g} V: must be > vout = {s.vout:g} V")
+    checks = [
+        ("sensing", "vac_range", r.vac_range_V, vpk_max, "V", "the highest line peak"),
+        ("sensing", "il_range", r.il_range_A, r.oc_trip_A, "A", "[protection] oc_trip"),
+        ("sensing", "vbus_range", r.vbus_range_V, r.ov_trip_V, "V", "[protection] ov_trip"),
+    ]
+    for table, key, val, need, unit, what in checks:
+        if val <= need:
+            raise ConfigError(f"{src}: [{table}] {key} = {val:g} {unit}: must exceed {what} = {need:.4g} {unit}")
+    if r.pwm_period_counts < 100:
+        raise ConfigError(
+            f"{src}: [control] pwm_timer_clock = {cfg.control.pwm_timer_clock:g} Hz: gives {r.pwm_period_counts} counts per PWM period; "
+            "at least 100 are needed"
+        )
+    if r.pwm_period_counts > 65535:
+        raise ConfigError(
+            f"{src}: [control] pwm_timer_clock = {cfg.control.pwm_timer_clock:g} Hz: gives {r.pwm_period_counts} counts per PWM period; "
+            "at most 65535 fit the 16-bit compare"
+        )

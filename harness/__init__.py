@@ -1,0 +1,1 @@
+"""Closed loop, scenarios, metrics, reports and the command line of pfcrig."""
