@@ -83,7 +83,7 @@ SCHEMA: dict[str, dict[str, Key]] = {
         "current_bandwidth": Key(float, "Hz", "current-loop crossover (default fsw/15)", **POS),
         "current_phase_margin_deg": Key(float, "deg", "current-loop phase margin", default=45.0, lo=20.0, hi=85.0),
         "voltage_bandwidth": Key(float, "Hz", "voltage-loop crossover", default=10.0, **POS),
-        "voltage_phase_margin_deg": Key(float, "deg", "voltage-loop phase margin", default=55.0, lo=20.0, hi=85.0),
+        "voltage_phase_margin_deg": Key(float, "deg", "voltage-loop phase margin", default=45.0, lo=20.0, hi=85.0),
         "control_delay_periods": Key(float, "periods", "sample-to-effect delay used for tuning (computation plus PWM hold)", default=1.5, lo=0.0, hi=4.0),
         "soft_start_time": Key(float, "s", "bus reference ramp from the precharged value to vout", default=0.1, **POS),
         "zc_hysteresis": Key(float, "V", "polarity comparator hysteresis half-band (default 4 % of the lowest line peak)", **POS),

@@ -32,3 +32,22 @@ def from_config(cfg: Config) -> Project:
 
 def load_project(path: str | Path) -> Project:
     return from_config(load(path))
+
+
+def tuning_of(prj: Project, line_freq_Hz: float | None = None):
+    from codegen.tuning import tune
+
+    r = prj.resolved
+    return tune(prj.config, r.inductance_H, r.capacitance_F, r.current_bandwidth_Hz, line_freq_Hz)
+
+
+def render_of(prj: Project) -> dict[str, str]:
+    from codegen.render import render
+
+    return render(prj.config, prj.resolved, tuning_of(prj), prj.sizing.iline_peak_A)
+
+
+def build_of(prj: Project, extra_c: dict[str, str] | None = None):
+    from codegen.build import build
+
+    return build(render_of(prj), prj.config.control.prefix, extra_c=extra_c)

@@ -1,0 +1,72 @@
+"""Render the C templates (jinja2) into source text: deterministic, byte for byte."""
+from __future__ import annotations
+
+from itertools import groupby
+from pathlib import Path
+
+import jinja2
+
+from c_templates import TEMPLATE_DIR
+
+from .config import Config, ConfigError
+from .constants import Const, build_constants
+from .resolve import Resolved
+from .tuning import Tuning
+
+VERSION = "0.1.0"
+# One template pair per block, in signal order, then the top level.
+BLOCKS = ["math", "pi", "sense", "polarity", "rms", "vloop", "iref", "iloop", "pwm", "supervisor", "ctrl"]
+HEADER_ONLY = {"math"}
+
+
+def _env() -> jinja2.Environment:
+    return jinja2.Environment(
+        loader=jinja2.FileSystemLoader(str(TEMPLATE_DIR)),
+        undefined=jinja2.StrictUndefined,
+        trim_blocks=True,
+        lstrip_blocks=True,
+        keep_trailing_newline=True,
+        autoescape=False,
+    )
+
+
+def render(cfg: Config, resolved: Resolved, tuning: Tuning, iline_peak_A: float) -> dict[str, str]:
+    """Return {file name: C text} for every generated file."""
+    if cfg.control.number_format != "float32":
+        raise ConfigError(
+            f"{cfg.source}: [control] number_format = {cfg.control.number_format!r}: this version generates float32 only "
+            "(fixed point is not built yet)"
+        )
+    consts = build_constants(cfg, resolved, tuning, iline_peak_A)
+    p = cfg.control.prefix
+    base = dict(
+        p=p, P=p.upper(), version=VERSION, source_name=Path(cfg.source).name, digest=cfg.digest(),
+        number_format=cfg.control.number_format, vout=cfg.spec.vout,
+    )
+    env = _env()
+    files: dict[str, str] = {}
+    groups = [(g, list(items)) for g, items in groupby(consts, key=lambda k: k.group)]
+    name = f"{p}_config.h"
+    files[name] = env.get_template("config.h.j2").render(**base, file=name, groups=groups)
+    for block in BLOCKS:
+        for ext in ("h", "c"):
+            if ext == "c" and block in HEADER_ONLY:
+                continue
+            name = f"{p}_{block}.{ext}"
+            files[name] = env.get_template(f"{block}.{ext}.j2").render(**base, file=name)
+    return files
+
+
+def constants_table(consts: list[Const]) -> list[tuple[str, str, str, str]]:
+    return [(k.name, k.literal, k.unit, k.origin) for k in consts]
+
+
+def write(files: dict[str, str], out_dir: str | Path) -> list[Path]:
+    out = Path(out_dir)
+    out.mkdir(parents=True, exist_ok=True)
+    paths = []
+    for name in sorted(files):
+        path = out / name
+        path.write_bytes(files[name].encode("utf-8"))
+        paths.append(path)
+    return paths
