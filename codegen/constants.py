@@ -10,7 +10,7 @@ from dataclasses import dataclass
 
 from .config import Config
 from .resolve import Resolved
-from .tuning import Tuning
+from .tuning import BUS_BLOCKS, Tuning
 
 
 @dataclass(frozen=True)
@@ -86,10 +86,14 @@ def build_constants(cfg: Config, r: Resolved, tun: Tuning, iline_peak_A: float) 
     add(g, "BO_ON_V2", r.brownout_on_rms_V**2, "f", "V^2", "restart above this mean square", "[protection] brownout_on_rms^2")
 
     g = "Voltage loop"
+    shift = BUS_BLOCKS.bit_length() - 1
+    add(g, "BUS_BLOCKS", BUS_BLOCKS, "u", "blocks", "blocks in the sliding half-cycle bus average", "design: power of two")
+    add(g, "BUS_BLOCK_SHIFT", shift, "u", "bits", "block length = half period >> shift", "log2(BUS_BLOCKS)")
+    add(g, "BUS_BLOCK_NOMINAL", max(1, round(fsw / (2.0 * s.line_freq)) >> shift), "u", "periods", "block length before the first measured half", "fsw/(2 line_freq)/BUS_BLOCKS")
     add(g, "VOUT_V", s.vout, "f", "V", "bus reference", "[spec] vout")
     add(g, "VREF_STEP_V", s.vout / (c.soft_start_time * fsw), "f", "V/period", "soft-start reference slope", "vout/([control] soft_start_time x fsw)")
     add(g, "VKP", tun.voltage.kp, "f", "W/V", "voltage PI proportional gain", f"tuning: {tun.voltage.target_crossover_Hz:g} Hz, {tun.voltage.target_phase_margin_deg:g} deg")
-    add(g, "VKI_TS", tun.voltage.ki_ts, "f", "W/V", "voltage PI integral gain x half-cycle period (backward Euler)", f"tuning: Ki = {tun.voltage.ki:.6g} W/(V s), T = {tun.voltage.ts_s:.6g} s")
+    add(g, "VKI_TS", tun.voltage.ki_ts, "f", "W/V", "voltage PI integral gain x block period (backward Euler)", f"tuning: Ki = {tun.voltage.ki:.6g} W/(V s), T = {tun.voltage.ts_s:.6g} s")
     add(g, "PCMD_MAX_W", 1.3 * s.power / s.efficiency, "f", "W", "largest input power command", "1.3 x [spec] power/efficiency")
 
     g = "Current reference and loop"

@@ -11,11 +11,11 @@ from c_templates import TEMPLATE_DIR
 from .config import Config, ConfigError
 from .constants import Const, build_constants
 from .resolve import Resolved
-from .tuning import Tuning
+from .tuning import BUS_BLOCKS, Tuning
 
 VERSION = "0.1.0"
 # One template pair per block, in signal order, then the top level.
-BLOCKS = ["math", "pi", "sense", "polarity", "rms", "vloop", "iref", "iloop", "pwm", "supervisor", "ctrl"]
+BLOCKS = ["math", "pi", "sense", "polarity", "rms", "busavg", "vloop", "iref", "iloop", "pwm", "supervisor", "ctrl"]
 HEADER_ONLY = {"math"}
 
 
@@ -41,7 +41,7 @@ def render(cfg: Config, resolved: Resolved, tuning: Tuning, iline_peak_A: float)
     p = cfg.control.prefix
     base = dict(
         p=p, P=p.upper(), version=VERSION, source_name=Path(cfg.source).name, digest=cfg.digest(),
-        number_format=cfg.control.number_format, vout=cfg.spec.vout,
+        number_format=cfg.control.number_format, vout=cfg.spec.vout, bus_blocks=BUS_BLOCKS,
     )
     env = _env()
     files: dict[str, str] = {}

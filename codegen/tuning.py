@@ -10,9 +10,11 @@ Power Electronics, averaged switch modelling chapters):
   one for the computation, half for the PWM hold);
 * voltage loop: input power command -> bus voltage ``G_v(s) = eta/(s C Vo)``
   (energy balance ``C Vo dv/dt = eta P_cmd - P_load``, constant-power load, the
-  least damped case).  The controller averages the bus over each half line cycle
-  and updates once per half cycle, which adds ``exp(-s Th)``, ``Th = 1/(2 f_line)``
-  (half a period for the average, half for the hold).
+  least damped case).  The controller averages the bus over a sliding window of
+  one half line cycle ``Th = 1/(2 f_line)`` kept in ``BUS_BLOCKS`` blocks and updates
+  the PI at the end of each block (period ``Th/BUS_BLOCKS``), which adds
+  ``exp(-s (Th/2 + Th/(2 BUS_BLOCKS)))``: half the window for the average, half a
+  block for the hold.
 
 Both PIs are discretised by backward Euler, ``C(z) = Kp + Ki T z/(z - 1)``; the
 reported margins evaluate that discrete PI at ``z = exp(j w T)`` in series with the
@@ -26,6 +28,8 @@ from dataclasses import asdict, dataclass
 import numpy as np
 
 from .config import Config, ConfigError
+
+BUS_BLOCKS = 8  # blocks of the sliding half-cycle bus average (a power of two)
 
 
 @dataclass(frozen=True)
@@ -119,10 +123,11 @@ def tune(cfg: Config, inductance_H: float, capacitance_F: float, current_bandwid
     ts = 1.0 / s.fsw
     fl = s.line_freq if line_freq_Hz is None else line_freq_Hz
     th = 1.0 / (2.0 * fl)
+    tv = th / BUS_BLOCKS
     cur = _design("current_bandwidth/current_phase_margin_deg", s.vout / inductance_H, current_bandwidth_Hz,
                   c.current_phase_margin_deg, c.control_delay_periods * ts, ts, "duty per A")
     vol = _design("voltage_bandwidth/voltage_phase_margin_deg", s.efficiency / (capacitance_F * s.vout),
-                  c.voltage_bandwidth, c.voltage_phase_margin_deg, th, th, "W per V")
+                  c.voltage_bandwidth, c.voltage_phase_margin_deg, th / 2.0 + tv / 2.0, tv, "W per V")
     return Tuning(cur, vol)
 
 

@@ -1,0 +1,219 @@
+"""Closed loop: the compiled generated controller (through cffi) against the numpy plant.
+
+Timing of one PWM period ``k``: the plant runs the period with the compare and gate
+mask computed in period ``k-1``; the ADC samples at the period midpoint; the
+controller's step on those counts yields the outputs applied from the start of
+period ``k+1``.  A gate the controller left off does not conduct.  Start-up as in
+practice: bus precharged through the rectifying body diodes to the line peak, load
+connected at power-good, the controller's own soft start in between.
+"""
+from __future__ import annotations
+
+import sys
+import time
+from dataclasses import dataclass, field
+
+import numpy as np
+
+from plant.grid import Grid
+from plant.load import Load
+from plant.sensors import AdcScaling, Sensors
+from plant.stage import Stage, StageParams
+
+from .project import Project, build_of
+from .scenario import Scenario
+
+PWM_DTYPE = np.dtype([("compare", "<u2"), ("gates", "u1"), ("mode", "u1"), ("faults", "<u2")])
+RECORDED = ("t_s", "vs_V", "vterm_V", "i_avg_A", "i_max_A", "i_min_A", "i_sample_A", "vbus_V", "vbus_sample_V",
+            "compare", "gates", "mode", "faults", "duty", "iref_A", "vref_V", "pcmd_W", "e_in_J", "e_out_J",
+            "e_loss_J", "shoot_through")
+
+
+def stage_params(prj: Project) -> StageParams:
+    c, r = prj.config, prj.resolved
+    pl = c.plant
+    slow = pl.rds_on_slow
+    return StageParams(
+        inductance_H=r.inductance_H, capacitance_F=r.capacitance_F, inductor_dcr_ohm=pl.inductor_dcr,
+        capacitor_esr_ohm=pl.capacitor_esr, rds_on_fast_ohm=pl.rds_on_fast, rds_on_slow_ohm=slow,
+        dead_time_s=pl.dead_time, fsw_Hz=c.spec.fsw, period_counts=r.pwm_period_counts,
+        source_resistance_ohm=pl.source_resistance, source_inductance_H=pl.source_inductance,
+    )
+
+
+def adc_scaling(prj: Project) -> AdcScaling:
+    r = prj.resolved
+    half = float(2 ** (prj.config.sensing.adc_bits - 1))
+    return AdcScaling(r.adc_full_counts, r.vac_range_V / half, r.vac_offset_counts, r.il_range_A / half,
+                      r.il_offset_counts, r.vbus_range_V / r.adc_full_counts)
+
+
+@dataclass
+class RunResult:
+    """Per-period records, each an array of shape (periods, n)."""
+
+    project: Project
+    scenarios: list[Scenario]
+    model: str
+    data: dict[str, np.ndarray]
+    wall_s: float
+    periods: int
+    extras: dict = field(default_factory=dict)
+
+    def lane(self, k: int) -> dict[str, np.ndarray]:
+        return {name: arr[:, k] for name, arr in self.data.items()}
+
+
+class Progress:
+    """A one-line progress bar on stderr, shown only once a run has lasted a second."""
+
+    def __init__(self, total: int, label: str, enabled: bool = True):
+        self.total, self.label, self.enabled = total, label, enabled and total > 0
+        self.t0 = time.perf_counter()
+        self.last = 0.0
+        self.shown = False
+
+    def update(self, done: int) -> None:
+        if not self.enabled:
+            return
+        now = time.perf_counter()
+        if now - self.t0 < 1.0 or now - self.last < 0.25:
+            return
+        self.last = now
+        self.shown = True
+        frac = done / self.total
+        eta = (now - self.t0) * (1.0 - frac) / max(frac, 1e-9)
+        bar = "#" * int(30 * frac)
+        sys.stderr.write(f"\r{self.label} [{bar:<30}] {100 * frac:5.1f} %  eta {eta:5.1f} s")
+        sys.stderr.flush()
+
+    def close(self) -> None:
+        if self.shown:
+            sys.stderr.write(f"\r{self.label} done in {time.perf_counter() - self.t0:.1f} s" + " " * 30 + "\n")
+
+
+class Controllers:
+    """``n`` instances of the generated controller in one cffi build."""
+
+    def __init__(self, prj: Project, n: int, built=None):
+        self.b = built or build_of(prj)
+        self.p = prj.config.control.prefix
+        ffi, lib = self.b.ffi, self.b.lib
+        self.n = n
+        self.ctrl = ffi.new(f"{self.p}_ctrl_t[{n}]")
+        self.adc = ffi.new(f"{self.p}_adc_t[{n}]")
+        self.pwm = ffi.new(f"{self.p}_pwm_t[{n}]")
+        assert ffi.sizeof(f"{self.p}_pwm_t") == PWM_DTYPE.itemsize
+        self.adc_view = np.frombuffer(ffi.buffer(self.adc), dtype=np.uint16).reshape(n, 3)
+        self.pwm_view = np.frombuffer(ffi.buffer(self.pwm), dtype=PWM_DTYPE)
+        self._step = getattr(lib, f"{self.p}_step")
+        init = getattr(lib, f"{self.p}_init")
+        for k in range(n):
+            init(self.ctrl + k)
+
+    def step(self, codes: np.ndarray) -> np.ndarray:
+        self.adc_view[:] = codes
+        step, c, a, w = self._step, self.ctrl, self.adc, self.pwm
+        for k in range(self.n):
+            step(c + k, a + k, w + k)
+        return self.pwm_view.copy()
+
+    def internals(self) -> tuple[np.ndarray, ...]:
+        c = self.ctrl
+        n = self.n
+        duty = np.fromiter((c[k].iloop.duty for k in range(n)), float, n)
+        iref = np.fromiter((c[k].iref.iref_A for k in range(n)), float, n)
+        vref = np.fromiter((c[k].vloop.vref_V for k in range(n)), float, n)
+        pcmd = np.fromiter((c[k].vloop.pcmd_W for k in range(n)), float, n)
+        return duty, iref, vref, pcmd
+
+
+def run(prj: Project, scenarios: list[Scenario], model: str = "switching", progress: bool = True,
+        built=None) -> RunResult:
+    """Run all ``scenarios`` in lockstep (one lane each) for the longest duration."""
+    if model not in ("switching", "averaged"):
+        raise ValueError(f"model must be 'switching' or 'averaged', not {model!r}")
+    n = len(scenarios)
+    sp = stage_params(prj)
+    T = sp.period_s
+    spec = prj.config.spec
+    periods = int(round(max(s.duration_s for s in scenarios) / T))
+    grid = Grid(n, [s.vrms_V for s in scenarios], [s.freq_Hz for s in scenarios], [s.phase_deg for s in scenarios],
+                dc_V=[s.dc_V for s in scenarios], harmonics_per_lane=[s.harmonics for s in scenarios])
+    load = Load(n, [s.load_kind for s in scenarios], [s.load_power_W for s in scenarios], spec.vout)
+    sens = Sensors(adc_scaling(prj), n, seed=scenarios[0].seed,
+                   gain_err=tuple(np.array([s.gain_error[ch] for s in scenarios]) for ch in range(3)),
+                   offset_err=tuple(np.array([s.offset_counts[ch] for s in scenarios]) for ch in range(3)),
+                   noise=tuple(np.array([s.noise_counts[ch] for s in scenarios]) for ch in range(3)))
+    # precharge: the body diodes rectify the line into the bus before any switching
+    vpk = np.sqrt(2.0) * np.array([s.vrms_V for s in scenarios]) * 0.98
+    stage = Stage(sp, n, 0.0, vpk)
+    ctl = Controllers(prj, n, built)
+    step_fn = stage.step_period if model == "switching" else stage.step_averaged
+
+    ev_idx = [0] * n
+    next_t = np.array([s.events[0].t_s if s.events else np.inf for s in scenarios])
+    dip_end = np.full(n, -np.inf)
+    dip_level = np.ones(n)
+
+    rec = {name: np.zeros((periods, n)) for name in RECORDED}
+    compare = np.zeros(n)
+    gates = np.zeros(n, dtype=np.int64)
+    bar = Progress(periods, f"run {model} x{n}", progress)
+    t0 = time.perf_counter()
+    for k in range(periods):
+        t = k * T
+        if np.any(next_t <= t):
+            for j in np.nonzero(next_t <= t)[0]:
+                while ev_idx[j] < len(scenarios[j].events) and scenarios[j].events[ev_idx[j]].t_s <= t:
+                    ev = scenarios[j].events[ev_idx[j]]
+                    if ev.kind == "dip":
+                        dip_level[j] = ev.get("residual")
+                        dip_end[j] = t + ev.get("cycles") / grid.freq[j]
+                    elif ev.kind == "load":
+                        load.power[j] = ev.get("power")
+                    elif ev.kind == "freq":
+                        grid.freq[j] = ev.get("hz")
+                    elif ev.kind == "phase_jump":
+                        grid.theta[j] += np.deg2rad(ev.get("deg"))
+                    elif ev.kind == "vrms":
+                        grid.vrms[j] = ev.get("vrms")
+                    ev_idx[j] += 1
+                evs = scenarios[j].events
+                next_t[j] = evs[ev_idx[j]].t_s if ev_idx[j] < len(evs) else np.inf
+        grid.scale = np.where(t < dip_end, dip_level, 1.0)
+        vbus_now = stage.vbus(0.0, stage.i, stage.vc, 0.0, 0.0)
+        G, Icp = load.terms(vbus_now)
+        vs_of_t = grid.voltage
+        res = step_fn(compare, gates, vs_of_t, G, Icp)
+        codes = sens.convert(res.vterm_sample_V, res.i_sample_A, res.vbus_sample_V)
+        out = ctl.step(codes)
+        duty, iref, vref, pcmd = ctl.internals()
+        r = rec
+        r["t_s"][k] = t
+        r["vs_V"][k] = vs_of_t(np.full(n, T / 2.0))
+        r["vterm_V"][k] = res.vterm_sample_V
+        r["i_avg_A"][k] = res.i_avg_A
+        r["i_max_A"][k] = res.i_max_A
+        r["i_min_A"][k] = res.i_min_A
+        r["i_sample_A"][k] = res.i_sample_A
+        r["vbus_V"][k] = res.vbus_avg_V
+        r["vbus_sample_V"][k] = res.vbus_sample_V
+        r["compare"][k] = compare
+        r["gates"][k] = gates
+        r["mode"][k] = out["mode"]
+        r["faults"][k] = out["faults"]
+        r["duty"][k] = duty
+        r["iref_A"][k] = iref
+        r["vref_V"][k] = vref
+        r["pcmd_W"][k] = pcmd
+        r["e_in_J"][k] = res.e_in_J
+        r["e_out_J"][k] = res.e_out_J
+        r["e_loss_J"][k] = res.e_loss_J
+        r["shoot_through"][k] = res.shoot_through
+        compare = out["compare"].astype(float)
+        gates = out["gates"].astype(np.int64)
+        grid.advance(T)
+        bar.update(k + 1)
+    bar.close()
+    return RunResult(prj, scenarios, model, rec, time.perf_counter() - t0, periods)

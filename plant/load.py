@@ -1,0 +1,30 @@
+"""DC loads on the bus: resistive or constant power, with power steps.
+
+A load connects once the bus has first reached ``connect_V`` (a downstream converter
+waits for its power-good), and a constant-power load draws nothing below ``uvlo_V``
+(its under-voltage lockout); the constant-power current ``P/v_bus`` is frozen over
+each period.
+"""
+from __future__ import annotations
+
+import numpy as np
+
+
+class Load:
+    def __init__(self, n: int, kind, power_W, vout_V: float, connect_V=None, uvlo_V=None):
+        kinds = np.broadcast_to(np.asarray(kind), (n,))
+        self.constant_power = kinds == "constant_power"
+        self.power = np.broadcast_to(np.asarray(power_W, dtype=float), (n,)).copy()
+        self.vout = vout_V
+        self.connect_V = 0.95 * vout_V if connect_V is None else connect_V
+        self.uvlo_V = 0.5 * vout_V if uvlo_V is None else uvlo_V
+        self.connected = np.zeros(n, dtype=bool)
+
+    def terms(self, vbus_V: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+        """(G in S, I_cp in A) for the next period, from the bus voltage now."""
+        self.connected |= vbus_V >= self.connect_V
+        on = self.connected
+        G = np.where(on & ~self.constant_power, self.power / self.vout**2, 0.0)
+        cp_on = on & self.constant_power & (vbus_V > self.uvlo_V)
+        I = np.where(cp_on, self.power / np.maximum(vbus_V, self.uvlo_V), 0.0)
+        return G, I
