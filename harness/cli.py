@@ -6,6 +6,7 @@ import sys
 from importlib import resources
 from pathlib import Path
 
+from codegen.build import BuildError
 from codegen.config import ConfigError
 
 from . import commands
@@ -60,6 +61,9 @@ def main(argv: list[str] | None = None) -> int:
     except ConfigError as exc:
         print(f"pfcrig: error: {exc}", file=sys.stderr)
         return 2
+    except BuildError as exc:
+        print(f"pfcrig: build error: {exc}", file=sys.stderr)
+        return 1
     except BrokenPipeError:
         sys.stderr.close()
         return 0

@@ -3,33 +3,184 @@ from __future__ import annotations
 
 import argparse
 import json
+import math
 import sys
+from pathlib import Path
 
-from .project import load_project
+from codegen.build import BuildError
+from codegen.config import ConfigError
+
+from .project import load_project, render_of, tuning_of
 from .tables import format_table
 
 
 def dump_json(obj, fh=None) -> None:
     out = fh or sys.stdout
-    json.dump(obj, out, indent=2, sort_keys=True)
+    json.dump(obj, out, indent=2, sort_keys=True, default=_jsonable)
     out.write("\n")
+
+
+def _jsonable(x):
+    if isinstance(x, float) and not math.isfinite(x):
+        return None
+    if hasattr(x, "item"):
+        return x.item()
+    raise TypeError(f"not JSON: {type(x)}")
+
+
+def _clean(obj):
+    """Non-finite floats become null (JSON has no inf/nan)."""
+    if isinstance(obj, float):
+        return obj if math.isfinite(obj) else None
+    if isinstance(obj, dict):
+        return {k: _clean(v) for k, v in obj.items()}
+    if isinstance(obj, (list, tuple)):
+        return [_clean(v) for v in obj]
+    return obj
 
 
 def design(args: argparse.Namespace) -> int:
     prj = load_project(args.config)
+    tun = tuning_of(prj)
     doc = {**prj.sizing.as_dict(), **{f"resolved_{k}": v for k, v in prj.resolved.as_dict().items()}}
+    doc["loops"] = tun.as_dict()
     doc["config_digest"] = prj.config.digest()
+    if args.plot:
+        doc["plots"] = [str(p) for p in bode_plots(tun, args.plot)]
     if args.json:
-        dump_json(doc)
+        dump_json(_clean(doc))
         return 0
     print(f"pfcrig design: {prj.config.source} (digest {prj.config.digest()})\n")
     print("Power stage at vin_rms_min, full power")
     print(format_table(["quantity", "value", "unit", "formula", "source"],
                        [(k, f"{v:.4g}", u, f, src) for k, v, u, f, src in prj.sizing.rows()]))
+    print("\nLoops (PI by backward Euler; margins computed on the discrete PI with the plant and delay)")
+    rows = []
+    for lp in (tun.current, tun.voltage):
+        rows.append((lp.name.split("_")[0], f"{lp.kp:.5g}", f"{lp.ki:.5g}", lp.units, f"{lp.ts_s * 1e6:.4g}",
+                     f"{lp.delay_s * 1e6:.4g}", f"{lp.target_crossover_Hz:.4g}", f"{lp.crossover_Hz:.4g}",
+                     f"{lp.target_phase_margin_deg:.1f}", f"{lp.phase_margin_deg:.1f}", f"{lp.gain_margin_dB:.1f}"))
+    print(format_table(["loop", "kp", "ki (/s)", "units", "T (us)", "delay (us)", "fc target (Hz)", "fc (Hz)",
+                        "PM target", "PM (deg)", "GM (dB)"], rows))
     print("\nDerived settings")
     print(format_table(["setting", "value"], [(k, f"{v:.4g}") for k, v in prj.resolved.as_dict().items()]))
+    if args.plot:
+        print("\nwrote " + ", ".join(doc["plots"]))
+    return 0
+
+
+def bode_plots(tun, out_dir) -> list[Path]:
+    import matplotlib
+
+    matplotlib.use("Agg")
+    import matplotlib.pyplot as plt
+    import numpy as np
+
+    out = Path(out_dir)
+    out.mkdir(parents=True, exist_ok=True)
+    paths = []
+    for lp in (tun.current, tun.voltage):
+        f = np.logspace(np.log10(lp.crossover_Hz) - 2.5, np.log10(0.499 / lp.ts_s), 800)
+        g = lp.loop_gain(f)
+        fig, (a, b) = plt.subplots(2, 1, figsize=(8, 6), sharex=True)
+        a.semilogx(f, 20 * np.log10(np.abs(g)))
+        a.axhline(0, color="k", lw=0.6)
+        a.axvline(lp.crossover_Hz, color="grey", ls=":")
+        a.set_ylabel("loop gain (dB)")
+        b.semilogx(f, np.degrees(np.unwrap(np.angle(g))))
+        b.axhline(-180, color="k", lw=0.6)
+        b.axvline(lp.crossover_Hz, color="grey", ls=":")
+        b.set_ylabel("phase (deg)")
+        b.set_xlabel("frequency (Hz)")
+        kind = lp.name.split("_")[0]
+        a.set_title(f"{kind} loop: crossover {lp.crossover_Hz:.4g} Hz, phase margin {lp.phase_margin_deg:.1f} deg, "
+                    f"gain margin {lp.gain_margin_dB:.1f} dB")
+        fig.tight_layout()
+        paths.append(out / f"bode_{kind}.png")
+        fig.savefig(paths[-1], dpi=110)
+        plt.close(fig)
+    return paths
+
+
+def generate(args: argparse.Namespace) -> int:
+    from codegen.render import write
+
+    prj = load_project(args.config)
+    files = render_of(prj)
+    paths = write(files, args.output)
+    print(f"wrote {len(paths)} files to {args.output} (config digest {prj.config.digest()})")
+    if args.check_target:
+        return check_target(prj, files)
+    return 0
+
+
+def check_target(prj, files) -> int:
+    from codegen import target
+
+    if not target.available():
+        print("target check: arm-none-eabi-gcc not installed (Debian: gcc-arm-none-eabi); skipped", file=sys.stderr)
+        return 1
+    p = prj.config.control.prefix
+    fmt = prj.config.control.number_format
+    targets = ["cortex-m4f"] + (["cortex-m0plus"] if fmt == "q15" else [])
+    rows, bad = [], False
+    for t in targets:
+        rep = target.check(files, p, t)
+        ok_flash = rep.flash_B <= target.FLASH_LIMIT_B
+        ok_state = rep.state_B <= target.STATE_LIMIT_B
+        bad |= not (rep.ok() and (t != "cortex-m4f" or (ok_flash and ok_state)))
+        rows.append((t, fmt, rep.flash_B, rep.ram_B, rep.state_B, ", ".join(rep.undefined) or "none",
+                     len(rep.support_calls)))
+    print(format_table(["target", "format", "flash (B)", "static RAM (B)", "sizeof ctrl (B)", "foreign symbols",
+                        "support calls"], rows))
+    print(f"limits on cortex-m4f: flash <= {target.FLASH_LIMIT_B} B, state <= {target.STATE_LIMIT_B} B")
+    return 1 if bad else 0
+
+
+def run_cmd(args: argparse.Namespace) -> int:
+    from . import report
+    from .loop import run
+    from .scenario import default_for, load as load_scenario
+
+    prj = load_project(args.config)
+    scn = load_scenario(args.scenario) if args.scenario else default_for(prj.config.spec)
+    if args.duration:
+        from dataclasses import replace
+
+        scn = replace(scn, duration_s=args.duration)
+    res = run(prj, [scn], model=args.model, progress=not args.quiet)
+    rep = report.lane_report(res)
+    rep["wall_s"] = res.wall_s
+    rep["real_time_factor"] = scn.duration_s / res.wall_s
+    print(report.summary_text(rep))
+    if args.json:
+        with open(args.json, "w") as fh:
+            dump_json(_clean(rep), fh)
+        print(f"wrote {args.json}")
+    if args.csv:
+        report.write_csv(res, args.csv)
+        print(f"wrote {args.csv}")
+    if args.plot:
+        paths = report.write_plots(res, rep, args.plot)
+        print("wrote " + ", ".join(map(str, paths)))
     return 0
 
 
 def register(sub) -> None:
-    """Add the commands built so far."""
+    q = sub.add_parser("generate", help="write the C control code")
+    q.add_argument("config")
+    q.add_argument("-o", "--output", required=True, metavar="DIR", help="folder for the .c/.h files")
+    q.add_argument("--check-target", action="store_true",
+                   help="cross-compile for Cortex-M (arm-none-eabi-gcc) and print flash, RAM and state size")
+    q.set_defaults(func=generate)
+
+    q = sub.add_parser("run", help="compile the generated C and run it in closed loop against the plant model")
+    q.add_argument("config")
+    q.add_argument("--scenario", metavar="FILE", help="scenario TOML (default: nominal line, full load, 0.6 s)")
+    q.add_argument("--model", choices=["switching", "averaged"], default="switching")
+    q.add_argument("--duration", type=float, metavar="S", help="override the scenario duration (s)")
+    q.add_argument("--json", metavar="OUT", help="write the report as JSON")
+    q.add_argument("--csv", metavar="FILE", help="write the per-period waveforms as CSV")
+    q.add_argument("--plot", metavar="DIR", help="write PNG plots")
+    q.add_argument("--quiet", action="store_true", help="no progress bar")
+    q.set_defaults(func=run_cmd)

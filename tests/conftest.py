@@ -26,3 +26,17 @@ def pytest_collection_modifyitems(config, items):
 @pytest.fixture(scope="session")
 def demo_path() -> Path:
     return DEMO
+
+
+@pytest.fixture(scope="session")
+def demo_project():
+    from harness.project import load_project
+
+    return load_project(DEMO)
+
+
+@pytest.fixture(scope="session")
+def demo_built(demo_project):
+    from harness.project import build_of
+
+    return build_of(demo_project)

@@ -1,0 +1,213 @@
+"""Polarity, RMS, current reference and PWM assignment blocks through the compiled C."""
+from __future__ import annotations
+
+import math
+
+import numpy as np
+import pytest
+from hypothesis import assume, given, settings, strategies as st
+
+FSW = 65000.0  # the demo config's switching (and control) frequency
+
+
+def consts(prj):
+    from codegen.constants import build_constants
+    from harness.project import tuning_of
+
+    return {k.name: k.value for k in build_constants(prj.config, prj.resolved, tuning_of(prj), prj.sizing.iline_peak_A)}
+
+
+def wave(amp, f, phase, n, dc=0.0, harm=(), noise=0.0, seed=0):
+    t = np.arange(n) / FSW
+    th = 2 * np.pi * f * t + phase
+    v = np.sin(th)
+    for k, a in harm:
+        v = v + a * np.sin(k * th)
+    v = amp * v + dc
+    clean = v.copy()
+    if noise:
+        v = v + np.random.default_rng(seed).normal(0.0, noise, n)
+    return t, clean, v
+
+
+def run_polarity(b, v):
+    ffi, lib = b.ffi, b.lib
+    s = ffi.new("pfc_polarity_t*")
+    lib.pfc_polarity_init(s)
+    flips, freq, pols = [], [], []
+    for k, x in enumerate(v):
+        before = s.pol
+        lib.pfc_polarity_step(s, float(x))
+        if s.zc and before != 0:  # a change, not the first acquisition from "unknown"
+            flips.append(k)
+            freq.append(s.freq_Hz)
+        pols.append(s.pol)
+    return np.array(flips), np.array(freq), np.array(pols), s
+
+
+@settings(max_examples=25, deadline=None)
+@given(amp=st.floats(60.0, 400.0), f=st.floats(45.0, 66.0), phase=st.floats(0, 2 * math.pi),
+       noise_frac=st.floats(0.0, 1.0), dc_frac=st.floats(-0.02, 0.02))
+def test_polarity_one_change_per_half_and_frequency(demo_project, demo_built, amp, f, phase, noise_frac, dc_frac):
+    c = consts(demo_project)
+    hyst = c["ZC_HYST_V"]
+    sigma = noise_frac * hyst / 5.0  # stated bound: noise rms up to a fifth of the hysteresis half-band
+    dc = dc_frac * amp
+    cycles = 6
+    n = int(cycles * FSW / f)
+    t, clean, v = wave(amp, f, phase, n, dc=dc, noise=sigma, seed=1)
+    flips, freq, pols, _ = run_polarity(demo_built, v)
+    # zero crossings of the (offset) clean wave, in samples
+    zc = np.nonzero(np.sign(clean[1:]) != np.sign(clean[:-1]))[0] + 1
+    acquired = int(np.argmax(pols != 0))
+    zc = zc[zc > acquired]  # crossings after the polarity was first known
+    # no chatter: flips are at least 0.4 half period apart
+    half = FSW / (2 * f)
+    assert np.all(np.diff(flips) > 0.4 * half)
+    # each clean crossing (with time left to detect it) is followed by exactly one flip
+    slope = 2 * np.pi * f * amp  # V/s at the crossing
+    late = (hyst + 4 * sigma + abs(dc)) / slope * FSW + c["ZC_DEBOUNCE"] + 2
+    for z in zc[:-1]:
+        if z + late >= n:
+            continue
+        got = flips[(flips >= z) & (flips <= z + late)]
+        assert len(got) == 1, (z, flips)
+        # the flip happens once the signal is beyond the band, in the new direction
+        k = got[0]
+        assert np.sign(clean[k]) == pols[k]
+    assert len(flips) >= 2 * cycles - 2
+    # frequency estimate after two plausible halves: within 0.5 %
+    assert abs(freq[-1] - f) / f < 0.005
+
+
+def run_rms(b, v):
+    ffi, lib = b.ffi, b.lib
+    pol = ffi.new("pfc_polarity_t*")
+    rms = ffi.new("pfc_rms_t*")
+    lib.pfc_polarity_init(pol)
+    lib.pfc_rms_init(rms)
+    latched = []
+    last_flip = None
+    for k, x in enumerate(v):
+        lib.pfc_polarity_step(pol, float(x))
+        lib.pfc_rms_step(rms, float(x), pol.zc, 1 if pol.last_half else 0)
+        if rms.fresh:
+            latched.append((last_flip, k, rms.ms_V2, rms.inv_ms_per_V2))
+        if pol.zc:
+            last_flip = k
+        assert math.isfinite(rms.inv_ms_per_V2) and rms.inv_ms_per_V2 > 0
+    return latched, rms
+
+
+@settings(max_examples=20, deadline=None)
+@given(amp=st.floats(100.0, 400.0), f=st.floats(45.0, 66.0), phase=st.floats(0, 2 * math.pi),
+       h3=st.floats(0.0, 0.15), h5=st.floats(0.0, 0.1))
+def test_rms_matches_numpy(demo_built, amp, f, phase, h3, h5):
+    n = int(5 * FSW / f)
+    _, _, v = wave(amp, f, phase, n, harm=((3, h3), (5, h5)))
+    latched, _ = run_rms(demo_built, v)
+    assert len(latched) >= 6
+    for a, b, ms, inv in latched:
+        ref = float(np.mean(v[a:b].astype(np.float32).astype(float) ** 2))
+        assert math.sqrt(ms) == pytest.approx(math.sqrt(ref), rel=0.005)
+        assert inv == pytest.approx(1.0 / ms, rel=1e-5)
+    # a pure sine's half-cycle rms is its amplitude / sqrt(2) (analytic)
+    if h3 == 0 and h5 == 0:
+        assert math.sqrt(latched[-1][2]) == pytest.approx(amp / math.sqrt(2), rel=0.005)
+
+
+def test_rms_dropout_keeps_finite_floor(demo_project, demo_built):
+    c = consts(demo_project)
+    n = int(3 * FSW / 50)
+    _, _, v = wave(325.0, 50.0, 0.3, n)
+    v = np.concatenate([v, np.zeros(int(0.2 * FSW)), 0.5 * v[: n // 2]])
+    latched, rms = run_rms(demo_built, v)
+    assert math.isfinite(rms.inv_ms_per_V2)
+    # the floor bounds 1/Vrms^2 from above whatever the line did
+    assert rms.inv_ms_per_V2 <= 1.0 / c["MS_FLOOR_V2"] * (1 + 1e-6)
+    # a tiny line (above the hysteresis, far below brown-out) latches the floored value
+    _, _, tiny = wave(12.0, 50.0, 0.0, int(4 * FSW / 50))
+    latched, rms = run_rms(demo_built, tiny)
+    assert latched and latched[-1][3] == pytest.approx(1.0 / c["MS_FLOOR_V2"], rel=1e-6)
+    assert rms.brown == 1
+
+
+def test_iref_product_clamp_and_guard(demo_project, demo_built):
+    c = consts(demo_project)
+    ffi, lib = demo_built.ffi, demo_built.lib
+    s = ffi.new("pfc_iref_t*")
+    lib.pfc_iref_init(s)
+    # i = P |v| / Vrms^2: 1500 W at 230 V rms, at the peak 325.27 V: 1500 * 325.27 / 52900 = 9.2232 A
+    assert lib.pfc_iref_step(s, 1500.0, 325.27, 1.0 / 52900.0, 400.0) == pytest.approx(9.2232, rel=1e-4)
+    assert lib.pfc_iref_step(s, 1e6, 325.0, 1.0 / 52900.0, 400.0) == pytest.approx(c["IREF_MAX_A"], rel=1e-6)
+    assert lib.pfc_iref_step(s, 1500.0, 325.0, 1.0 / 52900.0, c["VBUS_GUARD_V"] + 1.0) == 0.0
+    assert lib.pfc_iref_step(s, -10.0, 325.0, 1.0 / 52900.0, 400.0) == 0.0
+
+
+GLO, GHI, SLO, SHI = 1, 2, 4, 8
+LEGAL_GATES = {0, GLO | SLO, GLO | SLO | GHI, GHI | SHI, GHI | SHI | GLO}
+
+
+def test_pwm_assignment_table(demo_project, demo_built):
+    c = consts(demo_project)
+    ffi, lib = demo_built.ffi, demo_built.lib
+    per = lib.PFC_PWM_PERIOD_COUNTS
+    ramp, sync = int(c["ZC_RAMP_PERIODS"]), int(c["SYNC_DELAY_PERIODS"])
+    s = ffi.new("pfc_pwmgen_t*")
+    out = ffi.new("pfc_pwm_t*")
+    for pol, main, slow, syncsw in ((1, GLO, SLO, GHI), (-1, GHI, SHI, GLO)):
+        lib.pfc_pwmgen_init(s)
+        # zero-crossing window: disabled -> every gate off
+        lib.pfc_pwmgen_step(s, 0.5, pol, 0, out)
+        assert out.gates == 0 and out.compare == 0
+        rows = []
+        for k in range(ramp + sync + 3):
+            lim = lib.pfc_pwmgen_limit(s)
+            lib.pfc_pwmgen_step(s, 0.5, pol, 1, out)
+            rows.append((k, lim, out.compare, out.gates))
+        for k, lim, cmp_, g in rows:
+            d = min(0.5, lim)
+            on = int(d * per + 0.5)
+            assert lim == pytest.approx(min(c["DUTY_MAX"], k * c["RAMP_STEP"]), abs=1e-6)
+            assert cmp_ == (on if pol > 0 else per - on)
+            assert 0 <= cmp_ <= per
+            assert g in LEGAL_GATES and (g & (SLO | SHI)) != (SLO | SHI)
+            assert g & main and g & slow
+            # synchronous switch only after the ramp and the sync delay
+            assert bool(g & syncsw) == (k >= ramp + sync - 1)
+        # duty ramps in: the first enabled period has no main on-time
+        assert rows[0][1] == 0.0
+    # polarity unknown: gates off
+    lib.pfc_pwmgen_init(s)
+    lib.pfc_pwmgen_step(s, 0.5, 0, 1, out)
+    assert out.gates == 0
+
+
+adc_code = st.integers(0, 65535)
+
+
+@settings(max_examples=60, deadline=None)
+@given(seq=st.lists(st.tuples(adc_code, adc_code, adc_code), min_size=1, max_size=60),
+       repeat=st.integers(1, 80), stuck=st.sampled_from([None, 0, 1, 2]))
+def test_step_arbitrary_adc_stays_in_range(demo_built, seq, repeat, stuck):
+    """Whatever the ADC says (railed, stuck, beyond full scale), outputs stay legal and finite."""
+    ffi, lib = demo_built.ffi, demo_built.lib
+    per = lib.PFC_PWM_PERIOD_COUNTS
+    c = ffi.new("pfc_ctrl_t*")
+    adc = ffi.new("pfc_adc_t*")
+    out = ffi.new("pfc_pwm_t*")
+    lib.pfc_init(c)
+    for k in range(len(seq) * repeat):
+        vac, il, vb = seq[k % len(seq)]
+        codes = [vac, il, vb]
+        if stuck is not None:
+            codes[stuck] = seq[0][stuck]
+        adc.vac, adc.il, adc.vbus = codes
+        lib.pfc_step(c, adc, out)
+        assert 0 <= out.compare <= per
+        assert out.gates in LEGAL_GATES
+        assert out.mode <= 8
+        for x in (c.vloop.pi.x, c.vloop.pcmd_W, c.iloop.pi.x, c.iloop.duty, c.rms.inv_ms_per_V2, c.bus.avg_V,
+                  c.iref.iref_A, c.pol.freq_Hz):
+            assert math.isfinite(x)
+        assert 0.0 <= c.iloop.duty <= 1.0
