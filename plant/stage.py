@@ -110,10 +110,16 @@ class Stage:
         rc = self.p.capacitor_esr_ohm
         return (vc + rc * (m * i - Icp)) / (1.0 + rc * G)
 
-    def _segment(self, dt, qa_fix, qb_fix, vs, G, Icp):
-        """Advance every lane by ``dt`` with the midpoints fixed (0/1) or free (-1: diode)."""
+    @staticmethod
+    def m_of(qa_fix, qb_fix):
+        """(m for i > 0, m for i < 0) with the midpoints fixed (0/1) or free (-1: diode)."""
         m_pos = np.where(qa_fix >= 0, qa_fix, 1) - np.where(qb_fix >= 0, qb_fix, 0)
         m_neg = np.where(qa_fix >= 0, qa_fix, 0) - np.where(qb_fix >= 0, qb_fix, 1)
+        return m_pos, m_neg
+
+    def _segment(self, dt, m_pos, m_neg, vs, G, Icp):
+        """Advance every lane by ``dt``; ``m_pos``/``m_neg`` apply while the current is
+        positive/negative (equal where switches conduct both ways)."""
         forced = m_pos == m_neg
         i, vc = self.i, self.vc
         remaining = np.array(dt, dtype=float)
@@ -207,7 +213,7 @@ class Stage:
             dt = np.maximum(np.asarray(b, dtype=float) - a, 0.0)
             vs = vs_of_t(a + dt / 2.0)
             i0, vc0 = self.i, self.vc
-            m = np.where(dt > 0.0, self._segment(dt, qa, qb, vs, G, Icp), m_prev)
+            m = np.where(dt > 0.0, self._segment(dt, *self.m_of(qa, qb), vs, G, Icp), m_prev)
             m_prev = m
             i1 = self.i
             # current is piecewise near-linear inside a sub-interval: exact integrals for a line
@@ -232,8 +238,10 @@ class Stage:
 
     def step_averaged(self, compare, gates, vs_of_t, G, Icp) -> PeriodResult:
         """Averaged model: one exact linear update per period with the period-average
-        midpoint duty (CCM; a diode-only path cannot reverse the current, which is
-        clamped at zero instead).  For long runs where switching ripple does not matter."""
+        midpoint positions, separately for positive and negative current, so that a
+        path left to diodes for part of the period blocks reversal (a simple account of
+        discontinuous conduction).  For long runs where the switching ripple does not
+        matter; the sample is the period average."""
         p = self.p
         T = p.period_s
         n = self.n
@@ -241,32 +249,26 @@ class Stage:
         dl = np.clip(np.asarray(compare, dtype=float) / p.period_counts, 0.0, 1.0)
         td = np.where((dl > 0.0) & (dl < 1.0), p.dead_time_s, 0.0)
         f_lo = dl
-        f_dead = 2.0 * td / T
-        f_hi = np.maximum(1.0 - dl - f_dead, 0.0)
+        f_dead = np.minimum(2.0 * td / T, 1.0 - dl)
+        f_hi = 1.0 - f_lo - f_dead
         lo_on = (gates & GATE_FAST_LO) != 0
         hi_on = (gates & GATE_FAST_HI) != 0
         s_lo = (gates & GATE_SLOW_LO) != 0
         s_hi = (gates & GATE_SLOW_HI) != 0
-        pos = self.i >= 0.0
-        # fraction of the period the fast midpoint sits on the plus rail
-        qa_low_part = np.where(lo_on, 0.0, np.where(pos, 1.0, 0.0)) * f_lo
-        qa_high_part = np.where(hi_on, 1.0, np.where(pos, 1.0, 0.0)) * f_hi
-        qa = qa_low_part + qa_high_part + np.where(pos, 1.0, 0.0) * f_dead
-        qb = np.where(s_lo & ~s_hi, 0.0, np.where(s_hi & ~s_lo, 1.0, np.where(pos, 0.0, 1.0)))
-        m = qa - qb
+        qb = np.where(s_lo & ~s_hi, 0, np.where(s_hi & ~s_lo, 1, -1))
+        qb_pos = np.where(qb >= 0, qb, 0)
+        qb_neg = np.where(qb >= 0, qb, 1)
+        # fraction of the period the fast midpoint is on the plus rail, by current sign
+        qa_pos = 1.0 - f_lo * lo_on
+        qa_neg = f_hi * hi_on
+        m_pos, m_neg = qa_pos - qb_pos, qa_neg - qb_neg
         vs = vs_of_t(np.full(n, T / 2.0))
-        i0 = self.i.copy()
-        a11, a12, a21, a22, b1, b2 = self._matrices(m, G, Icp, vs)
-        i1, vc1 = advance(a11, a12, a21, a22, b1, b2, self.i, self.vc, np.full(n, T))
-        # a path made only of diodes (no switch that conducts both ways) blocks reversal
-        can_rev_pos = hi_on & (f_hi > 0.0) | lo_on & (f_lo > 0.0)
-        blocked = (np.sign(i1) != np.sign(i0)) & (i0 != 0.0) & ~can_rev_pos
-        vb0 = self.vbus(0.0, 0.0, self.vc, G, Icp)
-        idle = (i0 == 0.0) & (np.abs(vs) < np.abs(vb0) * np.abs(m) + 1e-12) & ~can_rev_pos
-        zero = blocked | idle
-        i1 = np.where(zero, 0.0, i1)
-        self.i, self.vc = i1, vc1
-        vb = self.vbus(m, i1, vc1, G, Icp)
+        i0, vc0 = self.i.copy(), self.vc.copy()
+        m = self._segment(np.full(n, T), m_pos, m_neg, vs, G, Icp)
+        i1 = self.i
+        vb = (self.vbus(m, i0, vc0, G, Icp) + self.vbus(m, i1, self.vc, G, Icp)) / 2.0
         iavg = (i0 + i1) / 2.0
-        return PeriodResult(iavg, vb, vs, iavg, np.maximum(i0, i1), np.minimum(i0, i1), vb,
-                            T * vs * iavg, T * (G * vb**2 + Icp * vb), T * p.r_total_ohm * iavg**2, s_lo & s_hi)
+        q2 = T * (i0 * i0 + i0 * i1 + i1 * i1) / 3.0
+        return PeriodResult(iavg, vb, vs - p.source_resistance_ohm * iavg - p.source_inductance_H * (i1 - i0) / T,
+                            iavg, np.maximum(i0, i1), np.minimum(i0, i1), vb, T * vs * iavg,
+                            T * (G * vb**2 + Icp * vb), p.r_total_ohm * q2, s_lo & s_hi)
