@@ -92,6 +92,8 @@ def build_constants(cfg: Config, r: Resolved, tun: Tuning, iline_peak_A: float) 
     add(g, "BUS_BLOCK_NOMINAL", max(1, round(fsw / (2.0 * s.line_freq)) >> shift), "u", "periods", "block length before the first measured half", "fsw/(2 line_freq)/BUS_BLOCKS")
     add(g, "VOUT_V", s.vout, "f", "V", "bus reference", "[spec] vout")
     add(g, "VREF_STEP_V", s.vout / (c.soft_start_time * fsw), "f", "V/period", "soft-start reference slope", "vout/([control] soft_start_time x fsw)")
+    slope = s.vout / c.soft_start_time
+    add(g, "RAMP_FF_W_PER_V", r.capacitance_F * slope / s.efficiency, "f", "W/V", "ramp feedforward: capacitor charging power per volt of reference", f"C x vout/soft_start_time / efficiency, C = {r.capacitance_F:.6g} F")
     add(g, "VKP", tun.voltage.kp, "f", "W/V", "voltage PI proportional gain", f"tuning: {tun.voltage.target_crossover_Hz:g} Hz, {tun.voltage.target_phase_margin_deg:g} deg")
     add(g, "VKI_TS", tun.voltage.ki_ts, "f", "W/V", "voltage PI integral gain x block period (backward Euler)", f"tuning: Ki = {tun.voltage.ki:.6g} W/(V s), T = {tun.voltage.ts_s:.6g} s")
     add(g, "PCMD_MAX_W", 1.3 * s.power / s.efficiency, "f", "W", "largest input power command", "1.3 x [spec] power/efficiency")

@@ -106,6 +106,18 @@ def zero_crossing_spike(vs: np.ndarray, i_max: np.ndarray, i_min: np.ndarray, ba
     return float(peak / (math.sqrt(2.0) * i1_rms_A))
 
 
+def half_cycle_mean(x: np.ndarray, fs_Hz: float, f_line_Hz: float) -> np.ndarray:
+    """Trailing moving average over one half line period (a comb notch at twice line
+    frequency): the bus as the voltage loop sees it, without its ripple."""
+    n = max(1, int(round(fs_Hz / (2.0 * f_line_Hz))))
+    c = np.cumsum(np.concatenate([[0.0], np.asarray(x, dtype=float)]))
+    out = np.empty(len(x))
+    k = np.arange(1, len(x) + 1)
+    lo = np.maximum(k - n, 0)
+    out[:] = (c[k] - c[lo]) / (k - lo)
+    return out
+
+
 def step_response(t_s: np.ndarray, v: np.ndarray, t_step: float, ref: float, band: float = 0.02) -> dict:
     """Over/undershoot (V) and settling time (s, into +-band x ref for good) after ``t_step``."""
     after = t_s >= t_step

@@ -38,6 +38,7 @@ def lane_report(res: RunResult, k: int = 0) -> dict:
     bus = metrics.bus_figures(d["vbus_V"][w])
     e_in = float(np.sum(d["e_in_J"][w]))
     e_out = float(np.sum(d["e_out_J"][w]))
+    e_loss = float(np.sum(d["e_loss_J"][w]))
     p_out = e_out / (len(t[w]) / fs)
     # inductor ripple at the line peak, against v(1 - v/Vo)/(L fsw)
     vs_w = d["vs_V"][w]
@@ -58,7 +59,7 @@ def lane_report(res: RunResult, k: int = 0) -> dict:
         **bus,
         "vbus_ref_V": spec.vout,
         "il_peak_A": float(il_abs[w].max()),
-        "efficiency": e_out / e_in if e_in > 0 else math.nan,
+        "efficiency": e_out / (e_out + e_loss) if e_out > 0 else math.nan,
         "p_out_W": p_out,
         "il_ripple_at_peak_A": float(np.mean(rip)) if len(rip) else math.nan,
         "il_ripple_formula_A": rip_formula,
@@ -78,11 +79,15 @@ def lane_report(res: RunResult, k: int = 0) -> dict:
         },
         "events": [],
     }
+    smooth = metrics.half_cycle_mean(d["vbus_V"], fs, scn.freq_Hz)
     for ev in scn.events:
         info = {"t_s": ev.t_s, "kind": ev.kind, **dict(ev.values)}
         after = t >= ev.t_s
         if after.any():
-            info.update(metrics.step_response(t, d["vbus_V"], ev.t_s, spec.vout))
+            # over/undershoot and settling of the half-cycle mean bus (ripple removed)
+            info.update(metrics.step_response(t, smooth, ev.t_s, spec.vout))
+            info["vbus_min_after_V"] = float(d["vbus_V"][after].min())
+            info["vbus_max_after_V"] = float(d["vbus_V"][after].max())
             info["il_peak_after_A"] = float(il_abs[after].max())
         rep["events"].append(info)
     return rep

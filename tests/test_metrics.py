@@ -99,3 +99,11 @@ def test_step_response_figures():
     assert r["undershoot_V"] == pytest.approx(40.0, rel=1e-6)
     # into the 2 % band (8 V): 40 exp(-x/0.05) = 8 -> x = 0.05 ln 5 = 0.0805 s
     assert r["settling_s"] == pytest.approx(0.05 * math.log(5), abs=2e-3)
+
+
+def test_half_cycle_mean_removes_twice_line_ripple():
+    # a 100 Hz ripple averaged over exactly one 100 Hz period (a 50 Hz half cycle) vanishes
+    t = np.arange(int(0.1 * FS)) / FS
+    v = 400 + 10 * np.sin(2 * np.pi * 100 * t)
+    m = metrics.half_cycle_mean(v, FS, 50.0)
+    assert np.max(np.abs(m[1000:] - 400)) < 0.01
