@@ -76,6 +76,7 @@ SCHEMA: dict[str, dict[str, Key]] = {
         "slow_leg": Key(str, "", "slow-leg devices", default="mosfet", choices=("mosfet", "diode")),
         "source_resistance": Key(float, "ohm", "grid source resistance", default=0.05, **NONNEG),
         "source_inductance": Key(float, "H", "grid source inductance", default=20e-6, **NONNEG),
+        "inrush_resistance": Key(float, "ohm", "inrush limiter in series with the line, bypassed by a relay once the bus is charged (0: none)", default=10.0, **NONNEG),
     },
     "control": {
         "number_format": Key(str, "", "number format of the generated C", default="float32", choices=("float32", "q15")),
@@ -122,7 +123,9 @@ def _mk_dataclass(table: str) -> type:
     for name, key in SCHEMA[table].items():
         ann = {float: "float | None", int: "int | None", str: "str | None"}[key.kind]
         fields.append((name, ann, field(default=None, metadata={"unit": key.unit, "doc": key.doc})))
-    return dataclasses.make_dataclass(table.capitalize(), fields, frozen=True)
+    cls = dataclasses.make_dataclass(table.capitalize(), fields, frozen=True)
+    cls.__module__ = __name__  # picklable (worker processes receive configs)
+    return cls
 
 
 Spec = _mk_dataclass("spec")

@@ -13,6 +13,9 @@ from .resolve import Resolved
 from .tuning import BUS_BLOCKS, Tuning
 
 
+FREQ_TOL = 0.01  # the frequency estimate is good to 0.5 %; the band edges get twice that
+
+
 @dataclass(frozen=True)
 class Const:
     name: str  # without prefix
@@ -75,8 +78,10 @@ def build_constants(cfg: Config, r: Resolved, tun: Tuning, iline_peak_A: float) 
     add(g, "HALF_MIN_PERIODS", half_min, "u", "periods", "shortest plausible half period", "fsw/(2 x 1.25 x [protection] freq_max)")
     add(g, "HALF_MAX_PERIODS", half_max, "u", "periods", "longest plausible half period", "fsw/(2 x 0.8 x [protection] freq_min)")
     add(g, "FSW_HZ", fsw, "f", "Hz", "PWM (control) frequency", "[spec] fsw")
-    add(g, "FREQ_MIN_HZ", pr.freq_min, "f", "Hz", "lowest accepted line frequency", "[protection] freq_min")
-    add(g, "FREQ_MAX_HZ", pr.freq_max, "f", "Hz", "highest accepted line frequency", "[protection] freq_max")
+    add(g, "FREQ_MIN_HZ", pr.freq_min * (1.0 - FREQ_TOL), "f", "Hz", "estimate below this: line frequency out of range",
+        f"[protection] freq_min less {100 * FREQ_TOL:g} % (twice the estimate's error bound)")
+    add(g, "FREQ_MAX_HZ", pr.freq_max * (1.0 + FREQ_TOL), "f", "Hz", "estimate above this: line frequency out of range",
+        f"[protection] freq_max plus {100 * FREQ_TOL:g} % (twice the estimate's error bound)")
 
     g = "RMS and brown-out"
     floor = 0.5 * r.brownout_off_rms_V

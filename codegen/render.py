@@ -30,8 +30,18 @@ def _env() -> jinja2.Environment:
     )
 
 
-def render(cfg: Config, resolved: Resolved, tuning: Tuning, iline_peak_A: float) -> dict[str, str]:
-    """Return {file name: C text} for every generated file."""
+TEST_BREAKS = ("no_zc_ramp", "no_inv_floor")
+
+
+def render(cfg: Config, resolved: Resolved, tuning: Tuning, iline_peak_A: float, test_break: str | None = None) -> dict[str, str]:
+    """Return {file name: C text} for every generated file.
+
+    ``test_break`` (tests only, never from a config): render a deliberately broken
+    controller, ``no_zc_ramp`` (full duty and the synchronous switch at once after each
+    zero crossing) or ``no_inv_floor`` (1/Vrms^2 without its floor), so the tests can show
+    that the fault campaign catches it."""
+    if test_break is not None and test_break not in TEST_BREAKS:
+        raise ValueError(f"test_break must be one of {TEST_BREAKS}")
     if cfg.control.number_format != "float32":
         raise ConfigError(
             f"{cfg.source}: [control] number_format = {cfg.control.number_format!r}: this version generates float32 only "
@@ -41,7 +51,7 @@ def render(cfg: Config, resolved: Resolved, tuning: Tuning, iline_peak_A: float)
     p = cfg.control.prefix
     base = dict(
         p=p, P=p.upper(), version=VERSION, source_name=Path(cfg.source).name, digest=cfg.digest(),
-        number_format=cfg.control.number_format, vout=cfg.spec.vout, bus_blocks=BUS_BLOCKS,
+        number_format=cfg.control.number_format, vout=cfg.spec.vout, bus_blocks=BUS_BLOCKS, test_break=test_break,
     )
     env = _env()
     files: dict[str, str] = {}

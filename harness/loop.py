@@ -38,6 +38,7 @@ def stage_params(prj: Project) -> StageParams:
         capacitor_esr_ohm=pl.capacitor_esr, rds_on_fast_ohm=pl.rds_on_fast, rds_on_slow_ohm=slow,
         dead_time_s=pl.dead_time, fsw_Hz=c.spec.fsw, period_counts=r.pwm_period_counts,
         source_resistance_ohm=pl.source_resistance, source_inductance_H=pl.source_inductance,
+        inrush_resistance_ohm=pl.inrush_resistance,
     )
 
 
@@ -141,7 +142,7 @@ def run(prj: Project, scenarios: list[Scenario], model: str = "switching", progr
     grid = Grid(n, [s.vrms_V for s in scenarios], [s.freq_Hz for s in scenarios], [s.phase_deg for s in scenarios],
                 dc_V=[s.dc_V for s in scenarios], harmonics_per_lane=[s.harmonics for s in scenarios])
     load = Load(n, [s.load_kind for s in scenarios], [s.load_power_W for s in scenarios], spec.vout)
-    sens = Sensors(adc_scaling(prj), n, seed=scenarios[0].seed,
+    sens = Sensors(adc_scaling(prj), n, seed=[s.seed for s in scenarios],
                    gain_err=tuple(np.array([s.gain_error[ch] for s in scenarios]) for ch in range(3)),
                    offset_err=tuple(np.array([s.offset_counts[ch] for s in scenarios]) for ch in range(3)),
                    noise=tuple(np.array([s.noise_counts[ch] for s in scenarios]) for ch in range(3)))
@@ -182,6 +183,7 @@ def run(prj: Project, scenarios: list[Scenario], model: str = "switching", progr
                 evs = scenarios[j].events
                 next_t[j] = evs[ev_idx[j]].t_s if ev_idx[j] < len(evs) else np.inf
         grid.scale = np.where(t < dip_end, dip_level, 1.0)
+        stage.inrush_update(np.sqrt(2.0) * grid.vrms)
         vbus_now = stage.vbus(0.0, stage.i, stage.vc, 0.0, 0.0)
         G, Icp = load.terms(vbus_now)
         vs_of_t = grid.voltage

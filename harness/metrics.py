@@ -97,13 +97,15 @@ def bus_figures(vbus: np.ndarray) -> dict:
     }
 
 
-def zero_crossing_spike(vs: np.ndarray, i_max: np.ndarray, i_min: np.ndarray, band_V: float, i1_rms_A: float) -> float:
-    """Largest |i| in the periods where |v| < band_V, as a fraction of the fundamental peak."""
+def zero_crossing_spike(vs: np.ndarray, i_avg: np.ndarray, band_V: float, i1_rms_A: float) -> float:
+    """Largest period-average |i| where |v| < band_V, as a fraction of the fundamental peak.
+
+    The period average is the current the line sees through the input filter; a spike
+    that matters at the crossing (a wrong-polarity or full-duty period) shows in it."""
     near = np.abs(vs) < band_V
     if not near.any() or i1_rms_A <= 0:
         return 0.0
-    peak = np.maximum(np.abs(i_max[near]), np.abs(i_min[near])).max()
-    return float(peak / (math.sqrt(2.0) * i1_rms_A))
+    return float(np.abs(i_avg[near]).max() / (math.sqrt(2.0) * i1_rms_A))
 
 
 def half_cycle_mean(x: np.ndarray, fs_Hz: float, f_line_Hz: float) -> np.ndarray:

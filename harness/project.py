@@ -41,13 +41,13 @@ def tuning_of(prj: Project, line_freq_Hz: float | None = None):
     return tune(prj.config, r.inductance_H, r.capacitance_F, r.current_bandwidth_Hz, line_freq_Hz)
 
 
-def render_of(prj: Project) -> dict[str, str]:
+def render_of(prj: Project, test_break: str | None = None) -> dict[str, str]:
     from codegen.render import render
 
-    return render(prj.config, prj.resolved, tuning_of(prj), prj.sizing.iline_peak_A)
+    return render(prj.config, prj.resolved, tuning_of(prj), prj.sizing.iline_peak_A, test_break)
 
 
-def build_of(prj: Project, extra_c: dict[str, str] | None = None):
+def build_of(prj: Project, extra_c: dict[str, str] | None = None, test_break: str | None = None):
     from codegen.build import build
 
-    return build(render_of(prj), prj.config.control.prefix, extra_c=extra_c)
+    return build(render_of(prj, test_break), prj.config.control.prefix, extra_c=extra_c)

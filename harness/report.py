@@ -64,8 +64,8 @@ def lane_report(res: RunResult, k: int = 0) -> dict:
         "il_ripple_at_peak_A": float(np.mean(rip)) if len(rip) else math.nan,
         "il_ripple_formula_A": rip_formula,
         "vbus_ripple_formula_V": bus_formula,
-        "zc_spike_ratio": metrics.zero_crossing_spike(d["vs_V"][w], d["i_max_A"][w], d["i_min_A"][w],
-                                                      2.0 * prj.resolved.zc_blank_V, pq["harmonics_A"][0]),
+        "zc_spike_ratio": metrics.zero_crossing_spike(d["vs_V"][w], d["i_avg_A"][w], 2.0 * prj.resolved.zc_blank_V,
+                                                      pq["harmonics_A"][0]),
         "window_s": [float(t[w][0]), float(t[w][-1] + 1.0 / fs)],
         "whole_run": {
             "duration_s": float(t[-1] + 1.0 / fs),

@@ -52,6 +52,9 @@ class StageParams:
     period_counts: int
     source_resistance_ohm: float = 0.0
     source_inductance_H: float = 0.0
+    inrush_resistance_ohm: float = 0.0  # series limiter, bypassed by a relay once the bus is charged
+    bypass_close_frac: float = 0.85  # relay closes when the bus reaches this fraction of the line peak
+    bypass_open_frac: float = 0.6  # and opens again below this fraction
 
     @property
     def period_s(self) -> float:
@@ -86,11 +89,31 @@ class PeriodResult:
 class Stage:
     """State ``i`` (A) and ``vc`` (V, capacitor) for ``n`` scenarios."""
 
-    def __init__(self, p: StageParams, n: int, i0_A=0.0, vc0_V=0.0):
+    def __init__(self, p: StageParams, n: int, i0_A=0.0, vc0_V=0.0, g_max_S: float = 1.0):
+        """``g_max_S``: the largest load conductance the run will see (bounds the step size
+        of the exact solver, fixed so that every lane's result is independent of the batch)."""
         self.p = p
         self.n = n
+        L, C = p.l_total_H, p.capacitance_F
+        # |A| per second in the scaled state (i sqrt(L), v sqrt(C)), where the matrix norm is
+        # R/L + 1/sqrt(LC) + G/C: with the limiter relay closed, and with it open
+        base = 1.0 / np.sqrt(L * C) + g_max_S / C + p.capacitor_esr_ohm / L
+        self.rate = ((p.r_total_ohm / L + base), ((p.r_total_ohm + p.inrush_resistance_ohm) / L + base))
+        self.bypassed = np.ones(n, dtype=bool)  # inrush limiter relay; start-up begins precharged
+        self.r_path = np.full(n, p.r_total_ohm)
         self.i = np.full(n, float(i0_A)) if np.isscalar(i0_A) else np.array(i0_A, dtype=float)
         self.vc = np.full(n, float(vc0_V)) if np.isscalar(vc0_V) else np.array(vc0_V, dtype=float)
+
+    def inrush_update(self, vline_pk_V) -> None:
+        """The inrush limiter's relay (autonomous hardware, hysteretic on the bus against the
+        nominal line peak): opens when the bus has collapsed, closes once it is charged."""
+        p = self.p
+        if p.inrush_resistance_ohm <= 0.0:
+            return
+        vpk = np.asarray(vline_pk_V, dtype=float)
+        self.bypassed = np.where(self.vc >= p.bypass_close_frac * vpk, True,
+                                 np.where(self.vc < p.bypass_open_frac * vpk, False, self.bypassed))
+        self.r_path = p.r_total_ohm + np.where(self.bypassed, 0.0, p.inrush_resistance_ohm)
 
     # -- circuit pieces ----------------------------------------------------------------
     def _matrices(self, m, G, Icp, vs):
@@ -98,7 +121,7 @@ class Stage:
         rc = p.capacitor_esr_ohm
         k = 1.0 / (1.0 + rc * G)
         L, C = p.l_total_H, p.capacitance_F
-        a11 = -(p.r_total_ohm + k * rc * m * m) / L
+        a11 = -(self.r_path + k * rc * m * m) / L
         a12 = -m * k / L
         a21 = m * k / C
         a22 = -G * k / C
@@ -117,9 +140,18 @@ class Stage:
         m_neg = np.where(qa_fix >= 0, qa_fix, 0) - np.where(qb_fix >= 0, qb_fix, 1)
         return m_pos, m_neg
 
-    def _segment(self, dt, m_pos, m_neg, vs, G, Icp):
-        """Advance every lane by ``dt``; ``m_pos``/``m_neg`` apply while the current is
-        positive/negative (equal where switches conduct both ways)."""
+    def _advance(self, a11, a12, a21, a22, b1, b2, i, vc, t, t_max):
+        """``advance`` with a step plan fixed by the parameters and ``t_max`` (and by each lane's
+        limiter relay), so that no lane's result depends on the others."""
+        x = advance(a11, a12, a21, a22, b1, b2, i, vc, t, self.rate[0] * t_max)
+        if self.bypassed.all():
+            return x
+        y = advance(a11, a12, a21, a22, b1, b2, i, vc, t, self.rate[1] * t_max)
+        return np.where(self.bypassed, x[0], y[0]), np.where(self.bypassed, x[1], y[1])
+
+    def _segment(self, dt, m_pos, m_neg, vs, G, Icp, t_max):
+        """Advance every lane by ``dt`` (at most ``t_max``); ``m_pos``/``m_neg`` apply while the
+        current is positive/negative (equal where switches conduct both ways)."""
         forced = m_pos == m_neg
         i, vc = self.i, self.vc
         remaining = np.array(dt, dtype=float)
@@ -142,7 +174,7 @@ class Stage:
             a21 = np.where(zero_mode, 0.0, a21)
             b1 = np.where(zero_mode, 0.0, b1)
             t = np.where(active, remaining, 0.0)
-            i1, vc1 = advance(a11, a12, a21, a22, b1, b2, i, vc, t)
+            i1, vc1 = self._advance(a11, a12, a21, a22, b1, b2, i, vc, t, t_max)
             cross = active & ~forced & ~zero_mode & (np.sign(i1) != np.sign(i)) & (i != 0.0)
             m_used = np.where(active, m, m_used)
             if not cross.any():
@@ -152,11 +184,11 @@ class Stage:
             # diode current reaches zero inside the step: find when (Newton on the exact solution)
             tz = t * i / (i - np.where(cross, i1, i - 1.0))
             tz = np.where(cross, np.clip(tz, 0.0, t), 0.0)
-            for _ in range(4):
-                iz, vz = advance(a11, a12, a21, a22, b1, b2, i, vc, tz)
+            for _ in range(2):  # from the chord, Newton converges to rounding in two steps
+                iz, vz = self._advance(a11, a12, a21, a22, b1, b2, i, vc, tz, t_max)
                 di = a11 * iz + a12 * vz + b1
                 tz = np.where(cross & (di != 0.0), np.clip(tz - iz / np.where(di == 0.0, 1.0, di), 0.0, t), tz)
-            iz, vz = advance(a11, a12, a21, a22, b1, b2, i, vc, tz)
+            iz, vz = self._advance(a11, a12, a21, a22, b1, b2, i, vc, tz, t_max)
             done = active & ~cross
             i = np.where(done, i1, np.where(cross, 0.0, i))
             vc = np.where(done, vc1, np.where(cross, vz, vc))
@@ -188,14 +220,15 @@ class Stage:
         qa_low = np.where(lo_on, 0, -1)
         qa_high = np.where(hi_on, 1, -1)
         # (start, end, qa) of each sub-interval; the sample instant T/2 is a boundary
-        segs = [
-            (0.0, t1, qa_low),
-            (t1, np.minimum(b2, half), free),
-            (np.minimum(b2, half), half, qa_high),
-            (half, np.maximum(b2, half), free),
-            (np.maximum(b2, half), t2, qa_high),
-            (t2, b4, free),
-            (b4, T, qa_low),
+        tdm = p.dead_time_s
+        segs = [  # (start, end, fast midpoint, longest possible duration)
+            (0.0, t1, qa_low, half),
+            (t1, np.minimum(b2, half), free, tdm),
+            (np.minimum(b2, half), half, qa_high, half),
+            (half, np.maximum(b2, half), free, tdm),
+            (np.maximum(b2, half), t2, qa_high, half),
+            (t2, b4, free, tdm),
+            (b4, T, qa_low, half),
         ]
         n = self.n
         i_start = self.i.copy()
@@ -208,21 +241,24 @@ class Stage:
         imin = i_start.copy()
         sample = None
         m_prev = np.zeros(n)
-        for k, (a, b, qa) in enumerate(segs):
+        for k, (a, b, qa, t_max) in enumerate(segs):
             a = np.broadcast_to(np.asarray(a, dtype=float), (n,))
             dt = np.maximum(np.asarray(b, dtype=float) - a, 0.0)
-            vs = vs_of_t(a + dt / 2.0)
-            i0, vc0 = self.i, self.vc
-            m = np.where(dt > 0.0, self._segment(dt, *self.m_of(qa, qb), vs, G, Icp), m_prev)
-            m_prev = m
-            i1 = self.i
-            # current is piecewise near-linear inside a sub-interval: exact integrals for a line
-            q_int += dt * (i0 + i1) / 2.0
-            q2_int += dt * (i0 * i0 + i0 * i1 + i1 * i1) / 3.0
-            e_in += dt * vs * (i0 + i1) / 2.0
-            vb_int += dt * (self.vbus(m, i0, vc0, G, Icp) + self.vbus(m, i1, self.vc, G, Icp)) / 2.0
-            imax = np.maximum(imax, i1)
-            imin = np.minimum(imin, i1)
+            if np.any(dt > 0.0):
+                vs = vs_of_t(a + dt / 2.0)
+                i0, vc0 = self.i, self.vc
+                m = np.where(dt > 0.0, self._segment(dt, *self.m_of(qa, qb), vs, G, Icp, t_max), m_prev)
+                m_prev = m
+                i1 = self.i
+                # current is piecewise near-linear inside a sub-interval: exact integrals for a line
+                q_int += dt * (i0 + i1) / 2.0
+                q2_int += dt * (i0 * i0 + i0 * i1 + i1 * i1) / 3.0
+                e_in += dt * vs * (i0 + i1) / 2.0
+                vb_int += dt * (self.vbus(m, i0, vc0, G, Icp) + self.vbus(m, i1, self.vc, G, Icp)) / 2.0
+                imax = np.maximum(imax, i1)
+                imin = np.minimum(imin, i1)
+            else:
+                m = m_prev
             if k == 2:
                 vs_half = vs_of_t(np.full(n, half))
                 vb_half = self.vbus(m, self.i, self.vc, G, Icp)
@@ -232,7 +268,7 @@ class Stage:
         sample[2] = sample[2] - p.source_resistance_ohm * sample[0] - p.source_inductance_H * (self.i - i_start) / T
         vbus_avg = vb_int / T
         e_out = T * (G * vbus_avg**2 + Icp * vbus_avg)
-        e_loss = p.r_total_ohm * q2_int
+        e_loss = self.r_path * q2_int
         return PeriodResult(sample[0], sample[1], sample[2], q_int / T, imax, imin, vbus_avg, e_in, e_out, e_loss,
                             shoot)
 
@@ -264,11 +300,11 @@ class Stage:
         m_pos, m_neg = qa_pos - qb_pos, qa_neg - qb_neg
         vs = vs_of_t(np.full(n, T / 2.0))
         i0, vc0 = self.i.copy(), self.vc.copy()
-        m = self._segment(np.full(n, T), m_pos, m_neg, vs, G, Icp)
+        m = self._segment(np.full(n, T), m_pos, m_neg, vs, G, Icp, T)
         i1 = self.i
         vb = (self.vbus(m, i0, vc0, G, Icp) + self.vbus(m, i1, self.vc, G, Icp)) / 2.0
         iavg = (i0 + i1) / 2.0
         q2 = T * (i0 * i0 + i0 * i1 + i1 * i1) / 3.0
         return PeriodResult(iavg, vb, vs - p.source_resistance_ohm * iavg - p.source_inductance_H * (i1 - i0) / T,
                             iavg, np.maximum(i0, i1), np.minimum(i0, i1), vb, T * vs * iavg,
-                            T * (G * vb**2 + Icp * vb), p.r_total_ohm * q2, s_lo & s_hi)
+                            T * (G * vb**2 + Icp * vb), self.r_path * q2, s_lo & s_hi)
