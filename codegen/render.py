@@ -30,16 +30,16 @@ def _env() -> jinja2.Environment:
     )
 
 
-TEST_BREAKS = ("no_zc_ramp", "no_inv_floor")
+TEST_BREAKS = ("no_zc_blank",)
 
 
 def render(cfg: Config, resolved: Resolved, tuning: Tuning, iline_peak_A: float, test_break: str | None = None) -> dict[str, str]:
     """Return {file name: C text} for every generated file.
 
     ``test_break`` (tests only, never from a config): render a deliberately broken
-    controller, ``no_zc_ramp`` (full duty and the synchronous switch at once after each
-    zero crossing) or ``no_inv_floor`` (1/Vrms^2 without its floor), so the tests can show
-    that the fault campaign catches it."""
+    controller, ``no_zc_blank`` (no zero-crossing window: it keeps switching in the old
+    polarity until the new one is confirmed), so the tests can show that the fault
+    campaign catches it."""
     if test_break is not None and test_break not in TEST_BREAKS:
         raise ValueError(f"test_break must be one of {TEST_BREAKS}")
     if cfg.control.number_format != "float32":
@@ -65,6 +65,17 @@ def render(cfg: Config, resolved: Resolved, tuning: Tuning, iline_peak_A: float,
             name = f"{p}_{block}.{ext}"
             files[name] = env.get_template(f"{block}.{ext}.j2").render(**base, file=name)
     return files
+
+
+def render_host(cfg: Config) -> dict[str, str]:
+    """Host-only sources (batch stepping, probes, benchmark loop): built beside the MCU
+    sources for the desktop, never written by ``pfcrig generate``."""
+    p = cfg.control.prefix
+    base = dict(p=p, P=p.upper(), version=VERSION, source_name=Path(cfg.source).name, digest=cfg.digest(),
+                number_format=cfg.control.number_format, vout=cfg.spec.vout)
+    env = _env()
+    return {f"{p}_host_batch.{ext}": env.get_template(f"host_batch.{ext}.j2").render(**base, file=f"{p}_host_batch.{ext}")
+            for ext in ("h", "c")}
 
 
 def constants_table(consts: list[Const]) -> list[tuple[str, str, str, str]]:

@@ -185,6 +185,7 @@ def register(sub) -> None:
     q.add_argument("--quiet", action="store_true", help="no progress bar")
     q.set_defaults(func=run_cmd)
     register_fuzz(sub)
+    register_bench(sub)
 
 
 def fuzz_cmd(args: argparse.Namespace) -> int:
@@ -226,3 +227,32 @@ def register_fuzz(sub) -> None:
     q.add_argument("--no-shrink", action="store_true", help="save failing cases as drawn")
     q.add_argument("--json", metavar="OUT", help="write the campaign report as JSON")
     q.set_defaults(func=fuzz_cmd)
+
+
+def bench_cmd(args: argparse.Namespace) -> int:
+    from importlib import resources
+
+    from .bench import bench
+
+    cfg = args.config or str(resources.files("harness").joinpath("data/universal_1k5.toml"))
+    prj = load_project(cfg)
+    sizes = tuple(int(x) for x in args.sizes.split(","))
+    out = bench(prj, sizes=sizes, log=lambda m: print(m, file=sys.stderr))
+    out["config"] = cfg
+    rows = [(k, "met" if v else "NOT met") for k, v in out["meets"].items()]
+    print(format_table(["target", "status"], rows))
+    print(f"bare step {out['bare_step_ns']:.1f} ns; single switching {out['single_switching_rtf']:.4f} x real time; "
+          f"averaged {out['single_averaged_rtf']:.4f} x; best batch {out['best_batch_rate_per_s']:.0f} scenario-periods/s")
+    if args.json:
+        with open(args.json, "w") as fh:
+            dump_json(_clean(out), fh)
+        print(f"wrote {args.json}")
+    return 0
+
+
+def register_bench(sub) -> None:
+    q = sub.add_parser("bench", help="measure the step cost, real-time factors and batch throughput here")
+    q.add_argument("--config", help="config to measure (default: the shipped example)")
+    q.add_argument("--sizes", default="1,16,256,1024", help="batch sizes (default 1,16,256,1024)")
+    q.add_argument("--json", metavar="OUT")
+    q.set_defaults(func=bench_cmd)

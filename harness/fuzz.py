@@ -156,7 +156,7 @@ def draw_cases(n: int, seed: int, max_event_cycles: float = 12.0) -> list[Case]:
 
 @dataclass
 class Verdict:
-    case: Case
+    case: Case | Scenario
     failed: dict[str, str] = field(default_factory=dict)
     figures: dict = field(default_factory=dict)
 
@@ -166,26 +166,49 @@ class Verdict:
 
 
 def _restart_expected(prj: Project, c: Case) -> bool:
-    if c.event != "dip":
-        return False
-    r = prj.resolved
-    if c.residual * c.vrms_V < r.brownout_on_rms_V:
-        return True
-    return False
+    """A dip whose residual line is below the brown-out restart level stops the stage."""
+    return c.event == "dip" and c.residual * c.vrms_V < prj.resolved.brownout_on_rms_V
 
 
-def check(prj: Project, res, k: int, c: Case) -> Verdict:
-    """Every invariant on lane ``k`` of a run."""
+@dataclass(frozen=True)
+class Timing:
+    """When the line came back (or the load stepped) and the recovery bound that applies."""
+
+    back_s: float
+    first_event_s: float
+    bound_cycles: int
+    freq_Hz: float
+
+
+def timing_of(prj: Project, s: Scenario) -> Timing:
+    back, first, bound = SETTLE_S, math.inf, RECOVERY_CYCLES
+    f = s.freq_Hz
+    for ev in s.events:
+        first = min(first, ev.t_s)
+        if ev.kind == "dip":
+            back = max(back, ev.t_s + ev.get("cycles") / f)
+            if ev.get("residual") * s.vrms_V < prj.resolved.brownout_on_rms_V:
+                bound = RESTART_CYCLES
+        else:
+            back = max(back, ev.t_s)
+            if ev.kind == "freq":
+                f = ev.get("hz")
+    return Timing(back, first, bound, f)
+
+
+def check(prj: Project, res, k: int, c: Case | Scenario) -> Verdict:
+    """Every invariant on lane ``k`` of a run of case (or scenario) ``c``."""
+    scn = c.to_scenario(prj) if isinstance(c, Case) else c
     v = Verdict(c)
     d = res.lane(k)
     spec = prj.config.spec
     r = prj.resolved
     fs = spec.fsw
     per = prj.resolved.pwm_period_counts
-    t = d["t_s"]
-    n = int(round(c.to_scenario(prj).duration_s * fs))
+    tm = timing_of(prj, scn)
+    n = int(round(scn.duration_s * fs))
     d = {key: a[:n] for key, a in d.items()}
-    t = t[:n]
+    t = d["t_s"]
     # legs
     both_slow = np.sum(d["shoot_through"] > 0)
     if both_slow or np.any(d["compare"] > per):
@@ -202,7 +225,7 @@ def check(prj: Project, res, k: int, c: Case) -> Verdict:
         v.failed["ov_oc"] = f"bus {vmax:.1f} V > ov_trip {r.ov_trip_V:.1f} V"
     elif il_sw > r.oc_trip_A:
         v.failed["ov_oc"] = f"inductor {il_sw:.1f} A > oc_trip {r.oc_trip_A:.1f} A while switching"
-    half = fs / (2.0 * c.freq_Hz)
+    half = fs / (2.0 * scn.freq_Hz)
     # chatter: at most one change between slow-low-on and slow-high-on within each half cycle
     # of the source as it is (a dip can shorten a half cycle: zeros continue the last sign)
     sgn = np.sign(d["vs_V"])
@@ -222,22 +245,18 @@ def check(prj: Project, res, k: int, c: Case) -> Verdict:
     if modes[-1] in (LATCH, SENS):
         v.failed["recovery"] = f"ended in mode {modes[-1]} (latched)"
     else:
-        back = c.line_back_s() if c.event == "dip" else (c.event_time_s() if c.event == "load" else SETTLE_S)
-        bound = RESTART_CYCLES if _restart_expected(prj, c) else RECOVERY_CYCLES
-        f_end = c.freq_Hz
-        smooth = metrics.half_cycle_mean(d["vbus_V"], fs, f_end)
-        t_ok = back + bound / f_end
-        tail = t >= t_ok
+        smooth = metrics.half_cycle_mean(d["vbus_V"], fs, tm.freq_Hz)
+        tail = t >= tm.back_s + tm.bound_cycles / tm.freq_Hz
         if tail.any():
             dev = np.max(np.abs(smooth[tail] - spec.vout)) / spec.vout
             v.figures["bus_dev_after_bound"] = float(dev)
             if dev > 0.02:
-                v.failed["recovery"] = f"bus {100 * dev:.1f} % off vout {bound} cycles after the line returned"
+                v.failed["recovery"] = f"bus {100 * dev:.1f} % off vout {tm.bound_cycles} cycles after the line returned"
     # zero-crossing spike, steady state before any event
-    t_ev = c.event_time_s() if c.event != "none" else t[-1]
-    pre = (t >= t_ev - 3.0 / c.freq_Hz) & (t < t_ev) & (modes == RUN)
+    t_ev = min(tm.first_event_s, t[-1])
+    pre = (t >= t_ev - 3.0 / scn.freq_Hz) & (t < t_ev) & (modes == RUN)
     if pre.sum() > 2 * half:
-        q = metrics.power_quality(d["vs_V"][pre], d["i_avg_A"][pre], fs, c.freq_Hz)
+        q = metrics.power_quality(d["vs_V"][pre], d["i_avg_A"][pre], fs, scn.freq_Hz)
         spike = metrics.zero_crossing_spike(d["vs_V"][pre], d["i_avg_A"][pre], 2 * r.zc_blank_V, q["harmonics_A"][0])
         v.figures["zc_spike_ratio"] = spike
         if spike > ZC_SPIKE_LIMIT:
@@ -251,9 +270,10 @@ def check(prj: Project, res, k: int, c: Case) -> Verdict:
     return v
 
 
-def run_cases(prj: Project, cases: list[Case], model: str = "switching", built=None) -> list[Verdict]:
-    res = run(prj, [c.to_scenario(prj, f"case{k}") for k, c in enumerate(cases)], model=model, progress=False,
-              built=built)
+def run_cases(prj: Project, cases: list, model: str = "switching", built=None) -> list[Verdict]:
+    """Run cases (or scenarios) in one lockstep batch and check each."""
+    scns = [c.to_scenario(prj, f"case{k}") if isinstance(c, Case) else c for k, c in enumerate(cases)]
+    res = run(prj, scns, model=model, progress=False, built=built)
     return [check(prj, res, k, c) for k, c in enumerate(cases)]
 
 

@@ -107,26 +107,24 @@ class Controllers:
         assert ffi.sizeof(f"{self.p}_pwm_t") == PWM_DTYPE.itemsize
         self.adc_view = np.frombuffer(ffi.buffer(self.adc), dtype=np.uint16).reshape(n, 3)
         self.pwm_view = np.frombuffer(ffi.buffer(self.pwm), dtype=PWM_DTYPE)
-        self._step = getattr(lib, f"{self.p}_step")
+        self.probe = ffi.new(f"float[{4 * n}]")
+        self.probe_view = np.frombuffer(ffi.buffer(self.probe), dtype=np.float32).reshape(n, 4)
+        self._batch = getattr(lib, f"{self.p}_batch_step")
+        self._probe = getattr(lib, f"{self.p}_batch_probe")
         init = getattr(lib, f"{self.p}_init")
         for k in range(n):
             init(self.ctrl + k)
 
     def step(self, codes: np.ndarray) -> np.ndarray:
+        """One period for every instance (one C call); returns a copy of the outputs."""
         self.adc_view[:] = codes
-        step, c, a, w = self._step, self.ctrl, self.adc, self.pwm
-        for k in range(self.n):
-            step(c + k, a + k, w + k)
+        self._batch(self.ctrl, self.adc, self.pwm, self.n)
         return self.pwm_view.copy()
 
-    def internals(self) -> tuple[np.ndarray, ...]:
-        c = self.ctrl
-        n = self.n
-        duty = np.fromiter((c[k].iloop.duty for k in range(n)), float, n)
-        iref = np.fromiter((c[k].iref.iref_A for k in range(n)), float, n)
-        vref = np.fromiter((c[k].vloop.vref_V for k in range(n)), float, n)
-        pcmd = np.fromiter((c[k].vloop.pcmd_W for k in range(n)), float, n)
-        return duty, iref, vref, pcmd
+    def internals(self) -> np.ndarray:
+        """(n, 4) float32: duty, current reference (A), bus reference (V), power command (W)."""
+        self._probe(self.ctrl, self.probe, self.n)
+        return self.probe_view
 
 
 def run(prj: Project, scenarios: list[Scenario], model: str = "switching", progress: bool = True,
@@ -190,7 +188,7 @@ def run(prj: Project, scenarios: list[Scenario], model: str = "switching", progr
         res = step_fn(compare, gates, vs_of_t, G, Icp)
         codes = sens.convert(res.vterm_sample_V, res.i_sample_A, res.vbus_sample_V)
         out = ctl.step(codes)
-        duty, iref, vref, pcmd = ctl.internals()
+        probe = ctl.internals()
         r = rec
         r["t_s"][k] = t
         r["vs_V"][k] = vs_of_t(np.full(n, T / 2.0))
@@ -205,10 +203,10 @@ def run(prj: Project, scenarios: list[Scenario], model: str = "switching", progr
         r["gates"][k] = gates
         r["mode"][k] = out["mode"]
         r["faults"][k] = out["faults"]
-        r["duty"][k] = duty
-        r["iref_A"][k] = iref
-        r["vref_V"][k] = vref
-        r["pcmd_W"][k] = pcmd
+        r["duty"][k] = probe[:, 0]
+        r["iref_A"][k] = probe[:, 1]
+        r["vref_V"][k] = probe[:, 2]
+        r["pcmd_W"][k] = probe[:, 3]
         r["e_in_J"][k] = res.e_in_J
         r["e_out_J"][k] = res.e_out_J
         r["e_loss_J"][k] = res.e_loss_J

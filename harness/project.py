@@ -47,7 +47,9 @@ def render_of(prj: Project, test_break: str | None = None) -> dict[str, str]:
     return render(prj.config, prj.resolved, tuning_of(prj), prj.sizing.iline_peak_A, test_break)
 
 
-def build_of(prj: Project, extra_c: dict[str, str] | None = None, test_break: str | None = None):
+def build_of(prj: Project, test_break: str | None = None):
+    """The generated controller plus the host-only batch sources, compiled (cached)."""
     from codegen.build import build
+    from codegen.render import render_host
 
-    return build(render_of(prj, test_break), prj.config.control.prefix, extra_c=extra_c)
+    return build(render_of(prj, test_break), prj.config.control.prefix, extra_c=render_host(prj.config))

@@ -1,9 +1,9 @@
 """DC loads on the bus: resistive or constant power, with power steps.
 
-A load connects once the bus has first reached ``connect_V`` (a downstream converter
-waits for its power-good), and a constant-power load draws nothing below ``uvlo_V``
-(its under-voltage lockout); the constant-power current ``P/v_bus`` is frozen over
-each period.
+A load connects once the bus has reached ``connect_V`` (a downstream converter waits
+for its power-good) and disconnects below ``uvlo_V`` (its under-voltage lockout), to
+connect again only at power-good: a hysteresis that real downstream converters have.
+The constant-power current ``P/v_bus`` is frozen over each period.
 """
 from __future__ import annotations
 
@@ -22,9 +22,8 @@ class Load:
 
     def terms(self, vbus_V: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
         """(G in S, I_cp in A) for the next period, from the bus voltage now."""
-        self.connected |= vbus_V >= self.connect_V
+        self.connected = np.where(vbus_V >= self.connect_V, True, np.where(vbus_V < self.uvlo_V, False, self.connected))
         on = self.connected
         G = np.where(on & ~self.constant_power, self.power / self.vout**2, 0.0)
-        cp_on = on & self.constant_power & (vbus_V > self.uvlo_V)
-        I = np.where(cp_on, self.power / np.maximum(vbus_V, self.uvlo_V), 0.0)
+        I = np.where(on & self.constant_power, self.power / np.maximum(vbus_V, self.uvlo_V), 0.0)
         return G, I

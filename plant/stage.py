@@ -53,7 +53,7 @@ class StageParams:
     source_resistance_ohm: float = 0.0
     source_inductance_H: float = 0.0
     inrush_resistance_ohm: float = 0.0  # series limiter, bypassed by a relay once the bus is charged
-    bypass_close_frac: float = 0.85  # relay closes when the bus reaches this fraction of the line peak
+    bypass_close_frac: float = 0.95  # relay closes when the bus reaches this fraction of the line peak
     bypass_open_frac: float = 0.6  # and opens again below this fraction
 
     @property

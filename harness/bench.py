@@ -1,0 +1,100 @@
+"""``pfcrig bench``: what the closed loop costs on this machine, measured in one run.
+
+(a) bare generated ``step`` in ns: one C call loops over inputs recorded from a closed
+    loop run (no Python per step);
+(b) single-scenario real-time factor (simulated s per wall s), switching and averaged;
+(c) batch throughput in scenario-periods per second for N = 1, 16, 256, 1024;
+(d) the best of (c) over the bare C step rate of (a);
+and the memory per scenario in a batch (bytes).
+"""
+from __future__ import annotations
+
+import time
+
+import numpy as np
+
+from .loop import RECORDED, run
+from .project import Project, build_of
+from .scenario import Scenario
+
+TARGETS = {"single_switching_rtf": 1.0, "batch256_scenario_s_per_s": 30.0, "best_batch_vs_bare_c_max_ratio": 10.0}
+
+
+def _scenarios(prj: Project, n: int, duration: float) -> list[Scenario]:
+    spec = prj.config.spec
+    return [Scenario(duration_s=duration, vrms_V=spec.vin_rms_nominal * (0.9 + 0.2 * k / max(n - 1, 1)),
+                     freq_Hz=spec.line_freq, load_kind="resistive", load_power_W=spec.power, seed=k)
+            for k in range(n)]
+
+
+def bench(prj: Project, sizes=(1, 16, 256, 1024), log=print) -> dict:
+    built = build_of(prj)
+    fs = prj.config.spec.fsw
+    out: dict = {"fsw_Hz": fs}
+
+    # (b) single scenario, long enough to be past start-up into switching
+    for model, dur in (("switching", 0.15), ("averaged", 0.3)):
+        r = run(prj, _scenarios(prj, 1, dur), model=model, progress=False, built=built)
+        out[f"single_{model}_rtf"] = dur / r.wall_s
+        out[f"single_{model}_us_per_period"] = 1e6 * r.wall_s / r.periods
+        log(f"single scenario, {model} model: {dur / r.wall_s:.4f} x real time "
+            f"({1e6 * r.wall_s / r.periods:.1f} us per period)")
+        if model == "switching":
+            rec = r
+    # (a) bare step over the recorded inputs of that run
+    lib, ffi = built.lib, built.ffi
+    p = prj.config.control.prefix
+    from plant.sensors import Sensors
+    from .loop import adc_scaling
+
+    d = rec.lane(0)
+    sens = Sensors(adc_scaling(prj), len(d["t_s"]))
+    codes = sens.convert(d["vterm_V"], d["i_sample_A"], d["vbus_sample_V"])
+    adc = ffi.new(f"{p}_adc_t[{len(codes)}]")
+    np.frombuffer(ffi.buffer(adc), dtype=np.uint16)[:] = codes.ravel()
+    ctrl = ffi.new(f"{p}_ctrl_t *")
+    bench_steps = getattr(lib, f"{p}_bench_steps")
+    reps = 1
+    while True:
+        t0 = time.perf_counter()
+        bench_steps(ctrl, adc, len(codes), reps)
+        dt = time.perf_counter() - t0
+        if dt > 0.3 or reps > 1 << 20:
+            break
+        reps *= 4
+    ns = 1e9 * dt / (reps * len(codes))
+    out["bare_step_ns"] = ns
+    out["bare_step_rate_per_s"] = 1e9 / ns
+    log(f"bare generated step: {ns:.1f} ns ({reps} x {len(codes)} recorded periods)")
+
+    # (c) batch throughput
+    out["batch"] = {}
+    best = 0.0
+    for n in sizes:
+        dur = max(2e-3, min(0.02, 2000.0 / (n * fs)) * 8)  # a few thousand lane-periods at least
+        r = run(prj, _scenarios(prj, n, dur), progress=False, built=built)
+        rate = n * r.periods / r.wall_s
+        best = max(best, rate)
+        out["batch"][str(n)] = {"scenario_periods_per_s": rate, "scenario_s_per_s": rate / fs,
+                                "periods": r.periods, "wall_s": r.wall_s}
+        log(f"batch N={n:5d}: {rate:12.0f} scenario-periods/s = {rate / fs:8.3f} scenario-s/s")
+    out["best_batch_rate_per_s"] = best
+    out["best_batch_vs_bare_c_ratio"] = out["bare_step_rate_per_s"] / best
+    log(f"bare C step rate / best batch rate: {out['best_batch_vs_bare_c_ratio']:.1f}")
+
+    # memory per scenario: controller state, plant and run state per lane, records per period
+    plant_state = 8 * 12  # i, vc, relay, path resistance, grid (vrms, freq, theta, scale, dc), load (3)
+    out["memory_per_scenario_B"] = {
+        "controller_state": ffi.sizeof(f"{p}_ctrl_t"),
+        "controller_io": ffi.sizeof(f"{p}_adc_t") + ffi.sizeof(f"{p}_pwm_t") + 16,
+        "plant_and_run_state": plant_state,
+        "records_per_period": len(RECORDED) * 8,
+    }
+    out["targets"] = TARGETS
+    out["meets"] = {
+        "single_switching_rtf": out["single_switching_rtf"] >= TARGETS["single_switching_rtf"],
+        "batch256_scenario_s_per_s": out["batch"].get("256", {}).get("scenario_s_per_s", 0.0)
+        >= TARGETS["batch256_scenario_s_per_s"],
+        "best_batch_vs_bare_c_max_ratio": out["best_batch_vs_bare_c_ratio"] <= TARGETS["best_batch_vs_bare_c_max_ratio"],
+    }
+    return out
