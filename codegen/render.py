@@ -9,7 +9,7 @@ import jinja2
 from c_templates import TEMPLATE_DIR
 
 from .config import Config, ConfigError
-from .constants import Const, build_constants
+from .constants import build_constants
 from .resolve import Resolved
 from .tuning import BUS_BLOCKS, Tuning
 
@@ -76,10 +76,6 @@ def render_host(cfg: Config) -> dict[str, str]:
     env = _env()
     return {f"{p}_host_batch.{ext}": env.get_template(f"host_batch.{ext}.j2").render(**base, file=f"{p}_host_batch.{ext}")
             for ext in ("h", "c")}
-
-
-def constants_table(consts: list[Const]) -> list[tuple[str, str, str, str]]:
-    return [(k.name, k.literal, k.unit, k.origin) for k in consts]
 
 
 def write(files: dict[str, str], out_dir: str | Path) -> list[Path]:

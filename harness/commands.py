@@ -7,8 +7,6 @@ import math
 import sys
 from pathlib import Path
 
-from codegen.build import BuildError
-from codegen.config import ConfigError
 
 from .project import load_project, render_of, tuning_of
 from .tables import format_table

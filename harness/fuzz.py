@@ -20,7 +20,6 @@ from __future__ import annotations
 
 import math
 import multiprocessing as mp
-import sys
 import time
 from dataclasses import asdict, dataclass, field, replace
 from pathlib import Path

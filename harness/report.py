@@ -36,7 +36,6 @@ def lane_report(res: RunResult, k: int = 0) -> dict:
     w = metrics.window_slice(t, f_line)
     pq = metrics.power_quality(d["vs_V"][w], d["i_avg_A"][w], fs, f_line)
     bus = metrics.bus_figures(d["vbus_V"][w])
-    e_in = float(np.sum(d["e_in_J"][w]))
     e_out = float(np.sum(d["e_out_J"][w]))
     e_loss = float(np.sum(d["e_loss_J"][w]))
     p_out = e_out / (len(t[w]) / fs)

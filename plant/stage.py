@@ -232,7 +232,6 @@ class Stage:
         ]
         n = self.n
         i_start = self.i.copy()
-        vbus_start = self.vbus(0.0, self.i, self.vc, G, Icp)
         q_int = np.zeros(n)
         q2_int = np.zeros(n)
         e_in = np.zeros(n)

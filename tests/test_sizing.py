@@ -8,7 +8,7 @@ C = 2 P t_h/(Vo^2 - Vmin^2).
 from __future__ import annotations
 
 import math
-from dataclasses import dataclass, replace
+from dataclasses import dataclass
 
 import pytest
 from hypothesis import given, settings, strategies as st
