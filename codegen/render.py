@@ -8,7 +8,7 @@ import jinja2
 
 from c_templates import TEMPLATE_DIR
 
-from .config import Config, ConfigError
+from .config import Config
 from .constants import build_constants
 from .resolve import Resolved
 from .tuning import BUS_BLOCKS, Tuning
@@ -17,6 +17,13 @@ VERSION = "0.1.0"
 # One template pair per block, in signal order, then the top level.
 BLOCKS = ["math", "pi", "sense", "polarity", "rms", "busavg", "vloop", "iref", "iloop", "pwm", "supervisor", "ctrl"]
 HEADER_ONLY = {"math"}
+
+
+def _format_names(p: str, number_format: str) -> dict:
+    """Names the templates use where the two number formats differ."""
+    fixed = number_format == "q15"
+    return dict(fixed=fixed, real="int32_t" if fixed else "float", zero="0" if fixed else "0.0f",
+                abs=f"{p}_absq" if fixed else f"{p}_absf", clamp=f"{p}_clampq" if fixed else f"{p}_clampf")
 
 
 def _env() -> jinja2.Environment:
@@ -42,16 +49,12 @@ def render(cfg: Config, resolved: Resolved, tuning: Tuning, iline_peak_A: float,
     campaign catches it."""
     if test_break is not None and test_break not in TEST_BREAKS:
         raise ValueError(f"test_break must be one of {TEST_BREAKS}")
-    if cfg.control.number_format != "float32":
-        raise ConfigError(
-            f"{cfg.source}: [control] number_format = {cfg.control.number_format!r}: this version generates float32 only "
-            "(fixed point is not built yet)"
-        )
     consts = build_constants(cfg, resolved, tuning, iline_peak_A)
     p = cfg.control.prefix
     base = dict(
         p=p, P=p.upper(), version=VERSION, source_name=Path(cfg.source).name, digest=cfg.digest(),
         number_format=cfg.control.number_format, vout=cfg.spec.vout, bus_blocks=BUS_BLOCKS, test_break=test_break,
+        **_format_names(cfg.control.prefix, cfg.control.number_format),
     )
     env = _env()
     files: dict[str, str] = {}
@@ -72,7 +75,8 @@ def render_host(cfg: Config) -> dict[str, str]:
     sources for the desktop, never written by ``pfcrig generate``."""
     p = cfg.control.prefix
     base = dict(p=p, P=p.upper(), version=VERSION, source_name=Path(cfg.source).name, digest=cfg.digest(),
-                number_format=cfg.control.number_format, vout=cfg.spec.vout)
+                number_format=cfg.control.number_format, vout=cfg.spec.vout,
+                **_format_names(p, cfg.control.number_format))
     env = _env()
     return {f"{p}_host_batch.{ext}": env.get_template(f"host_batch.{ext}.j2").render(**base, file=f"{p}_host_batch.{ext}")
             for ext in ("h", "c")}
