@@ -82,6 +82,20 @@ def render_host(cfg: Config) -> dict[str, str]:
             for ext in ("h", "c")}
 
 
+def render_link(cfg: Config, host_main: bool = False) -> dict[str, str]:
+    """The target shell (framed link around the step; portable, for the MCU) and, with
+    ``host_main``, the host port whose stdin/stdout stand in for the UART."""
+    p = cfg.control.prefix
+    base = dict(p=p, P=p.upper(), version=VERSION, source_name=Path(cfg.source).name, digest=cfg.digest(),
+                number_format=cfg.control.number_format, vout=cfg.spec.vout,
+                **_format_names(p, cfg.control.number_format))
+    env = _env()
+    names = [("link.h.j2", f"{p}_link.h"), ("link.c.j2", f"{p}_link.c")]
+    if host_main:
+        names.append(("link_host_main.c.j2", f"{p}_link_host_main.c"))
+    return {out: env.get_template(t).render(**base, file=out) for t, out in names}
+
+
 def write(files: dict[str, str], out_dir: str | Path) -> list[Path]:
     out = Path(out_dir)
     out.mkdir(parents=True, exist_ok=True)

@@ -185,6 +185,7 @@ def register(sub) -> None:
     q.set_defaults(func=run_cmd)
     register_fuzz(sub)
     register_bench(sub)
+    register_pil(sub)
 
 
 def fuzz_cmd(args: argparse.Namespace) -> int:
@@ -255,3 +256,56 @@ def register_bench(sub) -> None:
     q.add_argument("--sizes", default="1,16,256,1024", help="batch sizes (default 1,16,256,1024)")
     q.add_argument("--json", metavar="OUT")
     q.set_defaults(func=bench_cmd)
+
+
+def pil_cmd(args: argparse.Namespace) -> int:
+    from . import report
+    from .loop import run
+    from .pil import compare_outputs, run_host_pil
+    from .scenario import default_for, load as load_scenario
+
+    prj = load_project(args.config)
+    scn = load_scenario(args.scenario) if args.scenario else default_for(prj.config.spec, 0.2)
+    if args.duration:
+        from dataclasses import replace
+
+        scn = replace(scn, duration_s=args.duration)
+    res, stats, wall = run_host_pil(prj, scn, timeout_s=args.timeout)
+    doc = {"target": args.target, "scenario": scn.name, "periods": res.periods, "link": stats,
+           "wall_s": wall, "real_time_factor": res.periods / prj.config.spec.fsw / wall}
+    code = 0
+    if "aborted" in res.extras:
+        doc["aborted"] = res.extras["aborted"]
+        print(f"pfcrig pil: {res.extras['aborted']}", file=sys.stderr)
+        code = 1
+    else:
+        rep = report.lane_report(res)
+        doc.update(rep)
+        print(report.summary_text(rep))
+        ref = run(prj, [scn], progress=False)
+        cmp_ = compare_outputs(ref, res)
+        doc["equivalence"] = {"periods": cmp_.periods, "equal": cmp_.equal, "first_difference": cmp_.first_difference}
+        if cmp_.equal:
+            print(f"target outputs equal the in-process run for all {cmp_.periods} periods")
+        else:
+            print(f"target outputs differ from the in-process run: {cmp_.first_difference}")
+            code = 1
+    print(f"link: {stats['frames_sent']} frames sent, {stats['retries']} retries, {stats['bad_crc']} bad CRC, "
+          f"{stats['bytes_dropped']} bytes dropped; {doc['real_time_factor']:.3f} x real time")
+    if args.json:
+        with open(args.json, "w") as fh:
+            dump_json(_clean(doc), fh)
+        print(f"wrote {args.json}")
+    return code
+
+
+def register_pil(sub) -> None:
+    q = sub.add_parser("pil", help="run the controller on a target over the lockstep link (processor in the loop)")
+    q.add_argument("config")
+    q.add_argument("--target", choices=["host"], default="host",
+                   help="host: the controller in a separate process, stdin/stdout as its UART")
+    q.add_argument("--scenario", metavar="FILE")
+    q.add_argument("--duration", type=float, metavar="S")
+    q.add_argument("--timeout", type=float, default=2.0, metavar="S", help="answer timeout per frame (s)")
+    q.add_argument("--json", metavar="OUT", help="write the report (partial if the target stops answering)")
+    q.set_defaults(func=pil_cmd)

@@ -128,8 +128,11 @@ class Controllers:
 
 
 def run(prj: Project, scenarios: list[Scenario], model: str = "switching", progress: bool = True,
-        built=None) -> RunResult:
-    """Run all ``scenarios`` in lockstep (one lane each) for the longest duration."""
+        built=None, controllers=None) -> RunResult:
+    """Run all ``scenarios`` in lockstep (one lane each) for the longest duration.
+
+    ``controllers``: something with ``step(codes) -> outputs`` and ``internals()`` in place
+    of the in-process build (a controller on a target, over the link)."""
     if model not in ("switching", "averaged"):
         raise ValueError(f"model must be 'switching' or 'averaged', not {model!r}")
     n = len(scenarios)
@@ -147,7 +150,7 @@ def run(prj: Project, scenarios: list[Scenario], model: str = "switching", progr
     # precharge: the body diodes rectify the line into the bus before any switching
     vpk = np.sqrt(2.0) * np.array([s.vrms_V for s in scenarios]) * 0.98
     stage = Stage(sp, n, 0.0, vpk)
-    ctl = Controllers(prj, n, built)
+    ctl = controllers if controllers is not None else Controllers(prj, n, built)
     step_fn = stage.step_period if model == "switching" else stage.step_averaged
 
     ev_idx = [0] * n
@@ -159,6 +162,7 @@ def run(prj: Project, scenarios: list[Scenario], model: str = "switching", progr
     compare = np.zeros(n)
     gates = np.zeros(n, dtype=np.int64)
     bar = Progress(periods, f"run {model} x{n}", progress)
+    aborted = None
     t0 = time.perf_counter()
     for k in range(periods):
         t = k * T
@@ -187,7 +191,13 @@ def run(prj: Project, scenarios: list[Scenario], model: str = "switching", progr
         vs_of_t = grid.voltage
         res = step_fn(compare, gates, vs_of_t, G, Icp)
         codes = sens.convert(res.vterm_sample_V, res.i_sample_A, res.vbus_sample_V)
-        out = ctl.step(codes)
+        try:
+            out = ctl.step(codes)
+        except (RuntimeError, TimeoutError) as exc:  # a target over a link stopped answering
+            aborted = f"stopped at period {k} (t = {t:.6f} s): {exc}"
+            rec = {name: arr[:k] for name, arr in rec.items()}
+            periods = k
+            break
         probe = ctl.internals()
         r = rec
         r["t_s"][k] = t
@@ -216,4 +226,7 @@ def run(prj: Project, scenarios: list[Scenario], model: str = "switching", progr
         grid.advance(T)
         bar.update(k + 1)
     bar.close()
-    return RunResult(prj, scenarios, model, rec, time.perf_counter() - t0, periods)
+    result = RunResult(prj, scenarios, model, rec, time.perf_counter() - t0, periods)
+    if aborted:
+        result.extras["aborted"] = aborted
+    return result

@@ -1,0 +1,197 @@
+"""The lockstep link between the harness and a controller running on a target.
+
+Frame (all integers little-endian):
+
+    0xA5 0x5A | type u8 | seq u8 | len u16 | payload (len bytes) | crc u16
+
+``crc`` is CRC-16/CCITT-FALSE (poly 0x1021, init 0xFFFF) over type..payload.  The host
+numbers its requests; the target answers each with the same ``seq``.  Types:
+
+    HELLO 0x01 / HELLO_ACK 0x81   ack: version u8, format u8 (0 float32, 1 q15),
+                                  sizeof ctrl u16, digest (16 ASCII hex), prefix (ASCII)
+    RESET 0x02 / RESET_ACK 0x82   the controller is re-initialised
+    STEP  0x03 / STEP_ACK  0x83   step: n u8, then n x (vac u16, il u16, vbus u16);
+                                  ack:  n u8, then n x (compare u16, gates u8, mode u8, faults u16)
+    ERROR 0xFF                    payload: code u8 (1 bad length, 2 unknown type)
+
+The decoder reads a byte stream, resynchronises on the start bytes after any damage and
+reports what it dropped, so corruption, truncation, duplication and reordering are all
+detected: a frame is accepted only whole, with a good CRC, and the host checks that each
+answer carries the sequence number and type it expects.
+"""
+from __future__ import annotations
+
+import struct
+from dataclasses import dataclass, field
+
+SOF = b"\xa5\x5a"
+VERSION = 1
+HELLO, RESET, STEP, ERROR = 0x01, 0x02, 0x03, 0xFF
+ACK = 0x80
+MAX_PAYLOAD = 1 + 64 * 6
+MAX_STEPS_PER_FRAME = 64
+
+
+class LinkError(RuntimeError):
+    """The target answered wrongly (or not at all): the message says how."""
+
+
+def crc16(data: bytes) -> int:
+    """CRC-16/CCITT-FALSE: poly 0x1021, init 0xFFFF, no reflection, no final xor (check 0x29B1)."""
+    crc = 0xFFFF
+    for b in data:
+        crc ^= b << 8
+        for _ in range(8):
+            crc = ((crc << 1) ^ 0x1021) & 0xFFFF if crc & 0x8000 else (crc << 1) & 0xFFFF
+    return crc
+
+
+def encode(ftype: int, seq: int, payload: bytes = b"") -> bytes:
+    if len(payload) > MAX_PAYLOAD:
+        raise ValueError(f"payload of {len(payload)} bytes exceeds {MAX_PAYLOAD}")
+    body = struct.pack("<BBH", ftype, seq & 0xFF, len(payload)) + payload
+    return SOF + body + struct.pack("<H", crc16(body))
+
+
+@dataclass(frozen=True)
+class Frame:
+    ftype: int
+    seq: int
+    payload: bytes
+
+
+@dataclass
+class Decoder:
+    """Feed bytes, take whole frames; ``dropped`` counts bytes discarded while resynchronising
+    and ``bad_crc`` the frames rejected for their checksum."""
+
+    buf: bytearray = field(default_factory=bytearray)
+    dropped: int = 0
+    bad_crc: int = 0
+
+    def feed(self, data: bytes) -> list[Frame]:
+        self.buf += data
+        out = []
+        while True:
+            i = self.buf.find(SOF)
+            if i < 0:
+                keep = 1 if self.buf.endswith(SOF[:1]) else 0
+                self.dropped += len(self.buf) - keep
+                del self.buf[: len(self.buf) - keep]
+                return out
+            if i:
+                self.dropped += i
+                del self.buf[:i]
+            if len(self.buf) < 6:
+                return out
+            ftype, seq, n = struct.unpack_from("<BBH", self.buf, 2)
+            if n > MAX_PAYLOAD:
+                self.dropped += 1
+                del self.buf[:1]
+                continue
+            if len(self.buf) < 8 + n:
+                return out
+            body = bytes(self.buf[2:6 + n])
+            (crc,) = struct.unpack_from("<H", self.buf, 6 + n)
+            if crc != crc16(body):
+                self.bad_crc += 1
+                self.dropped += 1
+                del self.buf[:1]
+                continue
+            out.append(Frame(ftype, seq, body[4:]))
+            del self.buf[: 8 + n]
+
+
+def step_payload(codes) -> bytes:
+    """n x (vac, il, vbus) counts -> STEP payload."""
+    rows = [tuple(int(x) for x in r) for r in codes]
+    if not 1 <= len(rows) <= MAX_STEPS_PER_FRAME:
+        raise ValueError(f"1..{MAX_STEPS_PER_FRAME} periods per frame, not {len(rows)}")
+    return bytes([len(rows)]) + b"".join(struct.pack("<HHH", *r) for r in rows)
+
+
+def parse_step_ack(payload: bytes) -> list[tuple[int, int, int, int]]:
+    if not payload or len(payload) != 1 + 6 * payload[0]:
+        raise LinkError(f"STEP_ACK of {len(payload)} bytes does not hold its count of outputs")
+    return [struct.unpack_from("<HBBH", payload, 1 + 6 * k) for k in range(payload[0])]
+
+
+@dataclass(frozen=True)
+class Hello:
+    version: int
+    number_format: str
+    state_size_B: int
+    digest: str
+    prefix: str
+
+
+def parse_hello(payload: bytes) -> Hello:
+    if len(payload) < 20:
+        raise LinkError(f"HELLO_ACK of {len(payload)} bytes is too short")
+    version, fmt, size = struct.unpack_from("<BBH", payload, 0)
+    return Hello(version, "q15" if fmt else "float32", size, payload[4:20].decode("ascii", "replace"),
+                 payload[20:].decode("ascii", "replace"))
+
+
+class Session:
+    """Host side of the link over a byte transport with ``write(bytes)`` and
+    ``read(timeout_s) -> bytes`` (empty on timeout)."""
+
+    def __init__(self, transport, timeout_s: float = 2.0, retries: int = 2):
+        self.t = transport
+        self.timeout_s = timeout_s
+        self.retries = retries
+        self.seq = 0
+        self.dec = Decoder()
+        self.pending: list[Frame] = []
+        self.stats = {"frames_sent": 0, "frames_received": 0, "retries": 0, "bytes_dropped": 0, "bad_crc": 0}
+
+    def _receive(self, want_type: int, seq: int) -> Frame:
+        import time
+
+        deadline = time.monotonic() + self.timeout_s
+        while True:
+            while self.pending:
+                f = self.pending.pop(0)
+                self.stats["frames_received"] += 1
+                if f.seq != seq:
+                    # an old answer (duplicate or late): not ours, skip it
+                    continue
+                if f.ftype == ERROR:
+                    raise LinkError(f"target reported error {f.payload[:1].hex()} for request {seq}")
+                if f.ftype != want_type:
+                    raise LinkError(f"expected frame type 0x{want_type:02x}, got 0x{f.ftype:02x} (seq {seq})")
+                return f
+            left = deadline - time.monotonic()
+            if left <= 0:
+                raise TimeoutError(f"no answer to request {seq} within {self.timeout_s:g} s")
+            data = self.t.read(left)
+            self.pending += self.dec.feed(data)
+            self.stats["bytes_dropped"] = self.dec.dropped
+            self.stats["bad_crc"] = self.dec.bad_crc
+
+    def request(self, ftype: int, payload: bytes = b"") -> Frame:
+        self.seq = (self.seq + 1) & 0xFF
+        frame = encode(ftype, self.seq, payload)
+        for attempt in range(self.retries + 1):
+            self.t.write(frame)
+            self.stats["frames_sent"] += 1
+            try:
+                return self._receive(ftype | ACK, self.seq)
+            except TimeoutError:
+                if attempt == self.retries:
+                    raise
+                self.stats["retries"] += 1
+        raise AssertionError("unreachable")
+
+    def hello(self) -> Hello:
+        return parse_hello(self.request(HELLO).payload)
+
+    def reset(self) -> None:
+        self.request(RESET)
+
+    def step(self, codes) -> list[tuple[int, int, int, int]]:
+        out = parse_step_ack(self.request(STEP, step_payload(codes)).payload)
+        if len(out) != len(codes):
+            raise LinkError(f"sent {len(codes)} periods, got {len(out)} outputs")
+        return out
