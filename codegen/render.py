@@ -82,9 +82,10 @@ def render_host(cfg: Config) -> dict[str, str]:
             for ext in ("h", "c")}
 
 
-def render_link(cfg: Config, host_main: bool = False) -> dict[str, str]:
+def render_link(cfg: Config, host_main: bool = False, port: str | None = None) -> dict[str, str]:
     """The target shell (framed link around the step; portable, for the MCU) and, with
-    ``host_main``, the host port whose stdin/stdout stand in for the UART."""
+    ``host_main``, the host port whose stdin/stdout stand in for the UART, or with
+    ``port="mps2_an386"`` the QEMU Cortex-M4F port (startup, vectors, UART, linker script)."""
     p = cfg.control.prefix
     base = dict(p=p, P=p.upper(), version=VERSION, source_name=Path(cfg.source).name, digest=cfg.digest(),
                 number_format=cfg.control.number_format, vout=cfg.spec.vout,
@@ -93,6 +94,8 @@ def render_link(cfg: Config, host_main: bool = False) -> dict[str, str]:
     names = [("link.h.j2", f"{p}_link.h"), ("link.c.j2", f"{p}_link.c")]
     if host_main:
         names.append(("link_host_main.c.j2", f"{p}_link_host_main.c"))
+    if port == "mps2_an386":
+        names += [("link_mps2_an386.c.j2", f"{p}_link_mps2_an386.c"), ("link_mps2_an386.ld.j2", f"{p}_mps2_an386.ld")]
     return {out: env.get_template(t).render(**base, file=out) for t, out in names}
 
 

@@ -261,7 +261,7 @@ def register_bench(sub) -> None:
 def pil_cmd(args: argparse.Namespace) -> int:
     from . import report
     from .loop import run
-    from .pil import compare_outputs, run_host_pil
+    from .pil import compare_outputs, run_pil
     from .scenario import default_for, load as load_scenario
 
     prj = load_project(args.config)
@@ -270,7 +270,7 @@ def pil_cmd(args: argparse.Namespace) -> int:
         from dataclasses import replace
 
         scn = replace(scn, duration_s=args.duration)
-    res, stats, wall = run_host_pil(prj, scn, timeout_s=args.timeout)
+    res, stats, wall = run_pil(prj, scn, target=args.target, timeout_s=args.timeout)
     doc = {"target": args.target, "scenario": scn.name, "periods": res.periods, "link": stats,
            "wall_s": wall, "real_time_factor": res.periods / prj.config.spec.fsw / wall}
     code = 0
@@ -302,8 +302,9 @@ def pil_cmd(args: argparse.Namespace) -> int:
 def register_pil(sub) -> None:
     q = sub.add_parser("pil", help="run the controller on a target over the lockstep link (processor in the loop)")
     q.add_argument("config")
-    q.add_argument("--target", choices=["host"], default="host",
-                   help="host: the controller in a separate process, stdin/stdout as its UART")
+    q.add_argument("--target", choices=["host", "qemu-m4f"], default="host",
+                   help="host: a separate process, stdin/stdout as its UART; qemu-m4f: the image cross-compiled "
+                        "for the Cortex-M4F, booted on QEMU's mps2-an386 with its first UART as the link")
     q.add_argument("--scenario", metavar="FILE")
     q.add_argument("--duration", type=float, metavar="S")
     q.add_argument("--timeout", type=float, default=2.0, metavar="S", help="answer timeout per frame (s)")

@@ -84,6 +84,56 @@ def build_host_target(prj: Project, cc: str = "gcc") -> Path:
     return exe
 
 
+def build_qemu_target(prj: Project) -> Path:
+    """Controller + target shell + the mps2-an386 port, cross-compiled (hard float for the
+    Cortex-M4F, strict flags) and linked into an ELF that QEMU boots."""
+    from codegen.target import TARGETS, available
+
+    if not available():
+        raise BuildError("arm-none-eabi-gcc not found: install gcc-arm-none-eabi (Debian)")
+    p = prj.config.control.prefix
+    files = {**render_of(prj), **render_link(prj.config, port="mps2_an386")}
+    import hashlib
+
+    key = hashlib.sha256("".join(files[k] for k in sorted(files)).encode()).hexdigest()[:16]
+    elf = cache_root() / "pil" / f"{p}_{key}_mps2_an386.elf"
+    if elf.exists():
+        return elf
+    elf.parent.mkdir(parents=True, exist_ok=True)
+    flags = TARGETS["cortex-m4f"]
+    with tempfile.TemporaryDirectory(dir=cache_root()) as tmp:
+        src = Path(tmp) / "src"
+        src.mkdir()
+        for n, t in files.items():
+            (src / n).write_text(t)
+        objs = compile_objects(src, Path(tmp) / "obj", cc="arm-none-eabi-gcc", flags=flags)
+        out = Path(tmp) / "fw.elf"
+        r = subprocess.run(["arm-none-eabi-gcc", *flags, "-nostdlib", "-T", str(src / f"{p}_mps2_an386.ld"),
+                            *map(str, objs), "-o", str(out), "-lgcc"], capture_output=True, text=True)
+        if r.returncode:
+            raise BuildError(f"link of the mps2-an386 image failed:\n{r.stderr}")
+        os.replace(out, elf)
+    return elf
+
+
+QEMU_CMD = ["qemu-system-arm", "-M", "mps2-an386", "-nographic", "-monitor", "none",
+            "-chardev", "stdio,id=link,signal=off", "-serial", "chardev:link"]
+
+
+def start_target(prj: Project, target: str) -> subprocess.Popen:
+    """Build the target for ``target`` ("host" or "qemu-m4f") and start it."""
+    import shutil
+
+    if target == "host":
+        return subprocess.Popen([str(build_host_target(prj))], stdin=subprocess.PIPE, stdout=subprocess.PIPE)
+    if target == "qemu-m4f":
+        if shutil.which(QEMU_CMD[0]) is None:
+            raise BuildError("qemu-system-arm not found: install qemu-system-arm (Debian)")
+        return subprocess.Popen([*QEMU_CMD, "-kernel", str(build_qemu_target(prj))], stdin=subprocess.PIPE,
+                                stdout=subprocess.PIPE, stderr=subprocess.DEVNULL)
+    raise ValueError(f"unknown target {target!r}")
+
+
 class RemoteControllers:
     """One controller behind the link, with the interface ``harness.loop`` drives."""
 
@@ -124,11 +174,10 @@ def compare_outputs(a: RunResult, b: RunResult) -> Comparison:
     return Comparison(n, n == a.periods == b.periods, None)
 
 
-def run_host_pil(prj: Project, scn: Scenario, timeout_s: float = 2.0, model: str = "switching"):
-    """Run ``scn`` with the controller in a host process over the link; returns
+def run_pil(prj: Project, scn: Scenario, target: str = "host", timeout_s: float = 2.0, model: str = "switching"):
+    """Run ``scn`` with the controller on ``target`` over the link; returns
     (RunResult, link statistics, wall seconds)."""
-    exe = build_host_target(prj)
-    proc = subprocess.Popen([str(exe)], stdin=subprocess.PIPE, stdout=subprocess.PIPE)
+    proc = start_target(prj, target)
     tr = PipeTransport(proc)
     sess = link.Session(tr, timeout_s=timeout_s)
     t0 = time.perf_counter()

@@ -11,7 +11,7 @@ from hypothesis import given, settings, strategies as st
 
 from harness import link
 from harness.loop import run
-from harness.pil import PipeTransport, RemoteControllers, build_host_target, compare_outputs, run_host_pil
+from harness.pil import PipeTransport, RemoteControllers, build_host_target, compare_outputs, run_pil
 from harness.project import from_config
 from harness.scenario import Scenario
 
@@ -103,7 +103,7 @@ def test_stale_answer_detected_and_silent_target_times_out():
 def test_host_process_pil_equals_in_process(demo_project, fmt):
     prj = from_config(demo_project.config.replace("control", number_format=fmt))
     s = Scenario(duration_s=0.16, vrms_V=230.0, freq_Hz=50.0, load_kind="resistive", load_power_W=1500.0)
-    res, stats, _ = run_host_pil(prj, s)
+    res, stats, _ = run_pil(prj, s, "host")
     ref = run(prj, [s], progress=False)
     cmp_ = compare_outputs(ref, res)
     assert cmp_.periods >= 10000 and cmp_.equal, cmp_.first_difference
@@ -151,3 +151,24 @@ def test_target_shell_cross_compiles_needing_only_the_board_functions(demo_proje
         pytest.skip("arm-none-eabi-gcc not installed (Debian: gcc-arm-none-eabi)")
     rep = target.check({**render_of(demo_project), **render_link(demo_project.config)}, "pfc", "cortex-m4f")
     assert rep.undefined == ["pfc_link_flush", "pfc_link_getc", "pfc_link_putc"]
+
+
+QEMU = __import__("shutil").which("qemu-system-arm") is not None
+
+
+@pytest.mark.slow
+@pytest.mark.skipif(not QEMU, reason="qemu-system-arm not installed (Debian: qemu-system-arm)")
+@pytest.mark.parametrize("fmt", ["float32", "q15"])
+def test_qemu_m4f_pil_equals_in_process(demo_project, fmt):
+    """The image as arm-none-eabi-gcc builds it, on the emulated Cortex-M4F: every output of
+    10 400 periods (8 line cycles) equals the in-process run (FP contraction off on both)."""
+    from codegen import target
+
+    if not target.available():
+        pytest.skip("arm-none-eabi-gcc not installed")
+    prj = from_config(demo_project.config.replace("control", number_format=fmt))
+    s = Scenario(duration_s=0.16, vrms_V=230.0, freq_Hz=50.0, load_kind="resistive", load_power_W=1500.0)
+    res, stats, _ = run_pil(prj, s, "qemu-m4f", timeout_s=5.0)
+    ref = run(prj, [s], progress=False)
+    cmp_ = compare_outputs(ref, res)
+    assert cmp_.periods >= 10000 and cmp_.equal, cmp_.first_difference
