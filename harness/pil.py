@@ -13,7 +13,7 @@ from pathlib import Path
 
 import numpy as np
 
-from codegen.build import HOST_FLAGS, STRICT_FLAGS, BuildError, cache_root, compile_objects
+from codegen.build import HOST_FLAGS, BuildError, cache_root, compile_objects
 from codegen.render import render_link
 
 from . import link

@@ -5,7 +5,6 @@ import os
 import signal
 import subprocess
 
-import numpy as np
 import pytest
 from hypothesis import given, settings, strategies as st
 
