@@ -5,7 +5,7 @@ import math
 
 import numpy as np
 import pytest
-from hypothesis import given, settings, strategies as st
+from hypothesis import example, given, settings, strategies as st
 
 FSW = 65000.0  # the demo config's switching (and control) frequency
 
@@ -48,6 +48,7 @@ def run_polarity(b, v):
 @settings(max_examples=25, deadline=None)
 @given(amp=st.floats(60.0, 400.0), f=st.floats(45.0, 66.0), phase=st.floats(0, 2 * math.pi),
        noise_frac=st.floats(0.0, 1.0), dc_frac=st.floats(-0.02, 0.02))
+@example(amp=60.0, f=58.0, phase=0.0, noise_frac=1.0, dc_frac=0.0)  # found once: a one-period estimate was 0.56 % off
 def test_polarity_one_change_per_half_and_frequency(demo_project, demo_built, amp, f, phase, noise_frac, dc_frac):
     c = consts(demo_project)
     hyst = c["ZC_HYST_V"]
