@@ -18,6 +18,23 @@ def dump_json(obj, fh=None) -> None:
     out.write("\n")
 
 
+def write_json(path, doc) -> None:
+    """Write a report as JSON (non-finite floats as null) and say so."""
+    with open(path, "w") as fh:
+        dump_json(_clean(doc), fh)
+    print(f"wrote {path}")
+
+
+def _scenario(args, prj, default_duration_s: float):
+    """The scenario a run-like command was given (or the nominal one), with --duration applied."""
+    from dataclasses import replace
+
+    from .scenario import default_for, load as load_scenario
+
+    scn = load_scenario(args.scenario) if args.scenario else default_for(prj.config.spec, default_duration_s)
+    return replace(scn, duration_s=args.duration) if args.duration else scn
+
+
 def _jsonable(x):
     if isinstance(x, float) and not math.isfinite(x):
         return None
@@ -139,23 +156,16 @@ def check_target(prj, files) -> int:
 def run_cmd(args: argparse.Namespace) -> int:
     from . import report
     from .loop import run
-    from .scenario import default_for, load as load_scenario
 
     prj = load_project(args.config)
-    scn = load_scenario(args.scenario) if args.scenario else default_for(prj.config.spec)
-    if args.duration:
-        from dataclasses import replace
-
-        scn = replace(scn, duration_s=args.duration)
+    scn = _scenario(args, prj, 0.6)
     res = run(prj, [scn], model=args.model, progress=not args.quiet)
     rep = report.lane_report(res)
     rep["wall_s"] = res.wall_s
     rep["real_time_factor"] = scn.duration_s / res.wall_s
     print(report.summary_text(rep))
     if args.json:
-        with open(args.json, "w") as fh:
-            dump_json(_clean(rep), fh)
-        print(f"wrote {args.json}")
+        write_json(args.json, rep)
     if args.csv:
         report.write_csv(res, args.csv)
         print(f"wrote {args.csv}")
@@ -209,8 +219,7 @@ def fuzz_cmd(args: argparse.Namespace) -> int:
                "failures": [{"failed": v.failed, "case": fuzz.asdict(v.case), "figures": v.figures}
                             for v in res.verdicts if not v.ok],
                "saved": [str(p) for p in res.saved]}
-        with open(args.json, "w") as fh:
-            dump_json(_clean(doc), fh)
+        write_json(args.json, doc)
     return 0 if res.ok else 1
 
 
@@ -244,9 +253,7 @@ def bench_cmd(args: argparse.Namespace) -> int:
     print(f"bare step {out['bare_step_ns']:.1f} ns; single switching {out['single_switching_rtf']:.4f} x real time; "
           f"averaged {out['single_averaged_rtf']:.4f} x; best batch {out['best_batch_rate_per_s']:.0f} scenario-periods/s")
     if args.json:
-        with open(args.json, "w") as fh:
-            dump_json(_clean(out), fh)
-        print(f"wrote {args.json}")
+        write_json(args.json, out)
     return 0
 
 
@@ -262,14 +269,9 @@ def pil_cmd(args: argparse.Namespace) -> int:
     from . import report
     from .loop import run
     from .pil import compare_outputs, run_pil
-    from .scenario import default_for, load as load_scenario
 
     prj = load_project(args.config)
-    scn = load_scenario(args.scenario) if args.scenario else default_for(prj.config.spec, 0.2)
-    if args.duration:
-        from dataclasses import replace
-
-        scn = replace(scn, duration_s=args.duration)
+    scn = _scenario(args, prj, 0.2)
     res, stats, wall = run_pil(prj, scn, target=args.target, timeout_s=args.timeout)
     doc = {"target": args.target, "scenario": scn.name, "periods": res.periods, "link": stats,
            "wall_s": wall, "real_time_factor": res.periods / prj.config.spec.fsw / wall}
@@ -293,9 +295,7 @@ def pil_cmd(args: argparse.Namespace) -> int:
     print(f"link: {stats['frames_sent']} frames sent, {stats['retries']} retries, {stats['bad_crc']} bad CRC, "
           f"{stats['bytes_dropped']} bytes dropped; {doc['real_time_factor']:.3f} x real time")
     if args.json:
-        with open(args.json, "w") as fh:
-            dump_json(_clean(doc), fh)
-        print(f"wrote {args.json}")
+        write_json(args.json, doc)
     return code
 
 

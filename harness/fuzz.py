@@ -133,7 +133,9 @@ def draw_cases(n: int, seed: int, max_event_cycles: float = 12.0) -> list[Case]:
     strat = case_strategy(max_event_cycles)
     group = 8
 
-    @settings(max_examples=n // group + 1, database=None, phases=[Phase.generate], deadline=None,
+    # hypothesis opens with its simplest example (the same case drawn over and over, which the
+    # de-duplication drops): ask for a few more examples than the count alone needs
+    @settings(max_examples=n // group + 10, database=None, phases=[Phase.generate], deadline=None,
               suppress_health_check=list(HealthCheck))
     @given(st.data())
     def collect(data):
