@@ -215,7 +215,7 @@ def fuzz_cmd(args: argparse.Namespace) -> int:
     if args.json:
         doc = {"cases": len(res.verdicts), "counts": counts, "wall_s": res.wall_s, "seed": args.seed,
                "bounds": {"recovery_cycles": fuzz.RECOVERY_CYCLES, "restart_cycles": fuzz.RESTART_CYCLES,
-                          "zc_spike_limit": fuzz.ZC_SPIKE_LIMIT, "max_event_cycles": args.max_event_cycles},
+                          "zc_spike_limit": fuzz.ZC_SPIKE_LIMIT, "overshoot_limit": fuzz.OVERSHOOT_LIMIT, "max_event_cycles": args.max_event_cycles},
                "failures": [{"failed": v.failed, "case": fuzz.asdict(v.case), "figures": v.figures}
                             for v in res.verdicts if not v.ok],
                "saved": [str(p) for p in res.saved]}
