@@ -106,6 +106,8 @@ def build_constants(cfg: Config, r: Resolved, tun: Tuning, iline_peak_A: float) 
     floor = 0.5 * r.brownout_off_rms_V
     add(g, "MS_FLOOR_V2", floor**2, "f", "V^2", "floor of the mean square before 1/Vrms^2", f"(0.5 x brown-out off {r.brownout_off_rms_V:.4g} V)^2", (VB * VB, 30))
     add(g, "MS_NOMINAL_V2", s.vin_rms_nominal**2, "f", "V^2", "mean square assumed before the first half cycle", "[spec] vin_rms_nominal^2", (VB * VB, 30))
+    add(g, "RMS_RISE_K", 2.0 * 1.15**2, "f", "1", "v^2 above K x ms: the line stepped up (K = 2 x 1.15^2: 15 % over the latched peak)", "rule: 15 % margin over the peak", (1.0, 15))
+    add(g, "RMS_RISE_INV", 1.0 / (2.0 * 1.15**2), "f", "1", "1/RMS_RISE_K", "1/RMS_RISE_K", (1.0, 15))
     add(g, "BO_OFF_V2", r.brownout_off_rms_V**2, "f", "V^2", "brown-out below this mean square", "[protection] brownout_off_rms^2", (VB * VB, 30))
     add(g, "BO_ON_V2", r.brownout_on_rms_V**2, "f", "V^2", "restart above this mean square", "[protection] brownout_on_rms^2", (VB * VB, 30))
 
@@ -118,6 +120,8 @@ def build_constants(cfg: Config, r: Resolved, tun: Tuning, iline_peak_A: float) 
     add(g, "VREF_STEP_V", s.vout / (c.soft_start_time * fsw), "f", "V/period", "soft-start reference slope", "vout/([control] soft_start_time x fsw)", (VB, 31))
     slope = s.vout / c.soft_start_time
     add(g, "RAMP_FF_W_PER_V", r.capacitance_F * slope / s.efficiency, "f", "W/V", "ramp feedforward: capacitor charging power per volt of reference", f"C x vout/soft_start_time / efficiency, C = {r.capacitance_F:.6g} F", (PB / VB, 15))
+    step = s.vout / (c.soft_start_time * fsw)
+    add(g, "RAMP_LAG_V", step * fsw / (2.0 * s.line_freq) / 2.0, "f", "V", "lag of the half-cycle bus mean behind the ramp", "VREF_STEP_V x half a half-period of samples", (VB, 15))
     add(g, "VKP", tun.voltage.kp, "f", "W/V", "voltage PI proportional gain", f"tuning: {tun.voltage.target_crossover_Hz:g} Hz, {tun.voltage.target_phase_margin_deg:g} deg", (PB / VB, 15))
     add(g, "VKI_TS", tun.voltage.ki_ts, "f", "W/V", "voltage PI integral gain x block period (backward Euler)", f"tuning: Ki = {tun.voltage.ki:.6g} W/(V s), T = {tun.voltage.ts_s:.6g} s", (PB / VB, 31))
     add(g, "PCMD_MAX_W", 1.3 * s.power / s.efficiency, "f", "W", "largest input power command", "1.3 x [spec] power/efficiency", (PB, 15))
