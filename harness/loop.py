@@ -70,6 +70,7 @@ class Progress:
 
     def __init__(self, total: int, label: str, enabled: bool = True):
         self.total, self.label, self.enabled = total, label, enabled and total > 0
+        self.tty = sys.stderr.isatty()
         self.t0 = time.perf_counter()
         self.last = 0.0
         self.shown = False
@@ -78,19 +79,22 @@ class Progress:
         if not self.enabled:
             return
         now = time.perf_counter()
-        if now - self.t0 < 1.0 or now - self.last < 0.25:
+        # redraw a terminal four times a second; elsewhere (CI logs) write a line every 10 s
+        if now - self.t0 < 1.0 or now - self.last < (0.25 if self.tty else 10.0):
             return
         self.last = now
         self.shown = True
         frac = done / self.total
         eta = (now - self.t0) * (1.0 - frac) / max(frac, 1e-9)
         bar = "#" * int(30 * frac)
-        sys.stderr.write(f"\r{self.label} [{bar:<30}] {100 * frac:5.1f} %  eta {eta:5.1f} s")
+        lead, end = ("\r", "") if self.tty else ("", "\n")
+        sys.stderr.write(f"{lead}{self.label} [{bar:<30}] {100 * frac:5.1f} %  eta {eta:5.1f} s{end}")
         sys.stderr.flush()
 
     def close(self) -> None:
         if self.shown:
-            sys.stderr.write(f"\r{self.label} done in {time.perf_counter() - self.t0:.1f} s" + " " * 30 + "\n")
+            lead = "\r" if self.tty else ""
+            sys.stderr.write(f"{lead}{self.label} done in {time.perf_counter() - self.t0:.1f} s" + " " * 30 + "\n")
 
 
 class Controllers:
