@@ -26,6 +26,14 @@ def _format_names(p: str, number_format: str) -> dict:
                 abs=f"{p}_absq" if fixed else f"{p}_absf", clamp=f"{p}_clampq" if fixed else f"{p}_clampf")
 
 
+def _context(cfg: Config, **extra) -> dict:
+    """What every template sees: prefix, banner fields and the number format's names."""
+    p = cfg.control.prefix
+    return dict(p=p, P=p.upper(), version=VERSION, source_name=Path(cfg.source).name, digest=cfg.digest(),
+                number_format=cfg.control.number_format, vout=cfg.spec.vout,
+                **_format_names(p, cfg.control.number_format), **extra)
+
+
 def _env() -> jinja2.Environment:
     return jinja2.Environment(
         loader=jinja2.FileSystemLoader(str(TEMPLATE_DIR)),
@@ -51,11 +59,7 @@ def render(cfg: Config, resolved: Resolved, tuning: Tuning, iline_peak_A: float,
         raise ValueError(f"test_break must be one of {TEST_BREAKS}")
     consts = build_constants(cfg, resolved, tuning, iline_peak_A)
     p = cfg.control.prefix
-    base = dict(
-        p=p, P=p.upper(), version=VERSION, source_name=Path(cfg.source).name, digest=cfg.digest(),
-        number_format=cfg.control.number_format, vout=cfg.spec.vout, bus_blocks=BUS_BLOCKS, test_break=test_break,
-        **_format_names(cfg.control.prefix, cfg.control.number_format),
-    )
+    base = _context(cfg, bus_blocks=BUS_BLOCKS, test_break=test_break)
     env = _env()
     files: dict[str, str] = {}
     groups = [(g, list(items)) for g, items in groupby(consts, key=lambda k: k.group)]
@@ -74,9 +78,7 @@ def render_host(cfg: Config) -> dict[str, str]:
     """Host-only sources (batch stepping, probes, benchmark loop): built beside the MCU
     sources for the desktop, never written by ``pfcrig generate``."""
     p = cfg.control.prefix
-    base = dict(p=p, P=p.upper(), version=VERSION, source_name=Path(cfg.source).name, digest=cfg.digest(),
-                number_format=cfg.control.number_format, vout=cfg.spec.vout,
-                **_format_names(p, cfg.control.number_format))
+    base = _context(cfg)
     env = _env()
     return {f"{p}_host_batch.{ext}": env.get_template(f"host_batch.{ext}.j2").render(**base, file=f"{p}_host_batch.{ext}")
             for ext in ("h", "c")}
@@ -87,9 +89,7 @@ def render_link(cfg: Config, host_main: bool = False, port: str | None = None) -
     ``host_main``, the host port whose stdin/stdout stand in for the UART, or with
     ``port="mps2_an386"`` the QEMU Cortex-M4F port (startup, vectors, UART, linker script)."""
     p = cfg.control.prefix
-    base = dict(p=p, P=p.upper(), version=VERSION, source_name=Path(cfg.source).name, digest=cfg.digest(),
-                number_format=cfg.control.number_format, vout=cfg.spec.vout,
-                **_format_names(p, cfg.control.number_format))
+    base = _context(cfg)
     env = _env()
     names = [("link.h.j2", f"{p}_link.h"), ("link.c.j2", f"{p}_link.c")]
     if host_main:
