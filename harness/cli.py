@@ -10,6 +10,7 @@ from codegen.build import BuildError
 from codegen.config import ConfigError
 
 from . import commands
+from .link import LinkError
 
 CAUTION = (
     "CAUTION: a PFC bus (~400 V DC) is lethal. pfcrig output is reference material, to be validated "
@@ -63,6 +64,9 @@ def main(argv: list[str] | None = None) -> int:
         return 2
     except BuildError as exc:
         print(f"pfcrig: build error: {exc}", file=sys.stderr)
+        return 1
+    except (LinkError, TimeoutError) as exc:  # a target behind the link that cannot be reached
+        print(f"pfcrig: link error: {exc}", file=sys.stderr)
         return 1
     except BrokenPipeError:
         sys.stderr.close()

@@ -122,8 +122,17 @@ def generate(args: argparse.Namespace) -> int:
 
     prj = load_project(args.config)
     files = render_of(prj)
-    paths = write(files, args.output)
+    extra = {}
+    if args.with_link:
+        from codegen.render import render_link
+
+        extra = render_link(prj.config)
+    paths = write({**files, **extra}, args.output)
     print(f"wrote {len(paths)} files to {args.output} (config digest {prj.config.digest()})")
+    if extra:
+        p = prj.config.control.prefix
+        print(f"target shell for `pfcrig pil --target serial`: {', '.join(sorted(extra))}; the board supplies "
+              f"{p}_link_getc, {p}_link_putc, {p}_link_flush and {p}_link_ticks (see {p}_link.h)")
     if args.check_target:
         return check_target(prj, files)
     return 0
@@ -181,6 +190,9 @@ def register(sub) -> None:
     q.add_argument("-o", "--output", required=True, metavar="DIR", help="folder for the .c/.h files")
     q.add_argument("--check-target", action="store_true",
                    help="cross-compile for Cortex-M (arm-none-eabi-gcc) and print flash, RAM and state size")
+    q.add_argument("--with-link", action="store_true",
+                   help="also write the target shell (the lockstep link around the step) for a board run by "
+                        "`pfcrig pil --target serial`")
     q.set_defaults(func=generate)
 
     q = sub.add_parser("run", help="compile the generated C and run it in closed loop against the plant model")
@@ -268,13 +280,20 @@ def register_bench(sub) -> None:
 def pil_cmd(args: argparse.Namespace) -> int:
     from . import report
     from .loop import run
-    from .pil import compare_outputs, run_pil
+    from .pil import FLOAT32_INSN_LIMIT, compare_outputs, run_pil
 
+    if args.target == "serial" and not args.port:
+        print("pfcrig pil: --target serial needs --port (a device such as /dev/ttyUSB0, or a pyserial URL "
+              "such as socket://127.0.0.1:4000)", file=sys.stderr)
+        return 2
     prj = load_project(args.config)
     scn = _scenario(args, prj, 0.2)
-    res, stats, wall = run_pil(prj, scn, target=args.target, timeout_s=args.timeout)
+    pil = run_pil(prj, scn, target=args.target, timeout_s=args.timeout, port=args.port, baud=args.baud)
+    res, stats, wall = pil.result, pil.link_stats, pil.wall_s
     doc = {"target": args.target, "scenario": scn.name, "periods": res.periods, "link": stats,
            "wall_s": wall, "real_time_factor": res.periods / prj.config.spec.fsw / wall}
+    if args.target == "serial":
+        doc["port"], doc["baud"] = args.port, args.baud
     code = 0
     if "aborted" in res.extras:
         doc["aborted"] = res.extras["aborted"]
@@ -286,12 +305,25 @@ def pil_cmd(args: argparse.Namespace) -> int:
         print(report.summary_text(rep))
         ref = run(prj, [scn], progress=False)
         cmp_ = compare_outputs(ref, res)
-        doc["equivalence"] = {"periods": cmp_.periods, "equal": cmp_.equal, "first_difference": cmp_.first_difference}
+        doc["equivalence"] = {"periods": cmp_.periods, "equal": cmp_.equal, "first_difference": cmp_.first_difference,
+                              "final_state_equal": cmp_.final_state_equal}
         if cmp_.equal:
-            print(f"target outputs equal the in-process run for all {cmp_.periods} periods")
+            print(f"target outputs equal the in-process run for all {cmp_.periods} periods, "
+                  f"and so does the final controller state")
         else:
-            print(f"target outputs differ from the in-process run: {cmp_.first_difference}")
+            print(f"target differs from the in-process run: {cmp_.first_difference or 'final controller state'}")
             code = 1
+    if pil.cost:
+        c = pil.cost
+        doc["cost_on_target"] = {**c, "method": "SysTick read around each step under QEMU -icount shift=0 "
+                                 "(time counts instructions), calibrated at boot against a loop of known "
+                                 "instruction count; ticks of an empty measurement subtracted",
+                                 "float32_limit_instructions": FLOAT32_INSN_LIMIT}
+        print(f"cost on the target: {c['mean']:.0f} instructions per step on average, {c['max']:.0f} at most "
+              f"(min {c['min']:.0f}; resolution {c['resolution']:.0f}) over {c['steps']} steps")
+    if pil.image:
+        doc["image"] = pil.image
+        print(f"image: {pil.image['flash_B']} B flash, {pil.image['ram_B']} B RAM (static)")
     print(f"link: {stats['frames_sent']} frames sent, {stats['retries']} retries, {stats['bad_crc']} bad CRC, "
           f"{stats['bytes_dropped']} bytes dropped; {doc['real_time_factor']:.3f} x real time")
     if args.json:
@@ -300,11 +332,17 @@ def pil_cmd(args: argparse.Namespace) -> int:
 
 
 def register_pil(sub) -> None:
+    from .pil import TARGETS
+
     q = sub.add_parser("pil", help="run the controller on a target over the lockstep link (processor in the loop)")
     q.add_argument("config")
-    q.add_argument("--target", choices=["host", "qemu-m4f"], default="host",
+    q.add_argument("--target", choices=TARGETS, default="host",
                    help="host: a separate process, stdin/stdout as its UART; qemu-m4f: the image cross-compiled "
-                        "for the Cortex-M4F, booted on QEMU's mps2-an386 with its first UART as the link")
+                        "for the Cortex-M4F, booted on QEMU's mps2-an386 with its first UART on a pseudo-terminal; "
+                        "serial: a board already running the target shell, on --port")
+    q.add_argument("--port", metavar="PORT",
+                   help="serial device (/dev/ttyUSB0) or pyserial URL (socket://HOST:PORT) for --target serial")
+    q.add_argument("--baud", type=int, default=115200, metavar="N", help="serial bit rate (default 115200, 8N1)")
     q.add_argument("--scenario", metavar="FILE")
     q.add_argument("--duration", type=float, metavar="S")
     q.add_argument("--timeout", type=float, default=2.0, metavar="S", help="answer timeout per frame (s)")

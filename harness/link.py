@@ -12,6 +12,12 @@ numbers its requests; the target answers each with the same ``seq``.  Types:
     RESET 0x02 / RESET_ACK 0x82   the controller is re-initialised
     STEP  0x03 / STEP_ACK  0x83   step: n u8, then n x (vac u16, il u16, vbus u16);
                                   ack:  n u8, then n x (compare u16, gates u8, mode u8, faults u16)
+    SNAPSHOT 0x04 / 0x84          request: offset u16; ack: state size u16, offset u16, then up
+                                  to 256 bytes of the controller state from that offset (raw,
+                                  in the target's own layout)
+    COST  0x05 / COST_ACK  0x85   request: empty, or 1 u8 to clear the counts after answering;
+                                  ack: 8 x u32: steps, tick sum (low, high), max, min, ticks of
+                                  an empty measurement, calibration instructions and ticks
     ERROR 0xFF                    payload: code u8 (1 bad length, 2 unknown type)
 
 The decoder reads a byte stream, resynchronises on the start bytes after any damage and
@@ -26,7 +32,8 @@ from dataclasses import dataclass, field
 
 SOF = b"\xa5\x5a"
 VERSION = 1
-HELLO, RESET, STEP, ERROR = 0x01, 0x02, 0x03, 0xFF
+HELLO, RESET, STEP, SNAPSHOT, COST, ERROR = 0x01, 0x02, 0x03, 0x04, 0x05, 0xFF
+SNAPSHOT_CHUNK = 256
 ACK = 0x80
 MAX_PAYLOAD = 1 + 64 * 6
 MAX_STEPS_PER_FRAME = 64
@@ -133,6 +140,37 @@ def parse_hello(payload: bytes) -> Hello:
                  payload[20:].decode("ascii", "replace"))
 
 
+@dataclass(frozen=True)
+class Cost:
+    """Step cost counts from the target, in its counter's ticks (see COST above)."""
+
+    steps: int
+    tick_sum: int
+    tick_max: int
+    tick_min: int
+    tick_empty: int
+    calib_instructions: int
+    calib_ticks: int
+
+    def instructions(self) -> dict | None:
+        """Instructions per step (mean, max, min) and the resolution, from the calibration;
+        None when the target has no counter or ran no step."""
+        if not (self.steps and self.calib_ticks and self.calib_instructions):
+            return None
+        per_tick = self.calib_instructions / self.calib_ticks
+        net = lambda ticks: max(ticks - self.tick_empty, 0) * per_tick  # noqa: E731
+        return {"steps": self.steps, "mean": (self.tick_sum / self.steps - self.tick_empty) * per_tick,
+                "max": net(self.tick_max), "min": net(self.tick_min), "instructions_per_tick": per_tick,
+                "resolution": per_tick, "empty_measurement_ticks": self.tick_empty}
+
+
+def parse_cost(payload: bytes) -> Cost:
+    if len(payload) != 32:
+        raise LinkError(f"COST_ACK of {len(payload)} bytes, expected 32")
+    steps, lo, hi, mx, mn, empty, ci, ct = struct.unpack("<8I", payload)
+    return Cost(steps, lo | (hi << 32), mx, mn if steps else 0, empty, ci, ct)
+
+
 class Session:
     """Host side of the link over a byte transport with ``write(bytes)`` and
     ``read(timeout_s) -> bytes`` (empty on timeout)."""
@@ -189,6 +227,25 @@ class Session:
 
     def reset(self) -> None:
         self.request(RESET)
+
+    def snapshot(self) -> bytes:
+        """The controller state's raw bytes, in pieces of at most 256."""
+        data = b""
+        while True:
+            f = self.request(SNAPSHOT, struct.pack("<H", len(data)))
+            if len(f.payload) < 4:
+                raise LinkError(f"SNAPSHOT_ACK of {len(f.payload)} bytes is too short")
+            size, off = struct.unpack_from("<HH", f.payload)
+            chunk = f.payload[4:]
+            if off != len(data) or len(chunk) != min(SNAPSHOT_CHUNK, size - off):
+                raise LinkError(f"SNAPSHOT_ACK for offset {off} with {len(chunk)} bytes, asked offset {len(data)} "
+                                f"of {size}")
+            data += chunk
+            if len(data) >= size:
+                return data
+
+    def cost(self, clear: bool = False) -> Cost:
+        return parse_cost(self.request(COST, b"\x01" if clear else b"").payload)
 
     def step(self, codes) -> list[tuple[int, int, int, int]]:
         out = parse_step_ack(self.request(STEP, step_payload(codes)).payload)

@@ -130,6 +130,10 @@ class Controllers:
         self._probe(self.ctrl, self.probe, self.n)
         return self.probe_view
 
+    def state(self, k: int = 0) -> bytes:
+        """The raw bytes of instance ``k``'s state (as a target's SNAPSHOT returns them)."""
+        return bytes(self.b.ffi.buffer(self.ctrl + k))
+
 
 def run(prj: Project, scenarios: list[Scenario], model: str = "switching", progress: bool = True,
         built=None, controllers=None) -> RunResult:
@@ -231,6 +235,8 @@ def run(prj: Project, scenarios: list[Scenario], model: str = "switching", progr
         bar.update(k + 1)
     bar.close()
     result = RunResult(prj, scenarios, model, rec, time.perf_counter() - t0, periods)
+    if isinstance(ctl, Controllers):
+        result.extras["final_states"] = [ctl.state(k) for k in range(n)]
     if aborted:
         result.extras["aborted"] = aborted
     return result
