@@ -15,10 +15,11 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
+from plant.batch import FIELDS as PLANT_FIELDS, Plant
 from plant.grid import Grid
 from plant.load import Load
 from plant.sensors import AdcScaling, Sensors
-from plant.stage import Stage, StageParams
+from plant.stage import StageParams
 
 from .project import Project, build_of
 from .scenario import Scenario
@@ -122,8 +123,13 @@ class Controllers:
     def step(self, codes: np.ndarray) -> np.ndarray:
         """One period for every instance (one C call); returns a copy of the outputs."""
         self.adc_view[:] = codes
-        self._batch(self.ctrl, self.adc, self.pwm, self.n)
+        self.step_in_place()
         return self.pwm_view.copy()
+
+    def step_in_place(self) -> None:
+        """One period for every instance on the codes already in ``adc_view``; the outputs
+        are left in ``pwm_view``."""
+        self._batch(self.ctrl, self.adc, self.pwm, self.n)
 
     def internals(self) -> np.ndarray:
         """(n, 4) float32: duty, current reference (A), bus reference (V), power command (W)."""
@@ -157,86 +163,70 @@ def run(prj: Project, scenarios: list[Scenario], model: str = "switching", progr
                    noise=tuple(np.array([s.noise_counts[ch] for s in scenarios]) for ch in range(3)))
     # precharge: the body diodes rectify the line into the bus before any switching
     vpk = np.sqrt(2.0) * np.array([s.vrms_V for s in scenarios]) * 0.98
-    stage = Stage(sp, n, 0.0, vpk)
+    plant = Plant(sp, grid, load, sens, 0.0, vpk)
     ctl = controllers if controllers is not None else Controllers(prj, n, built)
-    step_fn = stage.step_period if model == "switching" else stage.step_averaged
+    local = isinstance(ctl, Controllers)
+    # the controller's outputs of period k are the plant's inputs in period k + 1: the plant
+    # reads them where the controller leaves them (in-process: the C structs themselves)
+    pwm = ctl.pwm_view if local else np.zeros(n, dtype=PWM_DTYPE)
+    codes = ctl.adc_view if local else np.zeros((n, 3), dtype=np.uint16)
+    compare, gates = pwm["compare"], pwm["gates"]
 
-    ev_idx = [0] * n
-    next_t = np.array([s.events[0].t_s if s.events else np.inf for s in scenarios])
-    dip_end = np.full(n, -np.inf)
-    dip_level = np.ones(n)
+    events = [list(s.events) for s in scenarios]
+    next_t = [ev[0].t_s if ev else np.inf for ev in events]
+    next_min = min(next_t)
 
-    rec = {name: np.zeros((periods, n)) for name in RECORDED}
-    compare = np.zeros(n)
-    gates = np.zeros(n, dtype=np.int64)
+    plant_rec = np.zeros((periods, len(PLANT_FIELDS), n))
+    pwm_rec = np.zeros((periods, n), dtype=PWM_DTYPE)
+    probe_rec = np.zeros((periods, n, 4), dtype=np.float32)
     bar = Progress(periods, f"run {model} x{n}", progress)
     aborted = None
     t0 = time.perf_counter()
     for k in range(periods):
         t = k * T
-        if np.any(next_t <= t):
-            for j in np.nonzero(next_t <= t)[0]:
-                while ev_idx[j] < len(scenarios[j].events) and scenarios[j].events[ev_idx[j]].t_s <= t:
-                    ev = scenarios[j].events[ev_idx[j]]
-                    if ev.kind == "dip":
-                        dip_level[j] = ev.get("residual")
-                        dip_end[j] = t + ev.get("cycles") / grid.freq[j]
-                    elif ev.kind == "load":
-                        load.power[j] = ev.get("power")
-                    elif ev.kind == "freq":
-                        grid.freq[j] = ev.get("hz")
-                    elif ev.kind == "phase_jump":
-                        grid.theta[j] += np.deg2rad(ev.get("deg"))
-                    elif ev.kind == "vrms":
-                        grid.vrms[j] = ev.get("vrms")
-                    ev_idx[j] += 1
-                evs = scenarios[j].events
-                next_t[j] = evs[ev_idx[j]].t_s if ev_idx[j] < len(evs) else np.inf
-        grid.scale = np.where(t < dip_end, dip_level, 1.0)
-        stage.inrush_update(np.sqrt(2.0) * grid.vrms)
-        vbus_now = stage.vbus(0.0, stage.i, stage.vc, 0.0, 0.0)
-        G, Icp = load.terms(vbus_now)
-        vs_of_t = grid.voltage
-        res = step_fn(compare, gates, vs_of_t, G, Icp)
-        codes = sens.convert(res.vterm_sample_V, res.i_sample_A, res.vbus_sample_V)
+        if t >= next_min:
+            for j in range(n):
+                while events[j] and events[j][0].t_s <= t:
+                    _apply(plant, j, events[j].pop(0), t)
+                next_t[j] = events[j][0].t_s if events[j] else np.inf
+            next_min = min(next_t)
+        plant.step(k, compare, gates, plant_rec[k], model, codes)
         try:
-            out = ctl.step(codes)
+            if local:
+                ctl.step_in_place()
+            else:
+                pwm[:] = ctl.step(codes)
         except (RuntimeError, TimeoutError) as exc:  # a target over a link stopped answering
             aborted = f"stopped at period {k} (t = {t:.6f} s): {exc}"
-            rec = {name: arr[:k] for name, arr in rec.items()}
             periods = k
             break
-        probe = ctl.internals()
-        r = rec
-        r["t_s"][k] = t
-        r["vs_V"][k] = vs_of_t(np.full(n, T / 2.0))
-        r["vterm_V"][k] = res.vterm_sample_V
-        r["i_avg_A"][k] = res.i_avg_A
-        r["i_max_A"][k] = res.i_max_A
-        r["i_min_A"][k] = res.i_min_A
-        r["i_sample_A"][k] = res.i_sample_A
-        r["vbus_V"][k] = res.vbus_avg_V
-        r["vbus_sample_V"][k] = res.vbus_sample_V
-        r["compare"][k] = compare
-        r["gates"][k] = gates
-        r["mode"][k] = out["mode"]
-        r["faults"][k] = out["faults"]
-        r["duty"][k] = probe[:, 0]
-        r["iref_A"][k] = probe[:, 1]
-        r["vref_V"][k] = probe[:, 2]
-        r["pcmd_W"][k] = probe[:, 3]
-        r["e_in_J"][k] = res.e_in_J
-        r["e_out_J"][k] = res.e_out_J
-        r["e_loss_J"][k] = res.e_loss_J
-        r["shoot_through"][k] = res.shoot_through
-        compare = out["compare"].astype(float)
-        gates = out["gates"].astype(np.int64)
-        grid.advance(T)
+        pwm_rec[k] = pwm
+        probe_rec[k] = ctl.internals()
         bar.update(k + 1)
     bar.close()
-    result = RunResult(prj, scenarios, model, rec, time.perf_counter() - t0, periods)
-    if isinstance(ctl, Controllers):
+    rec = {name: plant_rec[:periods, f] for f, name in enumerate(PLANT_FIELDS)}
+    rec["mode"] = pwm_rec["mode"][:periods].astype(float)
+    rec["faults"] = pwm_rec["faults"][:periods].astype(float)
+    for f, name in enumerate(("duty", "iref_A", "vref_V", "pcmd_W")):
+        rec[name] = probe_rec[:periods, :, f].astype(float)
+    result = RunResult(prj, scenarios, model, {name: rec[name] for name in RECORDED}, time.perf_counter() - t0,
+                       periods)
+    if local:
         result.extras["final_states"] = [ctl.state(k) for k in range(n)]
     if aborted:
         result.extras["aborted"] = aborted
     return result
+
+
+def _apply(plant: Plant, j: int, ev, t: float) -> None:
+    """A scenario event on lane ``j`` at run time ``t`` (s)."""
+    if ev.kind == "dip":
+        plant.dip(j, ev.get("residual"), t + ev.get("cycles") / plant.freq[j])
+    elif ev.kind == "load":
+        plant.set_load_power(j, ev.get("power"))
+    elif ev.kind == "freq":
+        plant.set_freq(j, ev.get("hz"))
+    elif ev.kind == "phase_jump":
+        plant.phase_jump(j, ev.get("deg"))
+    elif ev.kind == "vrms":
+        plant.set_vrms(j, ev.get("vrms"))

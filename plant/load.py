@@ -3,7 +3,9 @@
 A load connects once the bus has reached ``connect_V`` (a downstream converter waits
 for its power-good) and disconnects below ``uvlo_V`` (its under-voltage lockout), to
 connect again only at power-good: a hysteresis that real downstream converters have.
-The constant-power current ``P/v_bus`` is frozen over each period.
+A resistive load draws ``G = P/vout^2``; a constant-power load ``I = P/max(v_bus, uvlo)``,
+frozen over each period.  The kernel (``plant.kernel.step_lanes``) applies these rules;
+this class holds the settings.
 """
 from __future__ import annotations
 
@@ -18,12 +20,3 @@ class Load:
         self.vout = vout_V
         self.connect_V = 0.95 * vout_V if connect_V is None else connect_V
         self.uvlo_V = 0.5 * vout_V if uvlo_V is None else uvlo_V
-        self.connected = np.zeros(n, dtype=bool)
-
-    def terms(self, vbus_V: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-        """(G in S, I_cp in A) for the next period, from the bus voltage now."""
-        self.connected = np.where(vbus_V >= self.connect_V, True, np.where(vbus_V < self.uvlo_V, False, self.connected))
-        on = self.connected
-        G = np.where(on & ~self.constant_power, self.power / self.vout**2, 0.0)
-        I = np.where(on & self.constant_power, self.power / np.maximum(vbus_V, self.uvlo_V), 0.0)
-        return G, I

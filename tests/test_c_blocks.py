@@ -212,3 +212,41 @@ def test_step_arbitrary_adc_stays_in_range(demo_built, seq, repeat, stuck):
                   c.iref.iref_A):
             assert math.isfinite(x)
         assert 0.0 <= c.iloop.duty <= 1.0
+
+
+def test_supervisor_trip_rules(demo_project, demo_built):
+    """Over-current while switching trips (gates off in the same period) and counts toward the
+    latch; the same current while the gates are already off (the line rectified through the
+    body diodes) is recorded but neither counted nor allowed to hold off the restart."""
+    ffi, lib = demo_built.ffi, demo_built.lib
+    c = consts(demo_project)
+    oc = c["OC_TRIP_A"] * 1.2
+    sv, sn = ffi.new("pfc_supervisor_t*"), ffi.new("pfc_sense_t*")
+    pl, rm = ffi.new("pfc_polarity_t*"), ffi.new("pfc_rms_t*")
+    lib.pfc_polarity_init(pl)
+    lib.pfc_rms_init(rm)
+    sn.vbus_V = 400.0
+
+    def step(il_A):
+        sn.il_A = il_A
+        lib.pfc_supervisor_step(sv, sn, pl, rm, 0)
+        return sv.mode
+
+    # idle (waiting for the line): over-current is recorded only
+    lib.pfc_supervisor_init(sv)
+    for _ in range(10):
+        assert step(oc) == lib.PFC_MODE_WAIT_LINE
+    assert sv.trips == 0 and sv.history & lib.PFC_FAULT_OC and not sv.faults & lib.PFC_FAULT_OC
+    # switching: each over-current trips, the RETRY_LIMIT-th latches
+    for n in range(1, int(c["RETRY_LIMIT"]) + 1):
+        sv.mode = lib.PFC_MODE_RUN
+        m = step(-oc)  # either sign of current
+        assert sv.trips == n
+        assert m == (lib.PFC_MODE_LATCHED if n == c["RETRY_LIMIT"] else lib.PFC_MODE_TRIPPED)
+    # tripped: further over-current (diode conduction, gates off) does not restart the retry delay
+    lib.pfc_supervisor_init(sv)
+    sv.mode = lib.PFC_MODE_RUN
+    step(oc)
+    delay = int(c["RETRY_DELAY_PERIODS"])
+    modes = [step(oc if k % 100 == 0 else 0.0) for k in range(delay + 1)]
+    assert modes[delay - 2] == lib.PFC_MODE_TRIPPED and modes[-1] == lib.PFC_MODE_WAIT_LINE

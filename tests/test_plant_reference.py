@@ -16,8 +16,10 @@ import numpy as np
 import pytest
 from scipy.integrate import solve_ivp
 
+from plant.batch import FIELDS, Plant
 from plant.grid import Grid
-from plant.stage import GATE_FAST_HI, GATE_FAST_LO, GATE_SLOW_HI, GATE_SLOW_LO, Stage, StageParams
+from plant.load import Load
+from plant.stage import GATE_FAST_HI, GATE_FAST_LO, GATE_SLOW_HI, GATE_SLOW_LO, StageParams
 
 P = StageParams(inductance_H=400e-6, capacitance_F=470e-6, inductor_dcr_ohm=0.05, capacitor_esr_ohm=0.04,
                 rds_on_fast_ohm=0.05, rds_on_slow_ohm=0.03, dead_time_s=200e-9, fsw_Hz=20e3, period_counts=1000,
@@ -27,21 +29,24 @@ VRMS, F, VBUS0, G = 230.0, 50.0, 390.0, 1.0 / 200.0
 
 def make_sequence(periods):
     """Closed loop under a P controller on our plant: returns per-period compare, gates, and states."""
-    grid = Grid(1, VRMS, F, 0.0)
-    st = Stage(P, 1, 0.0, VBUS0)
+    # a resistive load of conductance G, connected from the start (power-good and UVLO at 0 V)
+    st = Plant(P, Grid(1, VRMS, F, 0.0), Load(1, "resistive", G * 400.0**2, 400.0, connect_V=0.0, uvlo_V=0.0),
+               None, 0.0, VBUS0)
     T = P.period_s
     seq, states = [], [(st.i[0], st.vc[0])]
     comp, gates = 0.0, 0
     ipk = 6.0
+    out = np.zeros((len(FIELDS), 1))
+    cmd = np.zeros(1, dtype=[("compare", "<u2"), ("gates", "u1"), ("mode", "u1"), ("faults", "<u2")])
     for k in range(periods):
-        vs = float(grid.voltage(np.array([T / 2]))[0])
-        st.step_period(np.array([comp]), np.array([gates]), grid.voltage, np.array([G]), np.array([0.0]))
+        cmd["compare"], cmd["gates"] = comp, gates
+        st.step(k, cmd["compare"], cmd["gates"], out)
+        vs = out[FIELDS.index("vs_V"), 0]  # source at the period's midpoint
         seq.append((comp, gates))
         states.append((st.i[0], st.vc[0]))
-        grid.advance(T)
         # next period's command
         pol = 1 if vs > 0 else -1
-        vb = float(st.vbus(0.0, st.i, st.vc, G, 0.0)[0])
+        vb = st.vc[0] / (1.0 + P.capacitor_esr_ohm * G)  # bus terminal voltage with no converter current
         iref = ipk * abs(vs) / (math.sqrt(2) * VRMS)
         d = min(max(1 - abs(vs) / vb + 0.02 * (iref - pol * st.i[0]), 0.0), 0.97)
         if abs(vs) < 5.0:

@@ -1,0 +1,133 @@
+"""``n`` scenarios of the whole plant in lockstep: grid source, power stage, load and ADC.
+
+The state and every per-lane setting live in a few numpy arrays that the compiled kernel
+(``plant.kernel``) steps one PWM period at a time, lane by lane, so one call advances the
+whole batch and one lane's numbers never depend on the others.  Events (dips, load steps,
+frequency steps, phase jumps, line voltage changes) change a lane's settings between
+periods.  Nothing here knows what computes the compare values and gate masks.
+"""
+from __future__ import annotations
+
+import math
+
+import numpy as np
+
+from . import kernel as K
+from .grid import Grid
+from .linear import plan
+from .load import Load
+from .sensors import Sensors
+from .stage import StageParams
+
+FIELDS = K.FIELDS
+
+
+def stage_par(p: StageParams, load: Load) -> np.ndarray:
+    """The kernel's parameter vector (SI units) for the stage and the load; the ADC entries
+    are unit scales until ``Sensors.pack`` fills them."""
+    par = np.zeros(K.PAR_ROWS)
+    par[K.P_LT], par[K.P_C], par[K.P_ESR] = p.l_total_H, p.capacitance_F, p.capacitor_esr_ohm
+    par[K.P_RTOT], par[K.P_RINRUSH], par[K.P_TDEAD] = p.r_total_ohm, p.inrush_resistance_ohm, p.dead_time_s
+    par[K.P_T], par[K.P_COUNTS] = p.period_s, p.period_counts
+    par[K.P_RSRC], par[K.P_LSRC] = p.source_resistance_ohm, p.source_inductance_H
+    par[K.P_CLOSE], par[K.P_OPEN] = p.bypass_close_frac, p.bypass_open_frac
+    par[K.P_VOUT], par[K.P_CONNECT], par[K.P_UVLO] = load.vout, load.connect_V, load.uvlo_V
+    par[K.P_FULL] = 65535.0
+    par[K.P_VAC_PER] = par[K.P_IL_PER] = par[K.P_VBUS_PER] = 1.0
+    return par
+
+
+def step_plans(p: StageParams, g_max_S: float) -> np.ndarray:
+    """(pieces, order) of the exact solver for [relay closed/open][half period, dead time,
+    whole period]: fixed by the parameters, so that no lane's result depends on the others.
+    The bound on ``|A| t`` is taken in the scaled state (i sqrt(L), v sqrt(C)), where the
+    matrix norm is at most R/L + 1/sqrt(LC) + G/C + ESR/L."""
+    L, C = p.l_total_H, p.capacitance_F
+    base = 1.0 / math.sqrt(L * C) + g_max_S / C + p.capacitor_esr_ohm / L
+    rates = ((p.r_total_ohm / L + base), ((p.r_total_ohm + p.inrush_resistance_ohm) / L + base))
+    spans = {K.PLAN_HALF: p.period_s / 2.0, K.PLAN_DEAD: p.dead_time_s, K.PLAN_PERIOD: p.period_s}
+    plans = np.zeros((2, 3, 2), dtype=np.int64)
+    for relay, rate in enumerate(rates):
+        for kind, span in spans.items():
+            plans[relay, kind] = plan(rate * span)
+    return plans
+
+
+class Plant:
+    """Grid, stage, load and ADC for ``n`` lanes; ``i0_A``/``vc0_V`` scalars or (n,)."""
+
+    def __init__(self, p: StageParams, grid: Grid, load: Load, sensors: Sensors | None = None,
+                 i0_A=0.0, vc0_V=0.0, g_max_S: float = 1.0):
+        """``g_max_S``: the largest load conductance the run will see (bounds the exact
+        solver's step, see ``step_plans``)."""
+        n = grid.n
+        self.p, self.n = p, n
+        self.par = stage_par(p, load)
+        self.plans = step_plans(p, g_max_S)
+        lane = np.zeros((K.LANE_ROWS, n))
+        lane[K.L_I] = i0_A
+        lane[K.L_VC] = vc0_V
+        lane[K.L_BYPASSED] = 1.0  # inrush limiter relay: start-up begins precharged
+        lane[K.L_THETA], lane[K.L_VRMS], lane[K.L_FREQ], lane[K.L_DC] = grid.theta, grid.vrms, grid.freq, grid.dc
+        lane[K.L_DIP_END] = -np.inf
+        lane[K.L_DIP_LEVEL] = 1.0
+        lane[K.L_POWER], lane[K.L_CP] = load.power, load.constant_power
+        if sensors is not None:
+            sensors.pack(self.par, lane)
+            self.seed = sensors.seed.copy()
+        else:
+            self.seed = np.zeros(n, dtype=np.uint64)
+        self.lane = lane
+        self.harm = grid.harm
+        self.codes = np.zeros((n, 3), dtype=np.uint16)
+
+    # -- state ---------------------------------------------------------------------------
+    @property
+    def i(self) -> np.ndarray:
+        """Inductor (= line) current, A."""
+        return self.lane[K.L_I]
+
+    @property
+    def vc(self) -> np.ndarray:
+        """Bus capacitor voltage, V."""
+        return self.lane[K.L_VC]
+
+    @property
+    def vrms(self) -> np.ndarray:
+        return self.lane[K.L_VRMS]
+
+    @property
+    def freq(self) -> np.ndarray:
+        return self.lane[K.L_FREQ]
+
+    def source_voltage(self, t_s: float) -> np.ndarray:
+        """Source voltage (V) of every lane at ``t_s`` after the present period start."""
+        return np.array([K.source(self.lane, self.harm, j, 1.0, t_s) for j in range(self.n)])
+
+    # -- events --------------------------------------------------------------------------
+    def dip(self, j: int, residual: float, until_s: float) -> None:
+        """Line of lane ``j`` at ``residual`` of its amplitude until ``until_s`` (s, run time)."""
+        self.lane[K.L_DIP_LEVEL, j], self.lane[K.L_DIP_END, j] = residual, until_s
+
+    def set_load_power(self, j: int, power_W: float) -> None:
+        self.lane[K.L_POWER, j] = power_W
+
+    def set_freq(self, j: int, freq_Hz: float) -> None:
+        self.lane[K.L_FREQ, j] = freq_Hz
+
+    def phase_jump(self, j: int, deg: float) -> None:
+        self.lane[K.L_THETA, j] += math.radians(deg)
+
+    def set_vrms(self, j: int, vrms_V: float) -> None:
+        self.lane[K.L_VRMS, j] = vrms_V
+
+    # -- one period ----------------------------------------------------------------------
+    def step(self, k: int, compare, gates, out: np.ndarray, model: str = "switching", codes=None) -> np.ndarray:
+        """Advance every lane through period ``k`` (starting at ``k T``) with ``compare``
+        (timer counts) and ``gates`` (bit masks), arrays of shape (n,); the period's records
+        go into ``out`` (len(FIELDS), n); returns the ADC codes sampled in it, (n, 3) uint16
+        (into ``codes`` when given)."""
+        codes = self.codes if codes is None else codes
+        K.step_lanes(self.par, self.plans, self.lane, self.harm, self.seed, k, k * self.p.period_s,
+                     K.MODEL_SWITCHING if model == "switching" else K.MODEL_AVERAGED, compare, gates, codes, out)
+        return codes
