@@ -19,7 +19,7 @@ from plant.batch import FIELDS as PLANT_FIELDS, Plant
 from plant.grid import Grid
 from plant.load import Load
 from plant.sensors import AdcScaling, Sensors
-from plant.stage import StageParams
+from plant.stage import GATE_SLOW_HI, GATE_SLOW_LO, StageParams
 
 from .project import Project, build_of
 from .scenario import Scenario
@@ -52,7 +52,8 @@ def adc_scaling(prj: Project) -> AdcScaling:
 
 @dataclass
 class RunResult:
-    """Per-period records, each an array of shape (periods, n)."""
+    """Per-period records, each an array of shape (periods, n): plant figures in float64,
+    controller outputs as the integers the C returns, controller internals in float32."""
 
     project: Project
     scenarios: list[Scenario]
@@ -176,13 +177,16 @@ def run(prj: Project, scenarios: list[Scenario], model: str = "switching", progr
     next_t = [ev[0].t_s if ev else np.inf for ev in events]
     next_min = min(next_t)
 
-    plant_rec = np.zeros((periods, len(PLANT_FIELDS), n))
-    pwm_rec = np.zeros((periods, n), dtype=PWM_DTYPE)
+    plant_rec = np.zeros((periods, n, len(PLANT_FIELDS)))
+    pwm_rec = np.zeros((periods + 1, n), dtype=PWM_DTYPE)  # row k + 1: the outputs of period k
     probe_rec = np.zeros((periods, n, 4), dtype=np.float32)
     bar = Progress(periods, f"run {model} x{n}", progress)
     aborted = None
-    t0 = time.perf_counter()
+    clock = time.perf_counter
+    stamps = np.zeros(periods + 1)  # wall clock at the start of each period (s), for `pfcrig bench`
+    t0 = clock()
     for k in range(periods):
+        stamps[k] = clock()
         t = k * T
         if t >= next_min:
             for j in range(n):
@@ -200,17 +204,22 @@ def run(prj: Project, scenarios: list[Scenario], model: str = "switching", progr
             aborted = f"stopped at period {k} (t = {t:.6f} s): {exc}"
             periods = k
             break
-        pwm_rec[k] = pwm
+        pwm_rec[k + 1] = pwm
         probe_rec[k] = ctl.internals()
         bar.update(k + 1)
+    stamps[periods] = clock()
     bar.close()
-    rec = {name: plant_rec[:periods, f] for f, name in enumerate(PLANT_FIELDS)}
-    rec["mode"] = pwm_rec["mode"][:periods].astype(float)
-    rec["faults"] = pwm_rec["faults"][:periods].astype(float)
+    # views, no copies: a batch's records are large, and fresh memory is slow to fault in
+    rec = {name: plant_rec[:periods, :, f] for f, name in enumerate(PLANT_FIELDS)}
+    rec["t_s"] = np.broadcast_to((np.arange(periods) * T)[:, None], (periods, n))
+    outputs, applied = pwm_rec[1:periods + 1], pwm_rec[:periods]  # the plant ran period k with outputs k - 1
+    rec["mode"], rec["faults"] = outputs["mode"], outputs["faults"]
+    rec["compare"], rec["gates"] = applied["compare"], applied["gates"]
+    rec["shoot_through"] = ((applied["gates"] & GATE_SLOW_LO) != 0) & ((applied["gates"] & GATE_SLOW_HI) != 0)
     for f, name in enumerate(("duty", "iref_A", "vref_V", "pcmd_W")):
-        rec[name] = probe_rec[:periods, :, f].astype(float)
-    result = RunResult(prj, scenarios, model, {name: rec[name] for name in RECORDED}, time.perf_counter() - t0,
-                       periods)
+        rec[name] = probe_rec[:periods, :, f]  # float32, as the controller computes them
+    result = RunResult(prj, scenarios, model, {name: rec[name] for name in RECORDED}, clock() - t0, periods)
+    result.extras["period_wall_s"] = stamps[:periods + 1] - t0
     if local:
         result.extras["final_states"] = [ctl.state(k) for k in range(n)]
     if aborted:

@@ -33,7 +33,7 @@ def stage_par(p: StageParams, load: Load) -> np.ndarray:
     par[K.P_CLOSE], par[K.P_OPEN] = p.bypass_close_frac, p.bypass_open_frac
     par[K.P_VOUT], par[K.P_CONNECT], par[K.P_UVLO] = load.vout, load.connect_V, load.uvlo_V
     par[K.P_FULL] = 65535.0
-    par[K.P_VAC_PER] = par[K.P_IL_PER] = par[K.P_VBUS_PER] = 1.0
+    par[K.P_VAC_CPV] = par[K.P_IL_CPA] = par[K.P_VBUS_CPV] = 1.0
     return par
 
 
@@ -64,14 +64,16 @@ class Plant:
         self.p, self.n = p, n
         self.par = stage_par(p, load)
         self.plans = step_plans(p, g_max_S)
-        lane = np.zeros((K.LANE_ROWS, n))
-        lane[K.L_I] = i0_A
-        lane[K.L_VC] = vc0_V
-        lane[K.L_BYPASSED] = 1.0  # inrush limiter relay: start-up begins precharged
-        lane[K.L_THETA], lane[K.L_VRMS], lane[K.L_FREQ], lane[K.L_DC] = grid.theta, grid.vrms, grid.freq, grid.dc
-        lane[K.L_DIP_END] = -np.inf
-        lane[K.L_DIP_LEVEL] = 1.0
-        lane[K.L_POWER], lane[K.L_CP] = load.power, load.constant_power
+        lane = np.zeros((n, K.LANE_ROWS))  # a lane's numbers side by side (``plant.kernel`` columns)
+        lane[:, K.L_I] = i0_A
+        lane[:, K.L_VC] = vc0_V
+        lane[:, K.L_BYPASSED] = 1.0  # inrush limiter relay: start-up begins precharged
+        lane[:, K.L_THETA], lane[:, K.L_VRMS], lane[:, K.L_FREQ] = grid.theta, grid.vrms, grid.freq
+        lane[:, K.L_DC] = grid.dc
+        lane[:, K.L_S0], lane[:, K.L_C0] = np.sin(grid.theta), np.cos(grid.theta)
+        lane[:, K.L_DIP_END] = -np.inf
+        lane[:, K.L_DIP_LEVEL] = 1.0
+        lane[:, K.L_POWER], lane[:, K.L_CP] = load.power, load.constant_power
         if sensors is not None:
             sensors.pack(self.par, lane)
             self.seed = sensors.seed.copy()
@@ -80,25 +82,26 @@ class Plant:
         self.lane = lane
         self.harm = grid.harm
         self.codes = np.zeros((n, 3), dtype=np.uint16)
+        self.ws = K.workspace(n)
 
     # -- state ---------------------------------------------------------------------------
     @property
     def i(self) -> np.ndarray:
         """Inductor (= line) current, A."""
-        return self.lane[K.L_I]
+        return self.lane[:, K.L_I]
 
     @property
     def vc(self) -> np.ndarray:
         """Bus capacitor voltage, V."""
-        return self.lane[K.L_VC]
+        return self.lane[:, K.L_VC]
 
     @property
     def vrms(self) -> np.ndarray:
-        return self.lane[K.L_VRMS]
+        return self.lane[:, K.L_VRMS]
 
     @property
     def freq(self) -> np.ndarray:
-        return self.lane[K.L_FREQ]
+        return self.lane[:, K.L_FREQ]
 
     def source_voltage(self, t_s: float) -> np.ndarray:
         """Source voltage (V) of every lane at ``t_s`` after the present period start."""
@@ -107,27 +110,29 @@ class Plant:
     # -- events --------------------------------------------------------------------------
     def dip(self, j: int, residual: float, until_s: float) -> None:
         """Line of lane ``j`` at ``residual`` of its amplitude until ``until_s`` (s, run time)."""
-        self.lane[K.L_DIP_LEVEL, j], self.lane[K.L_DIP_END, j] = residual, until_s
+        self.lane[j, K.L_DIP_LEVEL], self.lane[j, K.L_DIP_END] = residual, until_s
 
     def set_load_power(self, j: int, power_W: float) -> None:
-        self.lane[K.L_POWER, j] = power_W
+        self.lane[j, K.L_POWER] = power_W
 
     def set_freq(self, j: int, freq_Hz: float) -> None:
-        self.lane[K.L_FREQ, j] = freq_Hz
+        self.lane[j, K.L_FREQ] = freq_Hz
 
     def phase_jump(self, j: int, deg: float) -> None:
-        self.lane[K.L_THETA, j] += math.radians(deg)
+        th = self.lane[j, K.L_THETA] + math.radians(deg)
+        self.lane[j, K.L_THETA], self.lane[j, K.L_S0], self.lane[j, K.L_C0] = th, math.sin(th), math.cos(th)
 
     def set_vrms(self, j: int, vrms_V: float) -> None:
-        self.lane[K.L_VRMS, j] = vrms_V
+        self.lane[j, K.L_VRMS] = vrms_V
 
     # -- one period ----------------------------------------------------------------------
     def step(self, k: int, compare, gates, out: np.ndarray, model: str = "switching", codes=None) -> np.ndarray:
         """Advance every lane through period ``k`` (starting at ``k T``) with ``compare``
         (timer counts) and ``gates`` (bit masks), arrays of shape (n,); the period's records
-        go into ``out`` (len(FIELDS), n); returns the ADC codes sampled in it, (n, 3) uint16
+        go into ``out`` (n, len(FIELDS)); returns the ADC codes sampled in it, (n, 3) uint16
         (into ``codes`` when given)."""
         codes = self.codes if codes is None else codes
         K.step_lanes(self.par, self.plans, self.lane, self.harm, self.seed, k, k * self.p.period_s,
-                     K.MODEL_SWITCHING if model == "switching" else K.MODEL_AVERAGED, compare, gates, codes, out)
+                     K.MODEL_SWITCHING if model == "switching" else K.MODEL_AVERAGED, compare, gates, codes, out,
+                     self.ws)
         return codes

@@ -22,11 +22,11 @@ class Grid:
         self.dc = np.broadcast_to(np.asarray(dc_V, dtype=float), (n,)).copy()
         per_lane = [tuple(harmonics)] * n if harmonics_per_lane is None else list(harmonics_per_lane)
         orders = sorted({int(h[0]) for lane in per_lane for h in lane})
-        # harm[h] = (order, amplitude fraction, phase rad), each of shape (n,)
-        self.harm = np.zeros((len(orders), 3, n))
+        # harm[j, h] = (order, amplitude fraction, phase rad) of lane j, shape (n, orders, 3)
+        self.harm = np.zeros((n, len(orders), 3))
         for h, order in enumerate(orders):
-            self.harm[h, 0] = order
+            self.harm[:, h, 0] = order
             for j, lane in enumerate(per_lane):
                 for k, a, deg in lane:
                     if int(k) == order:
-                        self.harm[h, 1, j], self.harm[h, 2, j] = float(a), np.deg2rad(float(deg))
+                        self.harm[j, h, 1], self.harm[j, h, 2] = float(a), np.deg2rad(float(deg))

@@ -43,21 +43,20 @@ except ImportError:  # pragma: no cover - exercised only where numba is missing
 SQRT2 = math.sqrt(2.0)
 TWO_PI = 2.0 * math.pi
 
-# rows of the per-lane float state (``lane`` array, shape (LANE_ROWS, n))
+# columns of the per-lane float state (``lane`` array, shape (n, LANE_ROWS): a lane's numbers side by side)
 (L_I, L_VC, L_BYPASSED, L_CONNECTED, L_THETA, L_VRMS, L_FREQ, L_DC, L_DIP_END, L_DIP_LEVEL, L_POWER, L_CP,
- L_GAIN0, L_GAIN1, L_GAIN2, L_OFF0, L_OFF1, L_OFF2, L_NOISE0, L_NOISE1, L_NOISE2) = range(21)
-LANE_ROWS = 21
+ L_GAIN0, L_GAIN1, L_GAIN2, L_OFF0, L_OFF1, L_OFF2, L_NOISE0, L_NOISE1, L_NOISE2, L_S0, L_C0) = range(23)
+LANE_ROWS = 23  # L_S0, L_C0: sin and cos of L_THETA, carried along by rotation
 
 # entries of the parameter vector (``par``)
 (P_LT, P_C, P_ESR, P_RTOT, P_RINRUSH, P_TDEAD, P_T, P_COUNTS, P_RSRC, P_LSRC, P_CLOSE, P_OPEN, P_VOUT, P_CONNECT,
- P_UVLO, P_FULL, P_VAC_PER, P_VAC_OFF, P_IL_PER, P_IL_OFF, P_VBUS_PER) = range(21)
+ P_UVLO, P_FULL, P_VAC_CPV, P_VAC_OFF, P_IL_CPA, P_IL_OFF, P_VBUS_CPV) = range(21)  # CPV/CPA: counts per V/A
 PAR_ROWS = 21
 
 # plant records per period (rows of ``rec[k]``), in this order
-FIELDS = ("t_s", "vs_V", "vterm_V", "i_avg_A", "i_max_A", "i_min_A", "i_sample_A", "vbus_V", "vbus_sample_V",
-          "compare", "gates", "e_in_J", "e_out_J", "e_loss_J", "shoot_through")
-(R_T, R_VS, R_VTERM, R_IAVG, R_IMAX, R_IMIN, R_ISAMPLE, R_VBUS, R_VBSAMPLE, R_COMPARE, R_GATES, R_EIN, R_EOUT,
- R_ELOSS, R_SHOOT) = range(len(FIELDS))
+FIELDS = ("vs_V", "vterm_V", "i_avg_A", "i_max_A", "i_min_A", "i_sample_A", "vbus_V", "vbus_sample_V", "e_in_J",
+          "e_out_J", "e_loss_J")
+(R_VS, R_VTERM, R_IAVG, R_IMAX, R_IMIN, R_ISAMPLE, R_VBUS, R_VBSAMPLE, R_EIN, R_EOUT, R_ELOSS) = range(len(FIELDS))
 
 GATE_FAST_LO, GATE_FAST_HI, GATE_SLOW_LO, GATE_SLOW_HI = 1, 2, 4, 8
 MODEL_SWITCHING, MODEL_AVERAGED = 0, 1
@@ -161,8 +160,8 @@ def segment(i, vc, dt, m_pos, m_neg, vs, cc, pieces, order):
 @jit
 def source(lane, harm, j, scale, t):
     """Source voltage (V) of lane ``j`` at ``t`` s after the present period start;
-    ``harm[h] = (order, amplitude fraction, phase rad)`` rows of shape (n,)."""
-    th = lane[L_THETA, j]
+    ``harm[j, h] = (order, amplitude fraction, phase rad)``, shape (n, orders, 3)."""
+    th = lane[j, L_THETA]
     return source_at(lane, harm, j, scale, t, math.sin(th), math.cos(th))
 
 
@@ -171,19 +170,14 @@ def source_at(lane, harm, j, scale, t, s0, c0):
     """``source`` with ``s0, c0`` = sin, cos of the phase at the period start: the
     fundamental by angle addition, with sin and cos of the small advance ``x = 2 pi f t``
     from their series (to below 1e-18 for |x| <= 0.05 rad; larger ``x`` by the library)."""
-    x = TWO_PI * lane[L_FREQ, j] * t
-    if abs(x) <= 0.05:
-        x2 = x * x
-        sx = x * (1.0 - x2 / 6.0 * (1.0 - x2 / 20.0 * (1.0 - x2 / 42.0)))
-        cx = 1.0 - x2 / 2.0 * (1.0 - x2 / 12.0 * (1.0 - x2 / 30.0 * (1.0 - x2 / 56.0)))
-    else:
-        sx, cx = math.sin(x), math.cos(x)
+    x = TWO_PI * lane[j, L_FREQ] * t
+    sx, cx = small_sin_cos(x)
     wave = s0 * cx + c0 * sx
-    if harm.shape[0]:
-        th = lane[L_THETA, j] + x
-        for h in range(harm.shape[0]):
-            wave = wave + harm[h, 1, j] * math.sin(harm[h, 0, j] * th + harm[h, 2, j])
-    return SQRT2 * lane[L_VRMS, j] * scale * wave + lane[L_DC, j]
+    if harm.shape[1]:
+        th = lane[j, L_THETA] + x
+        for h in range(harm.shape[1]):
+            wave = wave + harm[j, h, 1] * math.sin(harm[j, h, 0] * th + harm[j, h, 2])
+    return SQRT2 * lane[j, L_VRMS] * scale * wave + lane[j, L_DC]
 
 
 # -- one PWM period of one lane ------------------------------------------------------------
@@ -193,89 +187,6 @@ def _m_pair(qa, qb):
     m_pos = (qa if qa >= 0 else 1) - (qb if qb >= 0 else 0)
     m_neg = (qa if qa >= 0 else 0) - (qb if qb >= 0 else 1)
     return float(m_pos), float(m_neg)
-
-
-@jit
-def period_switching(par, plans, lane, harm, j, scale, compare, gates, G, Icp, r_path, relay, out):
-    """One switching period of lane ``j``: seven sub-intervals (center-aligned PWM, dead
-    time at each edge), each solved exactly; writes the period's figures into ``out``
-    (rows R_*) and returns the new (i, vc)."""
-    T, Lt, C, rc = par[P_T], par[P_LT], par[P_C], par[P_ESR]
-    tdm = par[P_TDEAD]
-    dl = min(max(compare / par[P_COUNTS], 0.0), 1.0)
-    td = tdm if (dl > 0.0 and dl < 1.0) else 0.0
-    half = T / 2.0
-    t1 = dl * T / 2.0
-    t2 = T - t1
-    b2 = min(t1 + td, t2)
-    b4 = min(t2 + td, T)
-    lo_on = (gates & GATE_FAST_LO) != 0
-    hi_on = (gates & GATE_FAST_HI) != 0
-    s_lo = (gates & GATE_SLOW_LO) != 0
-    s_hi = (gates & GATE_SLOW_HI) != 0
-    qb = 0 if (s_lo and not s_hi) else (1 if (s_hi and not s_lo) else -1)
-    qa_low = 0 if lo_on else -1
-    qa_high = 1 if hi_on else -1
-    i, vc = lane[L_I, j], lane[L_VC, j]
-    i_start = i
-    s0, c0 = math.sin(lane[L_THETA, j]), math.cos(lane[L_THETA, j])
-    cc = circuit(Lt, C, rc, r_path, G, Icp)
-    q_int = q2_int = e_in = vb_int = 0.0
-    imax = imin = i
-    m_prev = 0.0
-    i_s = vb_s = vs_s = 0.0
-    for s in range(7):
-        # (start, end, fast midpoint, longest duration) of sub-interval s; T/2 is a boundary
-        if s == 0:
-            a, b, qa, kind = 0.0, t1, qa_low, PLAN_HALF
-        elif s == 1:
-            a, b, qa, kind = t1, min(b2, half), -1, PLAN_DEAD
-        elif s == 2:
-            a, b, qa, kind = min(b2, half), half, qa_high, PLAN_HALF
-        elif s == 3:
-            a, b, qa, kind = half, max(b2, half), -1, PLAN_DEAD
-        elif s == 4:
-            a, b, qa, kind = max(b2, half), t2, qa_high, PLAN_HALF
-        elif s == 5:
-            a, b, qa, kind = t2, b4, -1, PLAN_DEAD
-        else:
-            a, b, qa, kind = b4, T, qa_low, PLAN_HALF
-        dt = max(b - a, 0.0)
-        if dt > 0.0:
-            vs = source_at(lane, harm, j, scale, a + dt / 2.0, s0, c0)
-            m_pos, m_neg = _m_pair(qa, qb)
-            i0, vc0 = i, vc
-            i, vc, m = segment(i, vc, dt, m_pos, m_neg, vs, cc, plans[relay, kind, 0], plans[relay, kind, 1])
-            m_prev = m
-            # current is near-linear inside a sub-interval: exact integrals for a line
-            q_int += dt * (i0 + i) / 2.0
-            q2_int += dt * (i0 * i0 + i0 * i + i * i) / 3.0
-            e_in += dt * vs * (i0 + i) / 2.0
-            vb_int += dt * (vbus_of(m, i0, vc0, G, Icp, rc) + vbus_of(m, i, vc, G, Icp, rc)) / 2.0
-            imax = max(imax, i)
-            imin = min(imin, i)
-        else:
-            m = m_prev
-        if s == 2:
-            vs_s = source_at(lane, harm, j, scale, half, s0, c0)
-            vb_s = vbus_of(m, i, vc, G, Icp, rc)
-            i_s = i
-    vbus_avg = vb_int / T
-    out[R_VS] = vs_s
-    # sensed line voltage: source less the drop of the period-average current on the source
-    # impedance (the input filter's X capacitors carry the switching ripple)
-    out[R_VTERM] = vs_s - par[P_RSRC] * i_s - par[P_LSRC] * (i - i_start) / T
-    out[R_IAVG] = q_int / T
-    out[R_IMAX] = imax
-    out[R_IMIN] = imin
-    out[R_ISAMPLE] = i_s
-    out[R_VBUS] = vbus_avg
-    out[R_VBSAMPLE] = vb_s
-    out[R_EIN] = e_in
-    out[R_EOUT] = T * (G * vbus_avg**2 + Icp * vbus_avg)
-    out[R_ELOSS] = r_path * q2_int
-    out[R_SHOOT] = 1.0 if (s_lo and s_hi) else 0.0
-    return i, vc
 
 
 @jit
@@ -301,7 +212,7 @@ def period_averaged(par, plans, lane, harm, j, scale, compare, gates, G, Icp, r_
     m_pos = (1.0 - f_lo * lo_on) - qb_pos
     m_neg = f_hi * hi_on - qb_neg
     vs = source(lane, harm, j, scale, T / 2.0)
-    i0, vc0 = lane[L_I, j], lane[L_VC, j]
+    i0, vc0 = lane[j, L_I], lane[j, L_VC]
     cc = circuit(Lt, C, rc, r_path, G, Icp)
     i1, vc1, m = segment(i0, vc0, T, m_pos, m_neg, vs, cc, plans[relay, PLAN_PERIOD, 0], plans[relay, PLAN_PERIOD, 1])
     vb = (vbus_of(m, i0, vc0, G, Icp, rc) + vbus_of(m, i1, vc1, G, Icp, rc)) / 2.0
@@ -317,7 +228,6 @@ def period_averaged(par, plans, lane, harm, j, scale, compare, gates, G, Icp, r_
     out[R_EIN] = T * vs * iavg
     out[R_EOUT] = T * (G * vb**2 + Icp * vb)
     out[R_ELOSS] = r_path * (T * (i0 * i0 + i0 * i1 + i1 * i1) / 3.0)
-    out[R_SHOOT] = 1.0 if (s_lo and s_hi) else 0.0
     return i1, vc1
 
 
@@ -346,13 +256,13 @@ def adc_channel(par, lane, seed, j, k, ch, x):
     in conversion ``k``: scaling, gain and offset errors, seeded noise, rounding to the
     nearest code, rails."""
     if ch == 0:
-        raw = par[P_VAC_OFF] + x * (1.0 + lane[L_GAIN0, j]) / par[P_VAC_PER]
+        raw = par[P_VAC_OFF] + x * (1.0 + lane[j, L_GAIN0]) * par[P_VAC_CPV]
     elif ch == 1:
-        raw = par[P_IL_OFF] + x * (1.0 + lane[L_GAIN1, j]) / par[P_IL_PER]
+        raw = par[P_IL_OFF] + x * (1.0 + lane[j, L_GAIN1]) * par[P_IL_CPA]
     else:
-        raw = x * (1.0 + lane[L_GAIN2, j]) / par[P_VBUS_PER]
-    raw = raw + lane[L_OFF0 + ch, j]
-    z = lane[L_NOISE0 + ch, j]
+        raw = x * (1.0 + lane[j, L_GAIN2]) * par[P_VBUS_CPV]
+    raw = raw + lane[j, L_OFF0 + ch]
+    z = lane[j, L_NOISE0 + ch]
     if z != 0.0:
         raw = raw + z * gauss(seed[j], k, ch)
     return np.uint16(min(max(np.rint(raw), 0.0), par[P_FULL]))
@@ -361,61 +271,258 @@ def adc_channel(par, lane, seed, j, k, ch, x):
 @jit
 def adc_lanes(par, lane, seed, k, vac, il, vbus, codes):
     """Conversion ``k`` of every lane: ``codes[j] = (vac, il, vbus)`` codes of lane ``j``."""
-    for j in range(lane.shape[1]):
+    for j in range(lane.shape[0]):
         codes[j, 0] = adc_channel(par, lane, seed, j, k, 0, vac[j])
         codes[j, 1] = adc_channel(par, lane, seed, j, k, 1, il[j])
         codes[j, 2] = adc_channel(par, lane, seed, j, k, 2, vbus[j])
 
 
 # -- one period of every lane ----------------------------------------------------------------
+# rows of the workspace ``ws`` (shape (WS_ROWS, >= n)): per-lane numbers of the present period, a row
+# per quantity so that the solver's loops run over lanes; see ``workspace`` for its row length
+(W_G, W_ICP, W_K, W_A22, W_B2, W_RPATH, W_SLOW, W_SCALE, W_I, W_VC, W_X1, W_X2, W_M, W_MPREV, W_A11, W_A12, W_A21,
+ W_B1, W_V1, W_V2, W_Y1, W_Y2, W_P11, W_P12, W_P21, W_P22, W_H, W_Q, W_Q2, W_EIN, W_VB, W_IMAX, W_IMIN, W_ISTART,
+ W_IS, W_VBS, W_VSH, W_DT, W_VS, W_MP, W_MN) = (*range(37), 37, 44, 51, 58)  # the last four: 7 rows each
+WS_ROWS = 65
+THIRD = 1.0 / 3.0
+
+
+def workspace(n: int) -> np.ndarray:
+    """Scratch space for ``step_lanes``: rows of a length whose byte stride is an odd number
+    of cache lines, so that the same lane's entries in the many rows do not all fall into the
+    same few cache sets (a power-of-two stride made every store a conflict miss)."""
+    cols = 8 * ((n + 7) // 8)
+    if (cols // 8) % 2 == 0:
+        cols += 8
+    return np.zeros((WS_ROWS, cols))
+
+
 @jit
-def step_lanes(par, plans, lane, harm, seed, k, t, model, compare, gates, codes, out):
-    """Advance every lane by period ``k`` (starting at ``t`` s) with the given compare
-    (timer counts) and gate masks; write the ADC codes sampled in it into ``codes`` (n, 3)
-    and the period's records into ``out`` (len(FIELDS), n)."""
-    n = lane.shape[1]
-    T = par[P_T]
+def _period_setup(par, lane, harm, k, t, compare, gates, ws, switching):
+    """Per lane: dip, inrush relay, load terms and what stays fixed over the period; for the
+    switching model also each sub-interval's duration, source voltage at its midpoint and
+    midpoint difference ``m`` for positive and negative current."""
+    n = lane.shape[0]
+    T, Lt, C, rc = par[P_T], par[P_LT], par[P_C], par[P_ESR]
+    half = 0.5 * T
     for j in range(n):
-        scale = lane[L_DIP_LEVEL, j] if t < lane[L_DIP_END, j] else 1.0
-        vc = lane[L_VC, j]
+        scale = lane[j, L_DIP_LEVEL] if t < lane[j, L_DIP_END] else 1.0
+        vc = lane[j, L_VC]
         # inrush limiter relay: autonomous hardware, hysteretic on the bus against the line peak
         if par[P_RINRUSH] > 0.0:
-            vpk = SQRT2 * lane[L_VRMS, j]
+            vpk = SQRT2 * lane[j, L_VRMS]
             if vc >= par[P_CLOSE] * vpk:
-                lane[L_BYPASSED, j] = 1.0
+                lane[j, L_BYPASSED] = 1.0
             elif vc < par[P_OPEN] * vpk:
-                lane[L_BYPASSED, j] = 0.0
-        relay = 0 if lane[L_BYPASSED, j] != 0.0 else 1
-        r_path = par[P_RTOT] + (0.0 if relay == 0 else par[P_RINRUSH])
+                lane[j, L_BYPASSED] = 0.0
+        relay_open = lane[j, L_BYPASSED] == 0.0
+        r_path = par[P_RTOT] + (par[P_RINRUSH] if relay_open else 0.0)
         # load: connects at power-good, drops out below its UVLO (the bus now: no current term)
         if vc >= par[P_CONNECT]:
-            lane[L_CONNECTED, j] = 1.0
+            lane[j, L_CONNECTED] = 1.0
         elif vc < par[P_UVLO]:
-            lane[L_CONNECTED, j] = 0.0
+            lane[j, L_CONNECTED] = 0.0
         G = Icp = 0.0
-        if lane[L_CONNECTED, j] != 0.0:
-            if lane[L_CP, j] != 0.0:
-                Icp = lane[L_POWER, j] / max(vc, par[P_UVLO])
+        if lane[j, L_CONNECTED] != 0.0:
+            if lane[j, L_CP] != 0.0:
+                Icp = lane[j, L_POWER] / max(vc, par[P_UVLO])
             else:
-                G = lane[L_POWER, j] / par[P_VOUT] ** 2
-        o = out[:, j]
-        cmp_ = float(compare[j])
+                G = lane[j, L_POWER] / par[P_VOUT] ** 2
+        inv_L, inv_C, kk, _, _, a22, b2, _, _ = circuit(Lt, C, rc, r_path, G, Icp)
+        ws[W_G, j], ws[W_ICP, j], ws[W_K, j], ws[W_A22, j], ws[W_B2, j], ws[W_RPATH, j] = G, Icp, kk, a22, b2, r_path
+        ws[W_SLOW, j] = 1.0 if relay_open else 0.0
+        ws[W_I, j], ws[W_VC, j] = lane[j, L_I], vc
+        ws[W_SCALE, j] = scale
+        if not switching:
+            continue
+        # center-aligned PWM: the fast low switch on for dl T/2 at each end, the high switch in
+        # the middle, the timer's dead time at each edge; T/2 (the ADC sample) is a boundary
+        dl = min(max(float(compare[j]) / par[P_COUNTS], 0.0), 1.0)
+        td = par[P_TDEAD] if (dl > 0.0 and dl < 1.0) else 0.0
+        t1 = dl * half
+        t2 = T - t1
+        b2_ = min(t1 + td, t2)
+        b4 = min(t2 + td, T)
         g = int(gates[j])
-        if model == MODEL_SWITCHING:
-            i, vc = period_switching(par, plans, lane, harm, j, scale, cmp_, g, G, Icp, r_path, relay, o)
-        else:
-            i, vc = period_averaged(par, plans, lane, harm, j, scale, cmp_, g, G, Icp, r_path, relay, o)
-        lane[L_I, j] = i
-        lane[L_VC, j] = vc
-        o[R_T] = t
-        o[R_COMPARE] = cmp_
-        o[R_GATES] = g
-        codes[j, 0] = adc_channel(par, lane, seed, j, k, 0, o[R_VTERM])
-        codes[j, 1] = adc_channel(par, lane, seed, j, k, 1, o[R_ISAMPLE])
-        codes[j, 2] = adc_channel(par, lane, seed, j, k, 2, o[R_VBSAMPLE])
-        th = lane[L_THETA, j] + TWO_PI * lane[L_FREQ, j] * T
-        while th >= TWO_PI:  # kept in [0, 2 pi): a frequency step keeps the wave continuous
+        s_lo = (g & GATE_SLOW_LO) != 0
+        s_hi = (g & GATE_SLOW_HI) != 0
+        qb = 0 if (s_lo and not s_hi) else (1 if (s_hi and not s_lo) else -1)
+        qa_low = 0 if (g & GATE_FAST_LO) != 0 else -1
+        qa_high = 1 if (g & GATE_FAST_HI) != 0 else -1
+        s0, c0 = lane[j, L_S0], lane[j, L_C0]
+        for seg in range(7):
+            if seg == 0:
+                a, b, qa = 0.0, t1, qa_low
+            elif seg == 1:
+                a, b, qa = t1, min(b2_, half), -1
+            elif seg == 2:
+                a, b, qa = min(b2_, half), half, qa_high
+            elif seg == 3:
+                a, b, qa = half, max(b2_, half), -1
+            elif seg == 4:
+                a, b, qa = max(b2_, half), t2, qa_high
+            elif seg == 5:
+                a, b, qa = t2, b4, -1
+            else:
+                a, b, qa = b4, T, qa_low
+            dt = max(b - a, 0.0)
+            m_pos, m_neg = _m_pair(qa, qb)
+            ws[W_DT + seg, j] = dt
+            ws[W_VS + seg, j] = source_at(lane, harm, j, scale, a + 0.5 * dt, s0, c0) if dt > 0.0 else 0.0
+            ws[W_MP + seg, j], ws[W_MN + seg, j] = m_pos, m_neg
+        ws[W_VSH, j] = source_at(lane, harm, j, scale, half, s0, c0)
+
+
+@jit
+def _switching_period(par, plans, ws, n):
+    """One switching period of every lane, sub-interval by sub-interval.  The exact solver
+    runs over all lanes at once (loops the compiler vectorises) with the step plan of a
+    closed limiter relay; a lane whose diode current starts at zero or reaches zero in the
+    sub-interval, or whose relay is open, is then done again alone by ``segment``.  Either
+    way a lane's numbers are its own."""
+    Lt, C, rc, T = par[P_LT], par[P_C], par[P_ESR], par[P_T]
+    inv_L, inv_C = 1.0 / Lt, 1.0 / C
+    G, ICP, K_, A22, B2, RPATH, SLOW = ws[W_G], ws[W_ICP], ws[W_K], ws[W_A22], ws[W_B2], ws[W_RPATH], ws[W_SLOW]
+    I, VC, X1, X2, M, MPREV = ws[W_I], ws[W_VC], ws[W_X1], ws[W_X2], ws[W_M], ws[W_MPREV]
+    A11, A12, A21, B1 = ws[W_A11], ws[W_A12], ws[W_A21], ws[W_B1]
+    V1, V2, Y1, Y2, H = ws[W_V1], ws[W_V2], ws[W_Y1], ws[W_Y2], ws[W_H]
+    P11, P12, P21, P22 = ws[W_P11], ws[W_P12], ws[W_P21], ws[W_P22]
+    Q, Q2, EIN, VB, IMAX, IMIN = ws[W_Q], ws[W_Q2], ws[W_EIN], ws[W_VB], ws[W_IMAX], ws[W_IMIN]
+    for j in range(n):
+        ws[W_ISTART, j] = I[j]
+        Q[j] = Q2[j] = EIN[j] = VB[j] = 0.0
+        IMAX[j] = IMIN[j] = I[j]
+        MPREV[j] = 0.0
+    for seg in range(7):
+        kind = PLAN_DEAD if seg % 2 == 1 else PLAN_HALF
+        pieces, order = plans[0, kind, 0], plans[0, kind, 1]
+        DT, VS, MP, MN = ws[W_DT + seg], ws[W_VS + seg], ws[W_MP + seg], ws[W_MN + seg]
+        # matrices for conduction in the current's direction (forced: switches both ways)
+        for j in range(n):
+            m = MP[j] if (MP[j] == MN[j] or I[j] > 0.0) else MN[j]
+            km = m * K_[j]
+            A11[j] = -(RPATH[j] + km * rc * m) * inv_L
+            A12[j] = -km * inv_L
+            A21[j] = km * inv_C
+            B1[j] = (VS[j] + km * rc * ICP[j]) * inv_L
+            M[j] = m
+            X1[j], X2[j] = I[j], VC[j]
+            H[j] = DT[j] * INV[pieces]
+            P11[j], P12[j], P21[j], P22[j] = H[j] * A11[j], H[j] * A12[j], H[j] * A21[j], H[j] * A22[j]
+        for _ in range(pieces):
+            for j in range(n):
+                V1[j] = A11[j] * X1[j] + A12[j] * X2[j] + B1[j]
+                V2[j] = A21[j] * X1[j] + A22[j] * X2[j] + B2[j]
+                Y1[j], Y2[j] = V1[j], V2[j]
+            for kk in range(1, order):
+                c = INV_FACT[kk]
+                for j in range(n):
+                    v1 = P11[j] * V1[j] + P12[j] * V2[j]
+                    v2 = P21[j] * V1[j] + P22[j] * V2[j]
+                    V1[j], V2[j] = v1, v2
+                    Y1[j] += c * v1
+                    Y2[j] += c * v2
+            for j in range(n):
+                X1[j] += H[j] * Y1[j]
+                X2[j] += H[j] * Y2[j]
+        # lanes the common step does not cover: done again, alone and exactly
+        for j in range(n):
+            i0, i1 = I[j], X1[j]
+            forced = MP[j] == MN[j]
+            if DT[j] > 0.0 and (SLOW[j] != 0.0 or (not forced and (i0 == 0.0 or (i0 > 0.0 and i1 < 0.0)
+                                                                      or (i0 < 0.0 and i1 > 0.0)))):
+                relay = 1 if SLOW[j] != 0.0 else 0
+                cc = (inv_L, inv_C, K_[j], rc, RPATH[j], A22[j], B2[j], G[j], ICP[j])
+                X1[j], X2[j], M[j] = segment(i0, VC[j], DT[j], MP[j], MN[j], VS[j], cc, plans[relay, kind, 0],
+                                             plans[relay, kind, 1])
+        # the sub-interval's share of the period's integrals (current near-linear inside it)
+        for j in range(n):
+            dt = DT[j]
+            i0, vc0, i1, vc1 = I[j], VC[j], X1[j], X2[j]
+            m = M[j] if dt > 0.0 else MPREV[j]
+            Q[j] += dt * (i0 + i1) * 0.5
+            Q2[j] += dt * (i0 * i0 + i0 * i1 + i1 * i1) * THIRD
+            EIN[j] += dt * VS[j] * (i0 + i1) * 0.5
+            VB[j] += dt * ((vc0 + rc * (m * i0 - ICP[j])) * K_[j] + (vc1 + rc * (m * i1 - ICP[j])) * K_[j]) * 0.5
+            IMAX[j] = max(IMAX[j], i1)
+            IMIN[j] = min(IMIN[j], i1)
+            I[j], VC[j], MPREV[j] = i1, vc1, m
+        if seg == 2:  # the ADC sample at T/2
+            for j in range(n):
+                ws[W_IS, j] = I[j]
+                ws[W_VBS, j] = (VC[j] + rc * (MPREV[j] * I[j] - ICP[j])) * K_[j]
+
+
+@jit
+def step_lanes(par, plans, lane, harm, seed, k, t, model, compare, gates, codes, out, ws):
+    """Advance every lane by period ``k`` (starting at ``t`` s) with the given compare
+    (timer counts) and gate masks; write the ADC codes sampled in it into ``codes`` (n, 3)
+    and the period's records into ``out`` (n, len(FIELDS)); ``ws`` is scratch space
+    (WS_ROWS, n)."""
+    n = lane.shape[0]
+    T = par[P_T]
+    switching = model == MODEL_SWITCHING
+    _period_setup(par, lane, harm, k, t, compare, gates, ws, switching)
+    if switching:
+        _switching_period(par, plans, ws, n)
+        rc, f = par[P_ESR], 1.0 / T
+        for j in range(n):
+            vbus_avg = ws[W_VB, j] * f
+            G, Icp = ws[W_G, j], ws[W_ICP, j]
+            i_s = ws[W_IS, j]
+            out[j, R_VS] = ws[W_VSH, j]
+            # sensed line voltage: source less the drop of the period-average current on the
+            # source impedance (the input filter's X capacitors carry the switching ripple)
+            out[j, R_VTERM] = ws[W_VSH, j] - par[P_RSRC] * i_s - par[P_LSRC] * (ws[W_I, j] - ws[W_ISTART, j]) * f
+            out[j, R_IAVG] = ws[W_Q, j] * f
+            out[j, R_IMAX] = ws[W_IMAX, j]
+            out[j, R_IMIN] = ws[W_IMIN, j]
+            out[j, R_ISAMPLE] = i_s
+            out[j, R_VBUS] = vbus_avg
+            out[j, R_VBSAMPLE] = ws[W_VBS, j]
+            out[j, R_EIN] = ws[W_EIN, j]
+            out[j, R_EOUT] = T * (G * vbus_avg * vbus_avg + Icp * vbus_avg)
+            out[j, R_ELOSS] = ws[W_RPATH, j] * ws[W_Q2, j]
+            lane[j, L_I], lane[j, L_VC] = ws[W_I, j], ws[W_VC, j]
+    else:
+        for j in range(n):
+            relay = 1 if ws[W_SLOW, j] != 0.0 else 0
+            i, vc = period_averaged(par, plans, lane, harm, j, ws[W_SCALE, j], float(compare[j]), int(gates[j]),
+                                    ws[W_G, j], ws[W_ICP, j], ws[W_RPATH, j], relay, out[j])
+            lane[j, L_I], lane[j, L_VC] = i, vc
+    for j in range(n):
+        codes[j, 0] = adc_channel(par, lane, seed, j, k, 0, out[j, R_VTERM])
+        codes[j, 1] = adc_channel(par, lane, seed, j, k, 1, out[j, R_ISAMPLE])
+        codes[j, 2] = adc_channel(par, lane, seed, j, k, 2, out[j, R_VBSAMPLE])
+        advance_phase(lane, j, T)
+
+
+@jit_inline
+def small_sin_cos(x):
+    """sin and cos of an angle of at most 0.05 rad by their series (to below 1e-17), larger
+    ones by the library."""
+    if abs(x) <= 0.05:
+        x2 = x * x  # Horner with the reciprocals as constants: products, no division
+        return (x * (1.0 - x2 * (1.0 / 6.0) * (1.0 - x2 * (1.0 / 20.0) * (1.0 - x2 * (1.0 / 42.0)))),
+                1.0 - x2 * 0.5 * (1.0 - x2 * (1.0 / 12.0) * (1.0 - x2 * (1.0 / 30.0) * (1.0 - x2 * (1.0 / 56.0)))))
+    return math.sin(x), math.cos(x)
+
+
+@jit_inline
+def advance_phase(lane, j, T):
+    """The line phase one period on, kept in [0, 2 pi) (a frequency step keeps the wave
+    continuous); its sine and cosine follow by rotation and are taken afresh from the library
+    once a cycle, when the phase wraps, so rounding cannot build up."""
+    x = TWO_PI * lane[j, L_FREQ] * T
+    th = lane[j, L_THETA] + x
+    if th >= TWO_PI or th < 0.0:
+        while th >= TWO_PI:
             th -= TWO_PI
         while th < 0.0:
             th += TWO_PI
-        lane[L_THETA, j] = th
+        lane[j, L_S0], lane[j, L_C0] = math.sin(th), math.cos(th)
+    else:
+        sx, cx = small_sin_cos(x)
+        s0, c0 = lane[j, L_S0], lane[j, L_C0]
+        lane[j, L_S0], lane[j, L_C0] = s0 * cx + c0 * sx, c0 * cx - s0 * sx
+    lane[j, L_THETA] = th

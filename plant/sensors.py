@@ -46,15 +46,15 @@ class Sensors:
         """Write the scaling into the kernel's parameter vector and each lane's errors into
         its lane rows (``plant.kernel`` layout)."""
         s = self.s
-        par[K.P_FULL], par[K.P_VAC_PER], par[K.P_VAC_OFF] = s.full_counts, s.vac_V_per_count, s.vac_offset_counts
-        par[K.P_IL_PER], par[K.P_IL_OFF], par[K.P_VBUS_PER] = s.il_A_per_count, s.il_offset_counts, s.vbus_V_per_count
+        par[K.P_FULL], par[K.P_VAC_CPV], par[K.P_VAC_OFF] = s.full_counts, 1.0 / s.vac_V_per_count, s.vac_offset_counts
+        par[K.P_IL_CPA], par[K.P_IL_OFF], par[K.P_VBUS_CPV] = 1.0 / s.il_A_per_count, s.il_offset_counts, 1.0 / s.vbus_V_per_count
         for ch in range(3):
-            lane[K.L_GAIN0 + ch], lane[K.L_OFF0 + ch], lane[K.L_NOISE0 + ch] = self.gain[ch], self.offset[ch], self.noise[ch]
+            lane[:, K.L_GAIN0 + ch], lane[:, K.L_OFF0 + ch], lane[:, K.L_NOISE0 + ch] = self.gain[ch], self.offset[ch], self.noise[ch]
 
     def convert(self, vac_V, il_A, vbus_V) -> np.ndarray:
         """Codes, shape (n, 3) uint16 in channel order (vac, il, vbus); each call is the next
         conversion."""
-        par, lane = np.zeros(K.PAR_ROWS), np.zeros((K.LANE_ROWS, self.n))
+        par, lane = np.zeros(K.PAR_ROWS), np.zeros((self.n, K.LANE_ROWS))
         self.pack(par, lane)
         out = np.empty((self.n, 3), dtype=np.uint16)
         f = lambda x: np.ascontiguousarray(np.broadcast_to(np.asarray(x, dtype=float), (self.n,)))  # noqa: E731

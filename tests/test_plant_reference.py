@@ -36,12 +36,12 @@ def make_sequence(periods):
     seq, states = [], [(st.i[0], st.vc[0])]
     comp, gates = 0.0, 0
     ipk = 6.0
-    out = np.zeros((len(FIELDS), 1))
+    out = np.zeros((1, len(FIELDS)))
     cmd = np.zeros(1, dtype=[("compare", "<u2"), ("gates", "u1"), ("mode", "u1"), ("faults", "<u2")])
     for k in range(periods):
         cmd["compare"], cmd["gates"] = comp, gates
         st.step(k, cmd["compare"], cmd["gates"], out)
-        vs = out[FIELDS.index("vs_V"), 0]  # source at the period's midpoint
+        vs = out[0, FIELDS.index("vs_V")]  # source at the period's midpoint
         seq.append((comp, gates))
         states.append((st.i[0], st.vc[0]))
         # next period's command
