@@ -9,6 +9,7 @@ connected at power-good, the controller's own soft start in between.
 """
 from __future__ import annotations
 
+import mmap
 import sys
 import time
 from dataclasses import dataclass, field
@@ -132,6 +133,22 @@ class Controllers:
         are left in ``pwm_view``."""
         self._batch(self.ctrl, self.adc, self.pwm, self.n)
 
+    def recorder(self, pwm_rec: np.ndarray, probe_rec: np.ndarray):
+        """``record(k)``: step every instance, then copy the outputs into ``pwm_rec[k + 1]``
+        and the internals straight from C into ``probe_rec[k]`` (no per-period temporaries)."""
+        ffi, n, batch, probe = self.b.ffi, self.n, self._batch, self._probe
+        ctrl, adc, pwm = self.ctrl, self.adc, self.pwm
+        dst = ffi.cast("float *", ffi.from_buffer(probe_rec))
+        out_raw = self.pwm_view.view(np.uint16)
+        rec_raw = pwm_rec.view(np.uint16).reshape(pwm_rec.shape[0], -1)
+
+        def record(k: int) -> None:
+            batch(ctrl, adc, pwm, n)
+            rec_raw[k + 1] = out_raw
+            probe(ctrl, dst + 4 * n * k, n)
+
+        return record
+
     def internals(self) -> np.ndarray:
         """(n, 4) float32: duty, current reference (A), bus reference (V), power command (W)."""
         self._probe(self.ctrl, self.probe, self.n)
@@ -140,6 +157,20 @@ class Controllers:
     def state(self, k: int = 0) -> bytes:
         """The raw bytes of instance ``k``'s state (as a target's SNAPSHOT returns them)."""
         return bytes(self.b.ffi.buffer(self.ctrl + k))
+
+
+def zeros_mapped(shape, dtype) -> np.ndarray:
+    """A zero-filled array whose pages the OS maps in one go (Linux ``MAP_POPULATE``) rather
+    than one fault at a time on first write: on virtual machines faulting a batch's records
+    in page by page was measured to cost more than simulating them.  Elsewhere, or for
+    small arrays, ``np.zeros``."""
+    dtype = np.dtype(dtype)
+    nbytes = int(np.prod(shape)) * dtype.itemsize
+    populate = getattr(mmap, "MAP_POPULATE", None)
+    if populate is None or nbytes < (1 << 20):
+        return np.zeros(shape, dtype)
+    mm = mmap.mmap(-1, nbytes, flags=mmap.MAP_PRIVATE | mmap.MAP_ANONYMOUS | populate)
+    return np.frombuffer(mm, dtype=dtype).reshape(shape)
 
 
 def run(prj: Project, scenarios: list[Scenario], model: str = "switching", progress: bool = True,
@@ -177,14 +208,17 @@ def run(prj: Project, scenarios: list[Scenario], model: str = "switching", progr
     next_t = [ev[0].t_s if ev else np.inf for ev in events]
     next_min = min(next_t)
 
-    plant_rec = np.zeros((periods, n, len(PLANT_FIELDS)))
-    pwm_rec = np.zeros((periods + 1, n), dtype=PWM_DTYPE)  # row k + 1: the outputs of period k
-    probe_rec = np.zeros((periods, n, 4), dtype=np.float32)
+    t_alloc = time.perf_counter()
+    plant_rec = zeros_mapped((periods, n, len(PLANT_FIELDS)), np.float64)
+    pwm_rec = zeros_mapped((periods + 1, n), PWM_DTYPE)  # row k + 1: the outputs of period k
+    probe_rec = zeros_mapped((periods, n, 4), np.float32)
     bar = Progress(periods, f"run {model} x{n}", progress)
     aborted = None
     clock = time.perf_counter
     stamps = np.zeros(periods + 1)  # wall clock at the start of each period (s), for `pfcrig bench`
+    record = ctl.recorder(pwm_rec, probe_rec) if local else None
     t0 = clock()
+    alloc_s = t0 - t_alloc  # mapping the records: a cost per period too, paid up front
     for k in range(periods):
         stamps[k] = clock()
         t = k * T
@@ -195,17 +229,17 @@ def run(prj: Project, scenarios: list[Scenario], model: str = "switching", progr
                 next_t[j] = events[j][0].t_s if events[j] else np.inf
             next_min = min(next_t)
         plant.step(k, compare, gates, plant_rec[k], model, codes)
-        try:
-            if local:
-                ctl.step_in_place()
-            else:
+        if record is not None:
+            record(k)
+        else:
+            try:
                 pwm[:] = ctl.step(codes)
-        except (RuntimeError, TimeoutError) as exc:  # a target over a link stopped answering
-            aborted = f"stopped at period {k} (t = {t:.6f} s): {exc}"
-            periods = k
-            break
-        pwm_rec[k + 1] = pwm
-        probe_rec[k] = ctl.internals()
+            except (RuntimeError, TimeoutError) as exc:  # a target over a link stopped answering
+                aborted = f"stopped at period {k} (t = {t:.6f} s): {exc}"
+                periods = k
+                break
+            pwm_rec[k + 1] = pwm
+            probe_rec[k] = ctl.internals()
         bar.update(k + 1)
     stamps[periods] = clock()
     bar.close()
@@ -220,6 +254,7 @@ def run(prj: Project, scenarios: list[Scenario], model: str = "switching", progr
         rec[name] = probe_rec[:periods, :, f]  # float32, as the controller computes them
     result = RunResult(prj, scenarios, model, {name: rec[name] for name in RECORDED}, clock() - t0, periods)
     result.extras["period_wall_s"] = stamps[:periods + 1] - t0
+    result.extras["record_alloc_s"] = alloc_s
     if local:
         result.extras["final_states"] = [ctl.state(k) for k in range(n)]
     if aborted:

@@ -10,9 +10,14 @@ Circuit and notation as in ``plant.stage``: state ``i`` (A, inductor = line curr
 averaged model); load conductance ``G`` (S) and constant-power current ``Icp`` (A).
 
 Each linear piece ``x' = A x + b`` is advanced exactly by the series of the matrix
-exponential, ``x(t) = x0 + t sum_{j>=1} (tA)^(j-1)/j! (A x0 + b)``, summed by Horner to an
-order (and in as many pieces) as ``plant.linear.plan`` sets from a bound on ``|A| t``, so the
-truncation error stays below 1e-16 relative.
+exponential, ``x(t) = x0 + t sum_{j>=1} (tA)^(j-1)/j! (A x0 + b)``, to an order (and in as
+many pieces) as ``plant.linear.plan`` sets from a bound on ``|A| t``, so the truncation
+error stays below 1e-16 relative.
+
+Layout, chosen for speed (measured by ``pfcrig bench``): a lane's settings and state sit side
+by side (``lane``, shape (n, LANE_ROWS)); the switching period's working numbers sit in rows
+over the lanes (``ws``), so the solver's inner loops run across lanes and the compiler turns
+them into vector instructions.
 """
 from __future__ import annotations
 
@@ -374,19 +379,79 @@ def _period_setup(par, lane, harm, k, t, compare, gates, ws, switching):
 
 
 @jit
-def _switching_period(par, plans, ws, n):
-    """One switching period of every lane, sub-interval by sub-interval.  The exact solver
-    runs over all lanes at once (loops the compiler vectorises) with the step plan of a
-    closed limiter relay; a lane whose diode current starts at zero or reaches zero in the
-    sub-interval, or whose relay is open, is then done again alone by ``segment``.  Either
-    way a lane's numbers are its own."""
-    Lt, C, rc, T = par[P_LT], par[P_C], par[P_ESR], par[P_T]
+def _solve_segment(par, plans, ws, n, seg, kind, pieces, order):
+    """Sub-interval ``seg`` of every lane: the exact step over all lanes at once, lanes it does
+    not cover redone alone, then the sub-interval's share of the period's integrals."""
+    Lt, C, rc = par[P_LT], par[P_C], par[P_ESR]
     inv_L, inv_C = 1.0 / Lt, 1.0 / C
     G, ICP, K_, A22, B2, RPATH, SLOW = ws[W_G], ws[W_ICP], ws[W_K], ws[W_A22], ws[W_B2], ws[W_RPATH], ws[W_SLOW]
     I, VC, X1, X2, M, MPREV = ws[W_I], ws[W_VC], ws[W_X1], ws[W_X2], ws[W_M], ws[W_MPREV]
     A11, A12, A21, B1 = ws[W_A11], ws[W_A12], ws[W_A21], ws[W_B1]
     V1, V2, Y1, Y2, H = ws[W_V1], ws[W_V2], ws[W_Y1], ws[W_Y2], ws[W_H]
     P11, P12, P21, P22 = ws[W_P11], ws[W_P12], ws[W_P21], ws[W_P22]
+    Q, Q2, EIN, VB, IMAX, IMIN = ws[W_Q], ws[W_Q2], ws[W_EIN], ws[W_VB], ws[W_IMAX], ws[W_IMIN]
+    DT, VS, MP, MN = ws[W_DT + seg], ws[W_VS + seg], ws[W_MP + seg], ws[W_MN + seg]
+    # matrices for conduction in the current's direction (forced: switches both ways)
+    for j in range(n):
+        m = MP[j] if (MP[j] == MN[j] or I[j] > 0.0) else MN[j]
+        km = m * K_[j]
+        A11[j] = -(RPATH[j] + km * rc * m) * inv_L
+        A12[j] = -km * inv_L
+        A21[j] = km * inv_C
+        B1[j] = (VS[j] + km * rc * ICP[j]) * inv_L
+        M[j] = m
+        X1[j], X2[j] = I[j], VC[j]
+        H[j] = DT[j] * INV[pieces]
+        P11[j], P12[j], P21[j], P22[j] = H[j] * A11[j], H[j] * A12[j], H[j] * A21[j], H[j] * A22[j]
+    for _ in range(pieces):
+        for j in range(n):
+            V1[j] = A11[j] * X1[j] + A12[j] * X2[j] + B1[j]
+            V2[j] = A21[j] * X1[j] + A22[j] * X2[j] + B2[j]
+            Y1[j], Y2[j] = V1[j], V2[j]
+        for kk in range(1, order):
+            c = INV_FACT[kk]
+            for j in range(n):
+                v1 = P11[j] * V1[j] + P12[j] * V2[j]
+                v2 = P21[j] * V1[j] + P22[j] * V2[j]
+                V1[j], V2[j] = v1, v2
+                Y1[j] += c * v1
+                Y2[j] += c * v2
+        for j in range(n):
+            X1[j] += H[j] * Y1[j]
+            X2[j] += H[j] * Y2[j]
+    # lanes the common step does not cover: done again, alone and exactly
+    for j in range(n):
+        i0, i1 = I[j], X1[j]
+        forced = MP[j] == MN[j]
+        if DT[j] > 0.0 and (SLOW[j] != 0.0 or (not forced and (i0 == 0.0 or (i0 > 0.0 and i1 < 0.0)
+                                                                  or (i0 < 0.0 and i1 > 0.0)))):
+            relay = 1 if SLOW[j] != 0.0 else 0
+            cc = (inv_L, inv_C, K_[j], rc, RPATH[j], A22[j], B2[j], G[j], ICP[j])
+            X1[j], X2[j], M[j] = segment(i0, VC[j], DT[j], MP[j], MN[j], VS[j], cc, plans[relay, kind, 0],
+                                         plans[relay, kind, 1])
+    # the sub-interval's share of the period's integrals (current near-linear inside it)
+    for j in range(n):
+        dt = DT[j]
+        i0, vc0, i1, vc1 = I[j], VC[j], X1[j], X2[j]
+        m = M[j] if dt > 0.0 else MPREV[j]
+        Q[j] += dt * (i0 + i1) * 0.5
+        Q2[j] += dt * (i0 * i0 + i0 * i1 + i1 * i1) * THIRD
+        EIN[j] += dt * VS[j] * (i0 + i1) * 0.5
+        VB[j] += dt * ((vc0 + rc * (m * i0 - ICP[j])) * K_[j] + (vc1 + rc * (m * i1 - ICP[j])) * K_[j]) * 0.5
+        IMAX[j] = max(IMAX[j], i1)
+        IMIN[j] = min(IMIN[j], i1)
+        I[j], VC[j], MPREV[j] = i1, vc1, m
+
+
+@jit
+def _switching_period(par, plans, ws, n):
+    """One switching period of every lane, sub-interval by sub-interval.  The exact solver
+    runs over all lanes at once (loops the compiler vectorises) with the step plan of a
+    closed limiter relay; a lane whose diode current starts at zero or reaches zero in the
+    sub-interval, or whose relay is open, is then done again alone by ``segment``.  Either
+    way a lane's numbers are its own."""
+    rc = par[P_ESR]
+    ICP, K_, I, VC, MPREV = ws[W_ICP], ws[W_K], ws[W_I], ws[W_VC], ws[W_MPREV]
     Q, Q2, EIN, VB, IMAX, IMIN = ws[W_Q], ws[W_Q2], ws[W_EIN], ws[W_VB], ws[W_IMAX], ws[W_IMIN]
     for j in range(n):
         ws[W_ISTART, j] = I[j]
@@ -396,57 +461,16 @@ def _switching_period(par, plans, ws, n):
     for seg in range(7):
         kind = PLAN_DEAD if seg % 2 == 1 else PLAN_HALF
         pieces, order = plans[0, kind, 0], plans[0, kind, 1]
-        DT, VS, MP, MN = ws[W_DT + seg], ws[W_VS + seg], ws[W_MP + seg], ws[W_MN + seg]
-        # matrices for conduction in the current's direction (forced: switches both ways)
+        DT = ws[W_DT + seg]
+        # a sub-interval of zero length in every lane (the dead time at T/2, mostly) changes
+        # nothing: passed over
+        empty = True
         for j in range(n):
-            m = MP[j] if (MP[j] == MN[j] or I[j] > 0.0) else MN[j]
-            km = m * K_[j]
-            A11[j] = -(RPATH[j] + km * rc * m) * inv_L
-            A12[j] = -km * inv_L
-            A21[j] = km * inv_C
-            B1[j] = (VS[j] + km * rc * ICP[j]) * inv_L
-            M[j] = m
-            X1[j], X2[j] = I[j], VC[j]
-            H[j] = DT[j] * INV[pieces]
-            P11[j], P12[j], P21[j], P22[j] = H[j] * A11[j], H[j] * A12[j], H[j] * A21[j], H[j] * A22[j]
-        for _ in range(pieces):
-            for j in range(n):
-                V1[j] = A11[j] * X1[j] + A12[j] * X2[j] + B1[j]
-                V2[j] = A21[j] * X1[j] + A22[j] * X2[j] + B2[j]
-                Y1[j], Y2[j] = V1[j], V2[j]
-            for kk in range(1, order):
-                c = INV_FACT[kk]
-                for j in range(n):
-                    v1 = P11[j] * V1[j] + P12[j] * V2[j]
-                    v2 = P21[j] * V1[j] + P22[j] * V2[j]
-                    V1[j], V2[j] = v1, v2
-                    Y1[j] += c * v1
-                    Y2[j] += c * v2
-            for j in range(n):
-                X1[j] += H[j] * Y1[j]
-                X2[j] += H[j] * Y2[j]
-        # lanes the common step does not cover: done again, alone and exactly
-        for j in range(n):
-            i0, i1 = I[j], X1[j]
-            forced = MP[j] == MN[j]
-            if DT[j] > 0.0 and (SLOW[j] != 0.0 or (not forced and (i0 == 0.0 or (i0 > 0.0 and i1 < 0.0)
-                                                                      or (i0 < 0.0 and i1 > 0.0)))):
-                relay = 1 if SLOW[j] != 0.0 else 0
-                cc = (inv_L, inv_C, K_[j], rc, RPATH[j], A22[j], B2[j], G[j], ICP[j])
-                X1[j], X2[j], M[j] = segment(i0, VC[j], DT[j], MP[j], MN[j], VS[j], cc, plans[relay, kind, 0],
-                                             plans[relay, kind, 1])
-        # the sub-interval's share of the period's integrals (current near-linear inside it)
-        for j in range(n):
-            dt = DT[j]
-            i0, vc0, i1, vc1 = I[j], VC[j], X1[j], X2[j]
-            m = M[j] if dt > 0.0 else MPREV[j]
-            Q[j] += dt * (i0 + i1) * 0.5
-            Q2[j] += dt * (i0 * i0 + i0 * i1 + i1 * i1) * THIRD
-            EIN[j] += dt * VS[j] * (i0 + i1) * 0.5
-            VB[j] += dt * ((vc0 + rc * (m * i0 - ICP[j])) * K_[j] + (vc1 + rc * (m * i1 - ICP[j])) * K_[j]) * 0.5
-            IMAX[j] = max(IMAX[j], i1)
-            IMIN[j] = min(IMIN[j], i1)
-            I[j], VC[j], MPREV[j] = i1, vc1, m
+            if DT[j] > 0.0:
+                empty = False
+                break
+        if not empty:
+            _solve_segment(par, plans, ws, n, seg, kind, pieces, order)
         if seg == 2:  # the ADC sample at T/2
             for j in range(n):
                 ws[W_IS, j] = I[j]

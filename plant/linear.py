@@ -1,6 +1,6 @@
 """Step plan of the exact solution of 2-state linear systems ``x' = A x + b``.
 
-``x(t) = x0 + t * sum_{j>=1} (t A)^(j-1)/j! (A x0 + b)`` summed by Horner (``plant.kernel.advance``)
+``x(t) = x0 + t * sum_{j>=1} (t A)^(j-1)/j! (A x0 + b)`` (``plant.kernel``) summed
 to an order chosen from a bound on ``|A| t`` so that the truncation error stays below
 1e-16 relative (the series of the matrix exponential, not an Euler step); steps
 with ``|A| t > 0.5`` are split.  The bound holds in whatever norm the caller took it in
