@@ -2,12 +2,14 @@
 from __future__ import annotations
 
 import numpy as np
+import pytest
 
 from harness.loop import run
 from harness.scenario import Event, Scenario
 
 
-def test_batch_equals_single_runs_bit_for_bit(demo_project, demo_built):
+@pytest.mark.parametrize("model", ["switching", "averaged"])
+def test_batch_equals_single_runs_bit_for_bit(demo_project, demo_built, model):
     scns = [
         Scenario(duration_s=0.07, vrms_V=230.0, freq_Hz=50.0, load_kind="resistive", load_power_W=1500.0),
         Scenario(duration_s=0.07, vrms_V=100.0, freq_Hz=60.0, phase_deg=40.0, load_kind="constant_power",
@@ -16,9 +18,9 @@ def test_batch_equals_single_runs_bit_for_bit(demo_project, demo_built):
         Scenario(duration_s=0.07, vrms_V=264.0, freq_Hz=47.0, load_kind="resistive", load_power_W=300.0,
                  gain_error=(0.01, -0.01, 0.005), offset_counts=(2.0, -1.0, 0.0), noise_counts=(0.8, 0.8, 0.8), seed=3),
     ]
-    batch = run(demo_project, scns, progress=False, built=demo_built)
+    batch = run(demo_project, scns, model=model, progress=False, built=demo_built)
     assert np.any(batch.data["gates"] != 0)  # the run got as far as switching
     for k, s in enumerate(scns):
-        alone = run(demo_project, [s], progress=False, built=demo_built)
+        alone = run(demo_project, [s], model=model, progress=False, built=demo_built)
         for name, arr in alone.data.items():
             assert np.array_equal(arr[:, 0], batch.data[name][:, k]), (k, name)
