@@ -125,13 +125,8 @@ class Controllers:
     def step(self, codes: np.ndarray) -> np.ndarray:
         """One period for every instance (one C call); returns a copy of the outputs."""
         self.adc_view[:] = codes
-        self.step_in_place()
-        return self.pwm_view.copy()
-
-    def step_in_place(self) -> None:
-        """One period for every instance on the codes already in ``adc_view``; the outputs
-        are left in ``pwm_view``."""
         self._batch(self.ctrl, self.adc, self.pwm, self.n)
+        return self.pwm_view.copy()
 
     def recorder(self, pwm_rec: np.ndarray, probe_rec: np.ndarray):
         """``record(k)``: step every instance, then copy the outputs into ``pwm_rec[k + 1]``

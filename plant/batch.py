@@ -103,10 +103,6 @@ class Plant:
     def freq(self) -> np.ndarray:
         return self.lane[:, K.L_FREQ]
 
-    def source_voltage(self, t_s: float) -> np.ndarray:
-        """Source voltage (V) of every lane at ``t_s`` after the present period start."""
-        return np.array([K.source(self.lane, self.harm, j, 1.0, t_s) for j in range(self.n)])
-
     # -- events --------------------------------------------------------------------------
     def dip(self, j: int, residual: float, until_s: float) -> None:
         """Line of lane ``j`` at ``residual`` of its amplitude until ``until_s`` (s, run time)."""

@@ -162,18 +162,11 @@ def segment(i, vc, dt, m_pos, m_neg, vs, cc, pieces, order):
 
 
 # -- the grid source -----------------------------------------------------------------------
-@jit
-def source(lane, harm, j, scale, t):
-    """Source voltage (V) of lane ``j`` at ``t`` s after the present period start;
-    ``harm[j, h] = (order, amplitude fraction, phase rad)``, shape (n, orders, 3)."""
-    th = lane[j, L_THETA]
-    return source_at(lane, harm, j, scale, t, math.sin(th), math.cos(th))
-
-
 @jit_inline
 def source_at(lane, harm, j, scale, t, s0, c0):
-    """``source`` with ``s0, c0`` = sin, cos of the phase at the period start: the
-    fundamental by angle addition, with sin and cos of the small advance ``x = 2 pi f t``
+    """Source voltage (V) of lane ``j`` at ``t`` s after the present period start;
+    ``harm[j, h] = (order, amplitude fraction, phase rad)``, shape (n, orders, 3); ``s0, c0``
+    = sin, cos of the phase at the period start.  The fundamental by angle addition, with sin and cos of the small advance ``x = 2 pi f t``
     from their series (to below 1e-18 for |x| <= 0.05 rad; larger ``x`` by the library)."""
     x = TWO_PI * lane[j, L_FREQ] * t
     sx, cx = small_sin_cos(x)
@@ -216,7 +209,7 @@ def period_averaged(par, plans, lane, harm, j, scale, compare, gates, G, Icp, r_
     # fraction of the period the fast midpoint is on the plus rail, by current sign
     m_pos = (1.0 - f_lo * lo_on) - qb_pos
     m_neg = f_hi * hi_on - qb_neg
-    vs = source(lane, harm, j, scale, T / 2.0)
+    vs = source_at(lane, harm, j, scale, T / 2.0, lane[j, L_S0], lane[j, L_C0])
     i0, vc0 = lane[j, L_I], lane[j, L_VC]
     cc = circuit(Lt, C, rc, r_path, G, Icp)
     i1, vc1, m = segment(i0, vc0, T, m_pos, m_neg, vs, cc, plans[relay, PLAN_PERIOD, 0], plans[relay, PLAN_PERIOD, 1])
@@ -303,7 +296,7 @@ def workspace(n: int) -> np.ndarray:
 
 
 @jit
-def _period_setup(par, lane, harm, k, t, compare, gates, ws, switching):
+def _period_setup(par, lane, harm, t, compare, gates, ws, switching):
     """Per lane: dip, inrush relay, load terms and what stays fixed over the period; for the
     switching model also each sub-interval's duration, source voltage at its midpoint and
     midpoint difference ``m`` for positive and negative current."""
@@ -486,7 +479,7 @@ def step_lanes(par, plans, lane, harm, seed, k, t, model, compare, gates, codes,
     n = lane.shape[0]
     T = par[P_T]
     switching = model == MODEL_SWITCHING
-    _period_setup(par, lane, harm, k, t, compare, gates, ws, switching)
+    _period_setup(par, lane, harm, t, compare, gates, ws, switching)
     if switching:
         _switching_period(par, plans, ws, n)
         rc, f = par[P_ESR], 1.0 / T
