@@ -1,4 +1,4 @@
-"""The plant's arithmetic, one lane at a time, compiled with numba when it is installed.
+"""The plant's arithmetic for a batch of lanes, compiled with numba when it is installed.
 
 Everything here is plain Python on floats and numpy arrays: with numba the functions are
 compiled to machine code (``@jit``), without it they run as they are (same results, far
@@ -58,7 +58,7 @@ LANE_ROWS = 23  # L_S0, L_C0: sin and cos of L_THETA, carried along by rotation
  P_UVLO, P_FULL, P_VAC_CPV, P_VAC_OFF, P_IL_CPA, P_IL_OFF, P_VBUS_CPV) = range(21)  # CPV/CPA: counts per V/A
 PAR_ROWS = 21
 
-# plant records per period (rows of ``rec[k]``), in this order
+# plant records per period (columns of ``out``, shape (n, len(FIELDS))), in this order
 FIELDS = ("vs_V", "vterm_V", "i_avg_A", "i_max_A", "i_min_A", "i_sample_A", "vbus_V", "vbus_sample_V", "e_in_J",
           "e_out_J", "e_loss_J")
 (R_VS, R_VTERM, R_IAVG, R_IMAX, R_IMIN, R_ISAMPLE, R_VBUS, R_VBSAMPLE, R_EIN, R_EOUT, R_ELOSS) = range(len(FIELDS))
