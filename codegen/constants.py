@@ -144,6 +144,9 @@ def build_constants(cfg: Config, r: Resolved, tun: Tuning, iline_peak_A: float) 
     g = "Supervisor and protection"
     add(g, "OV_TRIP_V", r.ov_trip_V, "f", "V", "bus over-voltage trip", "[protection] ov_trip", (VB, 15))
     add(g, "OC_TRIP_A", r.oc_trip_A, "f", "A", "inductor over-current trip", "[protection] oc_trip", (IB, 15))
+    add(g, "DIODE_MARGIN_V", 0.02 * s.vout, "f", "V",
+        "|v_line| within this of the bus counts as at or above it: over-current there is the line rectified "
+        "through the body diodes (recorded, not tripped on)", "rule: 2 % of [spec] vout", (VB, 15))
     add(g, "PRECHARGE_K", 2.0 * 0.85**2, "f", "1", "bus counts as precharged when vbus^2 >= K x ms (85 % of the line peak)", "rule: 0.85 x line peak", (1.0, 15))
     add(g, "LINE_LOSS_PERIODS", max(1, round(pr.line_loss_time * fsw)), "u", "periods", "|v| below blanking this long = line loss", "[protection] line_loss_time x fsw")
     add(g, "LINE_LOSS_RESET_PERIODS", _u(0.5 * fsw), "u", "periods", "outage after which the start is afresh", "rule: 0.5 s")

@@ -216,8 +216,9 @@ def test_step_arbitrary_adc_stays_in_range(demo_built, seq, repeat, stuck):
 
 def test_supervisor_trip_rules(demo_project, demo_built):
     """Over-current while switching trips (gates off in the same period) and counts toward the
-    latch; the same current while the gates are already off (the line rectified through the
-    body diodes) is recorded but neither counted nor allowed to hold off the restart."""
+    latch; the same current while the gates are already off, or while the line is at or above
+    the bus (either way the line rectified through the body diodes), is recorded but neither
+    counted nor allowed to hold off the restart."""
     ffi, lib = demo_built.ffi, demo_built.lib
     c = consts(demo_project)
     oc = c["OC_TRIP_A"] * 1.2
@@ -243,6 +244,18 @@ def test_supervisor_trip_rules(demo_project, demo_built):
         m = step(-oc)  # either sign of current
         assert sv.trips == n
         assert m == (lib.PFC_MODE_LATCHED if n == c["RETRY_LIMIT"] else lib.PFC_MODE_TRIPPED)
+    # switching with the line at or above the bus (within DIODE_MARGIN_V): the current is the
+    # line rectified through the body diodes, recorded and not tripped on
+    lib.pfc_supervisor_init(sv)
+    sv.mode = lib.PFC_MODE_RUN
+    rm.brown = 0  # a healthy line otherwise, so that RUN stays RUN
+    sn.vac_V = sn.vbus_V - 0.9 * c["DIODE_MARGIN_V"]
+    assert step(oc) == lib.PFC_MODE_RUN and sv.trips == 0 and sv.history & lib.PFC_FAULT_OC
+    sn.vac_V = -sn.vac_V  # either polarity
+    assert step(oc) == lib.PFC_MODE_RUN and sv.trips == 0
+    sn.vac_V = sn.vbus_V - 1.1 * c["DIODE_MARGIN_V"]  # just below: the converter has control, a trip
+    assert step(oc) == lib.PFC_MODE_TRIPPED and sv.trips == 1
+    sn.vac_V = 0.0
     # tripped: further over-current (diode conduction, gates off) does not restart the retry delay
     lib.pfc_supervisor_init(sv)
     sv.mode = lib.PFC_MODE_RUN
