@@ -98,16 +98,29 @@ class Case:
                         gain_error=self.gain_error, offset_counts=self.offset_counts, seed=self.seed, name=name)
 
 
-def case_strategy(max_event_cycles: float = 12.0):
-    """Line 85..265 Vrms, 45..66 Hz, grid distortion, sensor noise (<= 1.5 codes rms), offsets
-    (<= 3 codes), gain errors (<= 1 %), load 10..100 %, IEC 61000-4-11 dips and interruptions
-    at any phase (durations capped at ``max_event_cycles`` for bounded campaigns), load steps."""
+LINE_MARGIN = 1.03  # lowest line drawn: this much above the brown-out restart level (estimator and sensor errors)
+
+
+def line_ranges(prj: Project) -> tuple[tuple[float, float], tuple[float, float]]:
+    """The lines a design must run on, (Vrms range, Hz range): from just above its brown-out
+    restart level (power derated below ``vin_rms_min``) to its rated ``vin_rms_max``, over its
+    accepted frequency band.  A line beyond them is for the protection to refuse, not a case
+    whose recovery the campaign may demand."""
+    pr = prj.config.protection
+    return (LINE_MARGIN * prj.resolved.brownout_on_rms_V, prj.config.spec.vin_rms_max), (pr.freq_min, pr.freq_max)
+
+
+def case_strategy(max_event_cycles: float = 12.0, vrms_range=(85.0, 265.0), freq_range=(45.0, 66.0)):
+    """Line over ``vrms_range`` (Vrms) and ``freq_range`` (Hz), grid distortion, sensor noise
+    (<= 1.5 codes rms), offsets (<= 3 codes), gain errors (<= 1 %), load 10..100 %,
+    IEC 61000-4-11 dips and interruptions at any phase (durations capped at
+    ``max_event_cycles`` for bounded campaigns), load steps."""
     fl = dict(allow_nan=False, allow_infinity=False)
     triple = lambda lo, hi: st.tuples(*(st.floats(lo, hi, **fl) for _ in range(3)))  # noqa: E731
 
     @st.composite
     def draw(d):
-        f = d(st.floats(45.0, 66.0, **fl))
+        f = d(st.floats(*freq_range, **fl))
         ev = d(st.sampled_from(["none", "dip", "dip", "dip", "load"]))
         res, cyc = 1.0, 0.0
         if ev == "dip":
@@ -115,7 +128,7 @@ def case_strategy(max_event_cycles: float = 12.0):
             res = level[0]
             cyc = min(level[1] if f < 55.0 else level[2], max_event_cycles)
         return Case(
-            vrms_V=d(st.floats(85.0, 265.0, **fl)), freq_Hz=f,
+            vrms_V=d(st.floats(*vrms_range, **fl)), freq_Hz=f,
             load_kind=d(st.sampled_from(["resistive", "constant_power"])), load_frac=d(st.floats(0.1, 1.0, **fl)),
             h3=d(st.floats(0.0, 0.04, **fl)), h3_deg=d(st.floats(0.0, 360.0, **fl)),
             h5=d(st.floats(0.0, 0.03, **fl)), h5_deg=d(st.floats(0.0, 360.0, **fl)),
@@ -127,13 +140,14 @@ def case_strategy(max_event_cycles: float = 12.0):
     return draw()
 
 
-def draw_cases(n: int, seed: int, max_event_cycles: float = 12.0) -> list[Case]:
+def draw_cases(n: int, seed: int, max_event_cycles: float = 12.0, vrms_range=(85.0, 265.0),
+               freq_range=(45.0, 66.0)) -> list[Case]:
     """``n`` cases drawn by hypothesis, reproducibly from ``seed`` (groups of ``GROUP`` cases
     per hypothesis example, so each example stays within hypothesis's size budget)."""
     from hypothesis import seed as hseed
 
     out: list[Case] = []
-    strat = case_strategy(max_event_cycles)
+    strat = case_strategy(max_event_cycles, vrms_range, freq_range)
     group = 8
 
     # hypothesis opens with its simplest example (the same case drawn over and over, which the
@@ -364,10 +378,12 @@ class CampaignResult:
 def campaign(prj: Project, n: int, seed: int = 0, workers: int = 1, batch: int = 128, out_dir=None,
              max_event_cycles: float = 12.0, do_shrink: bool = True, log=print, built=None) -> CampaignResult:
     t0 = time.perf_counter()
-    cases = draw_cases(n, seed, max_event_cycles)
+    vrms_range, freq_range = line_ranges(prj)
+    cases = draw_cases(n, seed, max_event_cycles, vrms_range, freq_range)
     chunks = [cases[i:i + batch] for i in range(0, len(cases), batch)]
     verdicts: list[Verdict] = []
-    log(f"fuzz: {n} cases in {len(chunks)} batch(es) of <= {batch}, {workers} worker(s), seed {seed}")
+    log(f"fuzz: {n} cases in {len(chunks)} batch(es) of <= {batch}, {workers} worker(s), seed {seed}; line "
+        f"{vrms_range[0]:.1f}..{vrms_range[1]:.1f} Vrms, {freq_range[0]:g}..{freq_range[1]:g} Hz")
     if workers > 1 and len(chunks) > 1:
         ctx = mp.get_context("fork")
         with ctx.Pool(workers) as pool:
