@@ -296,3 +296,28 @@ def test_silent_serial_target_times_out(demo_project):
         tr.close()
         os.close(slave)
         os.close(master)
+
+
+def test_pil_cli_writes_the_partial_report_when_the_target_stops(demo_path, tmp_path, capsys):
+    """A board that stops answering mid-run: exit status 1 within the timeout, a clear error,
+    and the JSON report of the periods run so far."""
+    import json
+    import threading
+
+    from harness.cli import main
+    from harness.project import load_project
+
+    tgt = HostBehindPty(load_project(demo_path))
+    freeze = threading.Timer(0.4, lambda: os.kill(tgt.proc.pid, signal.SIGSTOP))
+    try:
+        out = tmp_path / "pil.json"
+        freeze.start()
+        code = main(["pil", str(demo_path), "--target", "serial", "--port", tgt.port, "--duration", "2.0",
+                     "--timeout", "0.2", "--json", str(out)])
+        doc = json.loads(out.read_text())
+    finally:
+        freeze.cancel()
+        tgt.close()
+    assert code == 1
+    assert "no answer" in doc["aborted"] and "no answer" in capsys.readouterr().err
+    assert 0 < doc["periods"] < 2.0 * 65000  # stopped part-way, what was run is reported
