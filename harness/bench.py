@@ -18,7 +18,7 @@ import time
 import numpy as np
 
 from plant.batch import FIELDS as PLANT_FIELDS
-from plant.kernel import LANE_ROWS
+from plant.kernel import LANE_ROWS, WS_ROWS
 
 from .loop import run
 from .project import Project, build_of
@@ -110,6 +110,7 @@ def bench(prj: Project, sizes=(1, 16, 256, 1024), log=print) -> dict:
         "controller_state": ffi.sizeof(f"{p}_ctrl_t"),
         "controller_io": ffi.sizeof(f"{p}_adc_t") + ffi.sizeof(f"{p}_pwm_t") + 16,
         "plant_state": 8 * LANE_ROWS + 8,  # the kernel's lane rows and the noise seed
+        "plant_workspace": 8 * WS_ROWS,  # the switching solver's scratch rows
         "records_per_period": 8 * len(PLANT_FIELDS) + ffi.sizeof(f"{p}_pwm_t") + 16,
     }
     out["targets"] = TARGETS
