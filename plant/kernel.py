@@ -474,8 +474,8 @@ def _switching_period(par, plans, ws, n):
 def step_lanes(par, plans, lane, harm, seed, k, t, model, compare, gates, codes, out, ws):
     """Advance every lane by period ``k`` (starting at ``t`` s) with the given compare
     (timer counts) and gate masks; write the ADC codes sampled in it into ``codes`` (n, 3)
-    and the period's records into ``out`` (n, len(FIELDS)); ``ws`` is scratch space
-    (WS_ROWS, n)."""
+    and the period's records into ``out`` (n, len(FIELDS)); ``ws`` is scratch space from
+    ``workspace(n)``."""
     n = lane.shape[0]
     T = par[P_T]
     switching = model == MODEL_SWITCHING
