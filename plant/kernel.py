@@ -384,23 +384,30 @@ def _solve_segment(par, plans, ws, n, seg, kind, pieces, order):
     P11, P12, P21, P22 = ws[W_P11], ws[W_P12], ws[W_P21], ws[W_P22]
     Q, Q2, EIN, VB, IMAX, IMIN = ws[W_Q], ws[W_Q2], ws[W_EIN], ws[W_VB], ws[W_IMAX], ws[W_IMIN]
     DT, VS, MP, MN = ws[W_DT + seg], ws[W_VS + seg], ws[W_MP + seg], ws[W_MN + seg]
-    # matrices for conduction in the current's direction (forced: switches both ways)
+    # matrices for conduction in the current's direction (forced: switches both ways), and
+    # the first term of the series
     for j in range(n):
         m = MP[j] if (MP[j] == MN[j] or I[j] > 0.0) else MN[j]
         km = m * K_[j]
-        A11[j] = -(RPATH[j] + km * rc * m) * inv_L
-        A12[j] = -km * inv_L
-        A21[j] = km * inv_C
-        B1[j] = (VS[j] + km * rc * ICP[j]) * inv_L
-        M[j] = m
-        X1[j], X2[j] = I[j], VC[j]
-        H[j] = DT[j] * INV[pieces]
-        P11[j], P12[j], P21[j], P22[j] = H[j] * A11[j], H[j] * A12[j], H[j] * A21[j], H[j] * A22[j]
-    for _ in range(pieces):
-        for j in range(n):
-            V1[j] = A11[j] * X1[j] + A12[j] * X2[j] + B1[j]
-            V2[j] = A21[j] * X1[j] + A22[j] * X2[j] + B2[j]
-            Y1[j], Y2[j] = V1[j], V2[j]
+        a11 = -(RPATH[j] + km * rc * m) * inv_L
+        a12 = -km * inv_L
+        a21 = km * inv_C
+        b1 = (VS[j] + km * rc * ICP[j]) * inv_L
+        A11[j], A12[j], A21[j], B1[j], M[j] = a11, a12, a21, b1, m
+        h = DT[j] * INV[pieces]
+        H[j] = h
+        P11[j], P12[j], P21[j], P22[j] = h * a11, h * a12, h * a21, h * A22[j]
+        x1, x2 = I[j], VC[j]
+        X1[j], X2[j] = x1, x2
+        v1 = a11 * x1 + a12 * x2 + b1
+        v2 = a21 * x1 + A22[j] * x2 + B2[j]
+        V1[j], V2[j], Y1[j], Y2[j] = v1, v2, v1, v2
+    for piece in range(pieces):
+        if piece > 0:  # a later piece starts from where the last one ended
+            for j in range(n):
+                v1 = A11[j] * X1[j] + A12[j] * X2[j] + B1[j]
+                v2 = A21[j] * X1[j] + A22[j] * X2[j] + B2[j]
+                V1[j], V2[j], Y1[j], Y2[j] = v1, v2, v1, v2
         for kk in range(1, order):
             c = INV_FACT[kk]
             for j in range(n):
@@ -412,21 +419,20 @@ def _solve_segment(par, plans, ws, n, seg, kind, pieces, order):
         for j in range(n):
             X1[j] += H[j] * Y1[j]
             X2[j] += H[j] * Y2[j]
-    # lanes the common step does not cover: done again, alone and exactly
-    for j in range(n):
-        i0, i1 = I[j], X1[j]
-        forced = MP[j] == MN[j]
-        if DT[j] > 0.0 and (SLOW[j] != 0.0 or (not forced and (i0 == 0.0 or (i0 > 0.0 and i1 < 0.0)
-                                                                  or (i0 < 0.0 and i1 > 0.0)))):
-            relay = 1 if SLOW[j] != 0.0 else 0
-            cc = (inv_L, inv_C, K_[j], rc, RPATH[j], A22[j], B2[j], G[j], ICP[j])
-            X1[j], X2[j], M[j] = segment(i0, VC[j], DT[j], MP[j], MN[j], VS[j], cc, plans[relay, kind, 0],
-                                         plans[relay, kind, 1])
-    # the sub-interval's share of the period's integrals (current near-linear inside it)
+    # lanes the common step does not cover are done again, alone and exactly; then each
+    # sub-interval's share of the period's integrals (current near-linear inside it)
     for j in range(n):
         dt = DT[j]
         i0, vc0, i1, vc1 = I[j], VC[j], X1[j], X2[j]
-        m = M[j] if dt > 0.0 else MPREV[j]
+        m = M[j]
+        forced = MP[j] == MN[j]
+        if dt > 0.0 and (SLOW[j] != 0.0 or (not forced and (i0 == 0.0 or (i0 > 0.0 and i1 < 0.0)
+                                                              or (i0 < 0.0 and i1 > 0.0)))):
+            relay = 1 if SLOW[j] != 0.0 else 0
+            cc = (inv_L, inv_C, K_[j], rc, RPATH[j], A22[j], B2[j], G[j], ICP[j])
+            i1, vc1, m = segment(i0, vc0, dt, MP[j], MN[j], VS[j], cc, plans[relay, kind, 0], plans[relay, kind, 1])
+        if not dt > 0.0:
+            m = MPREV[j]
         Q[j] += dt * (i0 + i1) * 0.5
         Q2[j] += dt * (i0 * i0 + i0 * i1 + i1 * i1) * THIRD
         EIN[j] += dt * VS[j] * (i0 + i1) * 0.5
