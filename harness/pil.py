@@ -6,7 +6,9 @@ and compares it with the in-process run period by period.
 Transports (each ``write(bytes)``, ``read(timeout_s) -> bytes``, ``close()``):
 ``PipeTransport`` (a child's stdin/stdout: the host port) and ``SerialTransport``
 (pyserial: a real port such as ``/dev/ttyUSB0``, a pseudo-terminal, or any pyserial URL
-such as ``socket://127.0.0.1:4000``).  QEMU's UART is put on a pseudo-terminal and read
+such as ``socket://127.0.0.1:4000``; a TCP serial server should send small writes at once,
+e.g. QEMU's ``-serial tcp:...,server=on,nodelay=on``, or every answer waits for a delayed
+acknowledgement).  QEMU's UART is put on a pseudo-terminal and read
 through ``SerialTransport``, the same code a real board uses.
 """
 from __future__ import annotations
@@ -16,6 +18,7 @@ import os
 import re
 import select
 import shutil
+import socket
 import subprocess
 import tempfile
 import time
@@ -83,6 +86,9 @@ class SerialTransport:
         except (serial.SerialException, ValueError) as exc:
             raise link.LinkError(f"cannot open serial port {port!r} at {baud} baud: {exc}") from None
         self.ser.reset_input_buffer()
+        sock = getattr(self.ser, "_socket", None)  # a socket:// port: one frame per request, send it now
+        if sock is not None:
+            sock.setsockopt(socket.IPPROTO_TCP, socket.TCP_NODELAY, 1)
         self.port, self.baud, self.proc = port, baud, proc
 
     def write(self, data: bytes) -> None:

@@ -321,3 +321,45 @@ def test_pil_cli_writes_the_partial_report_when_the_target_stops(demo_path, tmp_
     assert code == 1
     assert "no answer" in doc["aborted"] and "no answer" in capsys.readouterr().err
     assert 0 < doc["periods"] < 2.0 * 65000  # stopped part-way, what was run is reported
+
+
+@pytest.mark.slow
+@pytest.mark.skipif(not QEMU, reason="qemu-system-arm not installed (Debian: qemu-system-arm)")
+def test_qemu_m4f_over_a_loopback_socket(demo_path, tmp_path):
+    """The emulated board's UART on a loopback TCP socket, reached as a pyserial URL by
+    ``pfcrig pil --target serial --port socket://...``: same outputs, same state, a cost."""
+    import json
+    import socket
+    import time
+
+    from codegen import target
+    from harness.cli import main
+    from harness.pil import QEMU_CMD, build_qemu_target
+    from harness.project import load_project
+
+    if not target.available():
+        pytest.skip("arm-none-eabi-gcc not installed")
+    elf = build_qemu_target(load_project(demo_path))
+    s = socket.socket()
+    s.bind(("127.0.0.1", 0))
+    port = s.getsockname()[1]
+    s.close()
+    cmd = [a for a in QEMU_CMD if a not in ("-serial", "pty")]
+    q = subprocess.Popen([*cmd, "-serial", f"tcp:127.0.0.1:{port},server=on,wait=off,nodelay=on", "-kernel", str(elf)],
+                         stdin=subprocess.DEVNULL, stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL)
+    try:
+        for _ in range(100):  # until QEMU listens
+            try:
+                socket.create_connection(("127.0.0.1", port), timeout=0.1).close()
+                break
+            except OSError:
+                time.sleep(0.05)
+        out = tmp_path / "pil.json"
+        code = main(["pil", str(demo_path), "--target", "serial", "--port", f"socket://127.0.0.1:{port}",
+                     "--duration", "0.03", "--timeout", "5", "--json", str(out)])
+        doc = json.loads(out.read_text())
+    finally:
+        q.kill()
+        q.wait()
+    assert code == 0 and doc["equivalence"]["equal"] and doc["equivalence"]["final_state_equal"]
+    assert doc["cost_on_target"]["steps"] == doc["periods"] and doc["cost_on_target"]["max"] > 0
