@@ -101,6 +101,20 @@ def vbus_of(m, i, vc, G, Icp, rc):
 
 
 @jit_inline
+def bus_k(m, i, vc, Icp, rc, k):
+    """Bus terminal voltage (V) with ``k = 1/(1 + ESR G)`` already formed (a product, no division)."""
+    return (vc + rc * (m * i - Icp)) * k
+
+
+@jit_inline
+def conduction(m, k, rc, r_path, vs, Icp, inv_L, inv_C):
+    """(a11, a12, a21, b1) of ``x' = A x + b`` with the midpoint difference ``m``; a22 and b2
+    do not depend on it (``circuit``)."""
+    km = m * k
+    return -(r_path + km * rc * m) * inv_L, -km * inv_L, km * inv_C, (vs + km * rc * Icp) * inv_L
+
+
+@jit_inline
 def circuit(Lt, C, rc, r_path, G, Icp):
     """What stays fixed over a period: (1/L, 1/C, k = 1/(1 + ESR G), ESR, path resistance,
     a22, b2, G, Icp) of ``x' = A x + b`` (products only, no division, in each piece)."""
@@ -137,10 +151,7 @@ def segment(i, vc, dt, m_pos, m_neg, vs, cc, pieces, order):
         if zero:  # the inductor carries nothing: only the capacitor moves
             a11 = a12 = a21 = b1 = 0.0
         else:
-            a11 = -(r_path + k * rc * m * m) * inv_L
-            a12 = -m * k * inv_L
-            a21 = m * k * inv_C
-            b1 = (vs + m * k * rc * Icp) * inv_L
+            a11, a12, a21, b1 = conduction(m, k, rc, r_path, vs, Icp, inv_L, inv_C)
         t = remaining
         i1, vc1 = advance(a11, a12, a21, a22, b1, b2, i, vc, t, pieces, order)
         m_used = m
@@ -388,11 +399,7 @@ def _solve_segment(par, plans, ws, n, seg, kind, pieces, order):
     # the first term of the series
     for j in range(n):
         m = MP[j] if (MP[j] == MN[j] or I[j] > 0.0) else MN[j]
-        km = m * K_[j]
-        a11 = -(RPATH[j] + km * rc * m) * inv_L
-        a12 = -km * inv_L
-        a21 = km * inv_C
-        b1 = (VS[j] + km * rc * ICP[j]) * inv_L
+        a11, a12, a21, b1 = conduction(m, K_[j], rc, RPATH[j], VS[j], ICP[j], inv_L, inv_C)
         A11[j], A12[j], A21[j], B1[j], M[j] = a11, a12, a21, b1, m
         h = DT[j] * INV[pieces]
         H[j] = h
@@ -436,7 +443,7 @@ def _solve_segment(par, plans, ws, n, seg, kind, pieces, order):
         Q[j] += dt * (i0 + i1) * 0.5
         Q2[j] += dt * (i0 * i0 + i0 * i1 + i1 * i1) * THIRD
         EIN[j] += dt * VS[j] * (i0 + i1) * 0.5
-        VB[j] += dt * ((vc0 + rc * (m * i0 - ICP[j])) * K_[j] + (vc1 + rc * (m * i1 - ICP[j])) * K_[j]) * 0.5
+        VB[j] += dt * (bus_k(m, i0, vc0, ICP[j], rc, K_[j]) + bus_k(m, i1, vc1, ICP[j], rc, K_[j])) * 0.5
         IMAX[j] = max(IMAX[j], i1)
         IMIN[j] = min(IMIN[j], i1)
         I[j], VC[j], MPREV[j] = i1, vc1, m
@@ -473,7 +480,7 @@ def _switching_period(par, plans, ws, n):
         if seg == 2:  # the ADC sample at T/2
             for j in range(n):
                 ws[W_IS, j] = I[j]
-                ws[W_VBS, j] = (VC[j] + rc * (MPREV[j] * I[j] - ICP[j])) * K_[j]
+                ws[W_VBS, j] = bus_k(MPREV[j], I[j], VC[j], ICP[j], rc, K_[j])
 
 
 @jit
