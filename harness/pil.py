@@ -231,23 +231,23 @@ def _qemu_pty(proc: subprocess.Popen, timeout_s: float = 10.0) -> str:
 
 
 def open_target(prj: Project, target: str, port: str | None = None, baud: int = 115200):
-    """Build and start ``target`` and return its transport: ``host`` (child process),
-    ``qemu-m4f`` (QEMU, its UART on a pseudo-terminal through pyserial) or ``serial`` (a
-    board already running the target image, on ``port``)."""
+    """Build and start ``target``; returns (transport, the cross-compiled image or None):
+    ``host`` (child process), ``qemu-m4f`` (QEMU, its UART on a pseudo-terminal through
+    pyserial) or ``serial`` (a board already running the target image, on ``port``)."""
     if target == "host":
         proc = subprocess.Popen([str(build_host_target(prj))], stdin=subprocess.PIPE, stdout=subprocess.PIPE)
-        return PipeTransport(proc)
+        return PipeTransport(proc), None
     if target == "qemu-m4f":
         if shutil.which(QEMU_CMD[0]) is None:
             raise BuildError("qemu-system-arm not found: install qemu-system-arm (Debian)")
         elf = build_qemu_target(prj)
         proc = subprocess.Popen([*QEMU_CMD, "-kernel", str(elf)], stdin=subprocess.DEVNULL, stdout=subprocess.PIPE,
                                 stderr=subprocess.STDOUT)
-        return SerialTransport(_qemu_pty(proc), baud, proc=proc)
+        return SerialTransport(_qemu_pty(proc), baud, proc=proc), elf
     if target == "serial":
         if not port:
             raise ValueError("--target serial needs --port (a device such as /dev/ttyUSB0, or a pyserial URL)")
-        return SerialTransport(port, baud)
+        return SerialTransport(port, baud), None
     raise ValueError(f"unknown target {target!r}: one of {', '.join(TARGETS)}")
 
 
@@ -314,7 +314,7 @@ class PilRun:
 def run_pil(prj: Project, scn: Scenario, target: str = "host", timeout_s: float = 2.0, model: str = "switching",
             port: str | None = None, baud: int = 115200) -> PilRun:
     """Run ``scn`` with the controller on ``target`` over the link."""
-    tr = open_target(prj, target, port, baud)
+    tr, elf = open_target(prj, target, port, baud)
     sess = link.Session(tr, timeout_s=timeout_s)
     t0 = time.perf_counter()
     cost = None
@@ -326,5 +326,5 @@ def run_pil(prj: Project, scn: Scenario, target: str = "host", timeout_s: float 
             cost = sess.cost().instructions()
     finally:
         tr.close()
-    image = image_size(build_qemu_target(prj)) if target == "qemu-m4f" else None
+    image = image_size(elf) if elf is not None else None
     return PilRun(res, dict(sess.stats), time.perf_counter() - t0, cost, image)
