@@ -1,1 +1,1 @@
-"""Config loading, loop tuning, C rendering and building for pfcrig."""
+"""Rendering (jinja2) and building (cffi, cross-compilers) of the generated C."""

@@ -21,6 +21,11 @@ from dataclasses import dataclass
 from pathlib import Path
 
 import cffi
+import jinja2
+
+from design.project import Project
+
+from .render import render, render_host
 
 STRICT_FLAGS = [
     "-std=c99", "-Wall", "-Wextra", "-Wpedantic", "-Wconversion", "-Wdouble-promotion", "-Wshadow", "-Werror",
@@ -65,22 +70,33 @@ def compile_objects(src_dir: Path, out_dir: Path, cc: str = "gcc", flags: list[s
     return objs
 
 
-def cdef_from_headers(headers: list[str]) -> str:
-    """Declarations for cffi: the public headers without comments and preprocessor lines."""
+def cdef_from_headers(headers: list[str], sizes: dict[str, int] | None = None) -> str:
+    """Declarations for cffi: the public headers without comments, preprocessor lines and
+    C++ guards; array sizes given by integer macros (``[PFC_BUS_BLOCKS]``) are replaced
+    by their values from ``sizes``."""
     out = []
+    sizes = sizes or {}
     for text in headers:
         text = re.sub(r"/\*.*?\*/", "", text, flags=re.S)
         text = re.sub(r"//[^\n]*", "", text)
+        text = re.sub(r'^extern "C" \{$|^\}$', "", text, flags=re.M)
+        text = re.sub(r"\[([A-Z][A-Z0-9_]*)\]", lambda m: f"[{sizes.get(m.group(1), m.group(1))}]", text)
         out.extend(ln for ln in text.splitlines() if ln.strip() and not ln.lstrip().startswith("#"))
     return "\n".join(out)
 
 
-def _integer_macros(files: dict[str, str], prefix: str) -> str:
-    """``#define NAME 12u`` macros as cffi integer constants (``#define NAME ...``)."""
-    names = []
+def integer_macros(files: dict[str, str], prefix: str) -> dict[str, int]:
+    """Values of every ``#define PREFIX_NAME 12u`` macro in ``files``."""
+    found: dict[str, int] = {}
     for text in files.values():
-        names += re.findall(rf"^#define ({prefix.upper()}_[A-Z0-9_]+) \(?\d+u\)?", text, re.M)
-    return "\n".join(f"#define {n} ..." for n in sorted(set(names)))
+        for name, value in re.findall(rf"^#define ({prefix.upper()}_[A-Z0-9_]+) \(?(\d+)u\)?", text, re.M):
+            found[name] = int(value)
+    return found
+
+
+def _integer_macro_cdef(macros: dict[str, int]) -> str:
+    """The macros as cffi integer constants (``#define NAME ...``)."""
+    return "\n".join(f"#define {n} ..." for n in sorted(macros))
 
 
 @dataclass
@@ -139,7 +155,8 @@ def build(files: dict[str, str], prefix: str, extra_c: dict[str, str] | None = N
             order = _header_order(allf, prefix)
             headers = [allf[n] for n in order]
             ffi = cffi.FFI()
-            ffi.cdef(cdef_from_headers(headers) + "\n" + _integer_macros(allf, prefix))
+            macros = integer_macros(allf, prefix)
+            ffi.cdef(cdef_from_headers(headers, macros) + "\n" + _integer_macro_cdef(macros))
             includes = "\n".join(f'#include "{n}"' for n in order) + f'\n#include "{prefix}_config.h"\n'
             ffi.set_source(modname, includes, include_dirs=[str(src)], extra_objects=[str(o) for o in objs],
                            extra_compile_args=["-O2", "-w"])
@@ -179,3 +196,9 @@ def _header_order(files: dict[str, str], prefix: str) -> list[str]:
     for n in sorted(names):
         visit(n)
     return order
+
+
+def build_project(prj: Project, loader: jinja2.BaseLoader | None = None) -> Built:
+    """The generated controller of ``prj`` plus the host-only batch sources, compiled
+    (cached); ``loader`` renders from other templates (tests: broken controllers)."""
+    return build(render(prj, loader), prj.config.control.prefix, extra_c=render_host(prj))

@@ -3,40 +3,60 @@ from __future__ import annotations
 
 from itertools import groupby
 from pathlib import Path
+from typing import Any
 
 import jinja2
 
 from c_templates import TEMPLATE_DIR
+from design import contract
+from design.constants import build_constants
+from design.project import Project
 
-from .config import Config
-from .constants import build_constants
-from .resolve import Resolved
-from .tuning import BUS_BLOCKS, Tuning
+from .literals import c_literal
 
 VERSION = "0.1.0"
 # One template pair per block, in signal order, then the top level.
-BLOCKS = ["math", "pi", "sense", "polarity", "rms", "busavg", "vloop", "iref", "iloop", "pwm", "supervisor", "ctrl"]
-HEADER_ONLY = {"math"}
+BLOCKS = ["types", "math", "pi", "sense", "polarity", "rms", "busavg", "vloop", "iref", "iloop",
+          "pwm", "supervisor", "ctrl"]
+HEADER_ONLY = {"types", "math"}
 
 
-def _format_names(p: str, number_format: str) -> dict:
+def _units(P: str, fixed: bool) -> dict[str, str]:
+    """What a field's unit comment says in each number format: SI in float builds, the
+    per-unit base and Q format in q15 builds."""
+    if not fixed:
+        return dict(V="V", A="A", W="W", V2="V^2", inv_V="1/V", inv_V2="1/V^2", one="1")
+    return dict(V=f"per unit of {P}_V_BASE_V, Q15", A=f"per unit of {P}_I_BASE_A, Q15",
+                W=f"per unit of {P}_P_BASE_W, Q15", V2=f"per unit of {P}_V_BASE_V squared, Q30",
+                inv_V=f"{P}_V_BASE_V/v, Q15", inv_V2=f"1/(per unit of {P}_V_BASE_V)^2, Q15",
+                one="Q15")
+
+
+def _format_names(p: str, P: str, number_format: str) -> dict[str, Any]:
     """Names the templates use where the two number formats differ."""
     fixed = number_format == "q15"
-    return dict(fixed=fixed, real="int32_t" if fixed else "float", zero="0" if fixed else "0.0f",
-                abs=f"{p}_absq" if fixed else f"{p}_absf", clamp=f"{p}_clampq" if fixed else f"{p}_clampf")
+    return dict(fixed=fixed, real=f"{p}_real_t", zero="0" if fixed else "0.0f",
+                abs=f"{p}_absq" if fixed else f"{p}_absf",
+                clamp=f"{p}_clampq" if fixed else f"{p}_clampf", u=_units(P, fixed))
 
 
-def _context(cfg: Config, **extra) -> dict:
-    """What every template sees: prefix, banner fields and the number format's names."""
+def _context(prj: Project, **extra: Any) -> dict[str, Any]:
+    """What every template sees: prefix, banner fields, the number format's names and the
+    controller contract."""
+    cfg = prj.config
     p = cfg.control.prefix
-    return dict(p=p, P=p.upper(), version=VERSION, source_name=Path(cfg.source).name, digest=cfg.digest(),
-                number_format=cfg.control.number_format, vout=cfg.spec.vout,
-                **_format_names(p, cfg.control.number_format), **extra)
+    P = p.upper()
+    return dict(p=p, P=P, version=VERSION, source_name=Path(cfg.source).name,
+                digest=cfg.digest(), number_format=cfg.control.number_format, vout=cfg.spec.vout,
+                ct=contract, link=contract.LINK, **_format_names(p, P, cfg.control.number_format),
+                **extra)
 
 
-def _env() -> jinja2.Environment:
+def environment(loader: jinja2.BaseLoader | None = None) -> jinja2.Environment:
+    """The templates' environment; ``loader`` replaces the shipped templates (tests use it
+    to render deliberately broken controllers)."""
     return jinja2.Environment(
-        loader=jinja2.FileSystemLoader(str(TEMPLATE_DIR)),
+        loader=loader or jinja2.FileSystemLoader(str(TEMPLATE_DIR)),
         undefined=jinja2.StrictUndefined,
         trim_blocks=True,
         lstrip_blocks=True,
@@ -45,26 +65,19 @@ def _env() -> jinja2.Environment:
     )
 
 
-TEST_BREAKS = ("no_zc_blank",)
-
-
-def render(cfg: Config, resolved: Resolved, tuning: Tuning, iline_peak_A: float, test_break: str | None = None) -> dict[str, str]:
-    """Return {file name: C text} for every generated file.
-
-    ``test_break`` (tests only, never from a config): render a deliberately broken
-    controller, ``no_zc_blank`` (no zero-crossing window: it keeps switching in the old
-    polarity until the new one is confirmed), so the tests can show that the fault
-    campaign catches it."""
-    if test_break is not None and test_break not in TEST_BREAKS:
-        raise ValueError(f"test_break must be one of {TEST_BREAKS}")
-    consts = build_constants(cfg, resolved, tuning, iline_peak_A)
-    p = cfg.control.prefix
-    base = _context(cfg, bus_blocks=BUS_BLOCKS, test_break=test_break)
-    env = _env()
+def render(prj: Project, loader: jinja2.BaseLoader | None = None) -> dict[str, str]:
+    """Return {file name: C text} for every generated controller file."""
+    consts = build_constants(prj)
+    p = prj.config.control.prefix
+    fmt = prj.config.control.number_format
+    lits = {k.name: c_literal(k, fmt) for k in consts}
+    base = _context(prj)
+    env = environment(loader)
     files: dict[str, str] = {}
     groups = [(g, list(items)) for g, items in groupby(consts, key=lambda k: k.group)]
     name = f"{p}_config.h"
-    files[name] = env.get_template("config.h.j2").render(**base, file=name, groups=groups)
+    files[name] = env.get_template("config.h.j2").render(**base, file=name, groups=groups,
+                                                         literals=lits)
     for block in BLOCKS:
         for ext in ("h", "c"):
             if ext == "c" and block in HEADER_ONLY:
@@ -74,28 +87,29 @@ def render(cfg: Config, resolved: Resolved, tuning: Tuning, iline_peak_A: float,
     return files
 
 
-def render_host(cfg: Config) -> dict[str, str]:
+def render_host(prj: Project) -> dict[str, str]:
     """Host-only sources (batch stepping, probes, benchmark loop): built beside the MCU
     sources for the desktop, never written by ``pfcrig generate``."""
-    p = cfg.control.prefix
-    base = _context(cfg)
-    env = _env()
-    return {f"{p}_host_batch.{ext}": env.get_template(f"host_batch.{ext}.j2").render(**base, file=f"{p}_host_batch.{ext}")
-            for ext in ("h", "c")}
+    p = prj.config.control.prefix
+    base = _context(prj)
+    env = environment()
+    return {f"{p}_host_batch.{ext}": env.get_template(f"host_batch.{ext}.j2").render(
+        **base, file=f"{p}_host_batch.{ext}") for ext in ("h", "c")}
 
 
-def render_link(cfg: Config, host_main: bool = False, port: str | None = None) -> dict[str, str]:
+def render_link(prj: Project, host_main: bool = False, port: str | None = None) -> dict[str, str]:
     """The target shell (framed link around the step; portable, for the MCU) and, with
     ``host_main``, the host port whose stdin/stdout stand in for the UART, or with
     ``port="mps2_an386"`` the QEMU Cortex-M4F port (startup, vectors, UART, linker script)."""
-    p = cfg.control.prefix
-    base = _context(cfg)
-    env = _env()
+    p = prj.config.control.prefix
+    base = _context(prj)
+    env = environment()
     names = [("link.h.j2", f"{p}_link.h"), ("link.c.j2", f"{p}_link.c")]
     if host_main:
         names.append(("link_host_main.c.j2", f"{p}_link_host_main.c"))
     if port == "mps2_an386":
-        names += [("link_mps2_an386.c.j2", f"{p}_link_mps2_an386.c"), ("link_mps2_an386.ld.j2", f"{p}_mps2_an386.ld")]
+        names += [("link_mps2_an386.c.j2", f"{p}_link_mps2_an386.c"),
+                  ("link_mps2_an386.ld.j2", f"{p}_mps2_an386.ld")]
     return {out: env.get_template(t).render(**base, file=out) for t, out in names}
 
 

@@ -1,12 +1,16 @@
-"""Cross-compile check of the generated C for Cortex-M with ``arm-none-eabi-gcc``.
+"""Target builds of the generated C: the cross-compile check for Cortex-M with
+``arm-none-eabi-gcc``, and the images of the lockstep link's targets (a host process, the
+QEMU Cortex-M4F port), one build path for both.
 
-Reports, per build: flash (text + rodata, as ``size`` counts them in ``text``),
-RAM (data + bss of the objects; the controller state itself is the caller's,
-reported as ``sizeof``), and the undefined symbols outside the generated code (a
-libm call or an allocator would show there).
+Sizes are counted one way everywhere (``image_size``, from ``size``): flash = text + data
+(code, read-only data and the initial values of data), RAM = data + bss; the controller
+state itself is the caller's, reported as ``sizeof``.  The undefined symbols outside the
+generated code (a libm call or an allocator would show there) are listed.
 """
 from __future__ import annotations
 
+import hashlib
+import os
 import re
 import shutil
 import subprocess
@@ -14,7 +18,10 @@ import tempfile
 from dataclasses import dataclass, field
 from pathlib import Path
 
-from .build import STRICT_FLAGS, BuildError, compile_objects
+from design.project import Project
+
+from .build import HOST_FLAGS, STRICT_FLAGS, BuildError, cache_root, compile_objects
+from .render import render, render_link
 
 TARGETS = {
     "cortex-m4f": ["-mcpu=cortex-m4", "-mthumb", "-mfloat-abi=hard", "-mfpu=fpv4-sp-d16", "-O2", "-ffp-contract=off"],
@@ -60,11 +67,7 @@ def check(files: dict[str, str], prefix: str, target: str = "cortex-m4f", cc: st
         for name, text in files.items():
             (src / name).write_text(text)
         objs = compile_objects(src, Path(tmp) / "obj", cc=cc, flags=flags)
-        size = subprocess.run([tool + "size", *map(str, objs)], capture_output=True, text=True, check=True).stdout
-        text = data = bss = 0
-        for line in size.splitlines()[1:]:
-            parts = line.split()
-            text, data, bss = text + int(parts[0]), data + int(parts[1]), bss + int(parts[2])
+        sizes = image_size(objs, tool + "size")
         probe = Path(tmp) / "probe.c"
         probe.write_text(f'#include "{prefix}_ctrl.h"\n{prefix}_ctrl_t {prefix}_probe_state;\n')
         pobj = Path(tmp) / "probe.o"
@@ -76,4 +79,67 @@ def check(files: dict[str, str], prefix: str, target: str = "cortex-m4f", cc: st
     defined = {ln.split()[-1] for ln in nm_all.splitlines() if re.match(r"^[0-9a-f]+ [TDRBC] ", ln)}
     undef = sorted({ln.split()[-1] for ln in nm_all.splitlines() if ln.strip().startswith("U ")} - defined)
     support = [u for u in undef if SUPPORT.match(u)]
-    return TargetReport(target, flags, text, data + bss, state, [u for u in undef if u not in support], support)
+    return TargetReport(target, flags, sizes["flash_B"], sizes["ram_B"], state,
+                        [u for u in undef if u not in support], support)
+
+
+def image_size(paths: list[Path], size_tool: str = "arm-none-eabi-size") -> dict[str, int]:
+    """Flash (text + data) and static RAM (data + bss) of objects or a linked image, summed."""
+    out = subprocess.run([size_tool, *map(str, paths)], capture_output=True, text=True,
+                         check=True).stdout
+    text = data = bss = 0
+    for line in out.splitlines()[1:]:
+        parts = line.split()
+        text, data, bss = text + int(parts[0]), data + int(parts[1]), bss + int(parts[2])
+    return {"flash_B": text + data, "ram_B": data + bss, "text_B": text, "data_B": data,
+            "bss_B": bss}
+
+
+@dataclass(frozen=True)
+class TargetBuild:
+    """How one kind of target image is compiled and linked."""
+
+    name: str
+    cc: str
+    flags: list[str]
+    port: dict  # keyword arguments of ``render_link``
+    link_args: list[str] = field(default_factory=list)  # {ld} stands for the linker script
+    suffix: str = ""
+
+
+HOST_BUILD = TargetBuild("host", "gcc", [f for f in HOST_FLAGS if f != "-fPIC"], {"host_main": True})
+QEMU_M4F_BUILD = TargetBuild("qemu-m4f", "arm-none-eabi-gcc", TARGETS["cortex-m4f"],
+                             {"port": "mps2_an386"},
+                             [*TARGETS["cortex-m4f"], "-nostdlib", "-T", "{ld}"], "_mps2_an386.elf")
+
+
+def build_target(prj: Project, tb: TargetBuild) -> Path:
+    """Compile controller + target shell + port with the strict flags and link them; cached
+    by the hash of the sources and flags."""
+    if shutil.which(tb.cc) is None:
+        hint = ": install gcc-arm-none-eabi (Debian)" if "arm" in tb.cc else ""
+        raise BuildError(f"{tb.cc} not found{hint}")
+    p = prj.config.control.prefix
+    files = {**render(prj), **render_link(prj, **tb.port)}
+    h = hashlib.sha256("".join(files[k] for k in sorted(files)).encode())
+    h.update(" ".join([tb.cc, *tb.flags, *tb.link_args]).encode())
+    exe = cache_root() / "pil" / f"{p}_{h.hexdigest()[:16]}{tb.suffix}"
+    if exe.exists():
+        return exe
+    exe.parent.mkdir(parents=True, exist_ok=True)
+    with tempfile.TemporaryDirectory(dir=cache_root()) as tmp:
+        src = Path(tmp) / "src"
+        src.mkdir()
+        for n, t in files.items():
+            (src / n).write_text(t)
+        objs = compile_objects(src, Path(tmp) / "obj", cc=tb.cc, flags=tb.flags)
+        out = Path(tmp) / "target"
+        ld = next((str(src / n) for n in files if n.endswith(".ld")), "")
+        args = [a.replace("{ld}", ld) for a in tb.link_args] or tb.flags
+        libs = ["-lgcc"] if tb.link_args else []
+        r = subprocess.run([tb.cc, *args, *map(str, objs), "-o", str(out), *libs],
+                           capture_output=True, text=True)
+        if r.returncode:
+            raise BuildError(f"link of the {tb.name} target failed:\n{r.stderr}")
+        os.replace(out, exe)
+    return exe

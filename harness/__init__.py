@@ -1,1 +1,2 @@
-"""Closed loop, scenarios, metrics, reports and the command line of pfcrig."""
+"""The top of pfcrig: the closed loop (``closedloop``), campaigns (``campaigns``), targets
+and the lockstep link (``targets``) and the command line (``cli``)."""

@@ -1,1 +1,1 @@
-"""Power-stage sizing and the numpy model of the totem-pole PFC (knows nothing of C)."""
+"""The numpy/numba model of the totem-pole PFC power stage (knows nothing of C)."""

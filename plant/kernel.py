@@ -25,6 +25,8 @@ import math
 
 import numpy as np
 
+from design.contract import Gate
+
 try:  # numba compiles the kernels; without it they run as Python
     from numba import njit as _njit
 
@@ -63,7 +65,8 @@ FIELDS = ("vs_V", "vterm_V", "i_avg_A", "i_max_A", "i_min_A", "i_sample_A", "vbu
           "e_out_J", "e_loss_J")
 (R_VS, R_VTERM, R_IAVG, R_IMAX, R_IMIN, R_ISAMPLE, R_VBUS, R_VBSAMPLE, R_EIN, R_EOUT, R_ELOSS) = range(len(FIELDS))
 
-GATE_FAST_LO, GATE_FAST_HI, GATE_SLOW_LO, GATE_SLOW_HI = 1, 2, 4, 8
+# gate bits of the controller contract, as plain ints (compile-time constants of the kernels)
+GATE_FAST_LO, GATE_FAST_HI, GATE_SLOW_LO, GATE_SLOW_HI = (int(g) for g in Gate)
 MODEL_SWITCHING, MODEL_AVERAGED = 0, 1
 # step plans: plans[relay open (0/1), kind, 0 pieces / 1 order]; kinds:
 PLAN_HALF, PLAN_DEAD, PLAN_PERIOD = 0, 1, 2
@@ -495,7 +498,7 @@ def step_lanes(par, plans, lane, harm, seed, k, t, model, compare, gates, codes,
     _period_setup(par, lane, harm, t, compare, gates, ws, switching)
     if switching:
         _switching_period(par, plans, ws, n)
-        rc, f = par[P_ESR], 1.0 / T
+        f = 1.0 / T
         for j in range(n):
             vbus_avg = ws[W_VB, j] * f
             G, Icp = ws[W_G, j], ws[W_ICP, j]

@@ -1,13 +1,11 @@
 """Shared fixtures; ``--runslow`` enables the closed-loop campaigns marked ``slow``."""
 from __future__ import annotations
 
-from pathlib import Path
-
 import pytest
 
-ROOT = Path(__file__).resolve().parents[1]
-EXAMPLES = ROOT / "examples"
-DEMO = ROOT / "harness" / "data" / "universal_1k5.toml"
+from pathlib import Path
+
+from .helpers import DEMO
 
 
 def pytest_addoption(parser):
@@ -30,13 +28,13 @@ def demo_path() -> Path:
 
 @pytest.fixture(scope="session")
 def demo_project():
-    from harness.project import load_project
+    from design.project import load_project
 
     return load_project(DEMO)
 
 
 @pytest.fixture(scope="session")
 def demo_built(demo_project):
-    from harness.project import build_of
+    from codegen.build import build_project
 
-    return build_of(demo_project)
+    return build_project(demo_project)

@@ -4,8 +4,8 @@ from __future__ import annotations
 import numpy as np
 import pytest
 
-from harness.loop import run
-from harness.scenario import Event, Scenario
+from harness.closedloop.loop import run
+from harness.closedloop.scenario import Event, Scenario
 
 
 @pytest.mark.parametrize("model", ["switching", "averaged"])

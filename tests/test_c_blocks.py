@@ -7,14 +7,9 @@ import numpy as np
 import pytest
 from hypothesis import example, given, settings, strategies as st
 
+from .helpers import GHI, GLO, LEGAL_GATES, SHI, SLO, consts
+
 FSW = 65000.0  # the demo config's switching (and control) frequency
-
-
-def consts(prj):
-    from codegen.constants import build_constants
-    from harness.project import tuning_of
-
-    return {k.name: k.value for k in build_constants(prj.config, prj.resolved, tuning_of(prj), prj.sizing.iline_peak_A)}
 
 
 def wave(amp, f, phase, n, dc=0.0, harm=(), noise=0.0, seed=0):
@@ -40,7 +35,7 @@ def run_polarity(b, v):
         lib.pfc_polarity_step(s, float(x))
         if s.zc and before != 0:  # a change, not the first acquisition from "unknown"
             flips.append(k)
-            freq.append(s.freq_mHz / 1000.0)
+            freq.append(s.freq_millihz / 1000.0)
         pols.append(s.pol)
     return np.array(flips), np.array(freq), np.array(pols), s
 
@@ -93,10 +88,10 @@ def run_rms(b, v):
         lib.pfc_polarity_step(pol, float(x))
         lib.pfc_rms_step(rms, float(x), pol.zc, 1 if pol.last_half else 0)
         if rms.fresh:
-            latched.append((last_flip, k, rms.ms_V2, rms.inv_ms_per_V2))
+            latched.append((last_flip, k, rms.ms, rms.inv_ms))
         if pol.zc:
             last_flip = k
-        assert math.isfinite(rms.inv_ms_per_V2) and rms.inv_ms_per_V2 > 0
+        assert math.isfinite(rms.inv_ms) and rms.inv_ms > 0
     return latched, rms
 
 
@@ -123,9 +118,9 @@ def test_rms_dropout_keeps_finite_floor(demo_project, demo_built):
     _, _, v = wave(325.0, 50.0, 0.3, n)
     v = np.concatenate([v, np.zeros(int(0.2 * FSW)), 0.5 * v[: n // 2]])
     latched, rms = run_rms(demo_built, v)
-    assert math.isfinite(rms.inv_ms_per_V2)
+    assert math.isfinite(rms.inv_ms)
     # the floor bounds 1/Vrms^2 from above whatever the line did
-    assert rms.inv_ms_per_V2 <= 1.0 / c["MS_FLOOR_V2"] * (1 + 1e-6)
+    assert rms.inv_ms <= 1.0 / c["MS_FLOOR_V2"] * (1 + 1e-6)
     # a tiny line (above the hysteresis, far below brown-out) latches the floored value
     _, _, tiny = wave(12.0, 50.0, 0.0, int(4 * FSW / 50))
     latched, rms = run_rms(demo_built, tiny)
@@ -145,8 +140,6 @@ def test_iref_product_clamp_and_guard(demo_project, demo_built):
     assert lib.pfc_iref_step(s, -10.0, 325.0, 1.0 / 52900.0, 400.0) == 0.0
 
 
-GLO, GHI, SLO, SHI = 1, 2, 4, 8
-LEGAL_GATES = {0, GLO | SLO, GLO | SLO | GHI, GHI | SHI, GHI | SHI | GLO}
 
 
 def test_pwm_assignment_table(demo_project, demo_built):
@@ -208,8 +201,8 @@ def test_step_arbitrary_adc_stays_in_range(demo_built, seq, repeat, stuck):
         assert 0 <= out.compare <= per
         assert out.gates in LEGAL_GATES
         assert out.mode <= 8
-        for x in (c.vloop.pi.x, c.vloop.pcmd_W, c.iloop.pi.x, c.iloop.duty, c.rms.inv_ms_per_V2, c.bus.avg_V,
-                  c.iref.iref_A):
+        for x in (c.vloop.pi.x, c.vloop.pcmd, c.iloop.pi.x, c.iloop.duty, c.rms.inv_ms, c.bus.avg,
+                  c.iref.iref):
             assert math.isfinite(x)
         assert 0.0 <= c.iloop.duty <= 1.0
 
@@ -226,10 +219,10 @@ def test_supervisor_trip_rules(demo_project, demo_built):
     pl, rm = ffi.new("pfc_polarity_t*"), ffi.new("pfc_rms_t*")
     lib.pfc_polarity_init(pl)
     lib.pfc_rms_init(rm)
-    sn.vbus_V = 400.0
+    sn.vbus = 400.0
 
     def step(il_A):
-        sn.il_A = il_A
+        sn.il = il_A
         lib.pfc_supervisor_step(sv, sn, pl, rm, 0)
         return sv.mode
 
@@ -249,13 +242,13 @@ def test_supervisor_trip_rules(demo_project, demo_built):
     lib.pfc_supervisor_init(sv)
     sv.mode = lib.PFC_MODE_RUN
     rm.brown = 0  # a healthy line otherwise, so that RUN stays RUN
-    sn.vac_V = sn.vbus_V - 0.9 * c["DIODE_MARGIN_V"]
+    sn.vac = sn.vbus - 0.9 * c["DIODE_MARGIN_V"]
     assert step(oc) == lib.PFC_MODE_RUN and sv.trips == 0 and sv.history & lib.PFC_FAULT_OC
-    sn.vac_V = -sn.vac_V  # either polarity
+    sn.vac = -sn.vac  # either polarity
     assert step(oc) == lib.PFC_MODE_RUN and sv.trips == 0
-    sn.vac_V = sn.vbus_V - 1.1 * c["DIODE_MARGIN_V"]  # just below: the converter has control, a trip
+    sn.vac = sn.vbus - 1.1 * c["DIODE_MARGIN_V"]  # just below: the converter has control, a trip
     assert step(oc) == lib.PFC_MODE_TRIPPED and sv.trips == 1
-    sn.vac_V = 0.0
+    sn.vac = 0.0
     # tripped: further over-current (diode conduction, gates off) does not restart the retry delay
     lib.pfc_supervisor_init(sv)
     sv.mode = lib.PFC_MODE_RUN

@@ -14,12 +14,12 @@ import sys
 import numpy as np
 import pytest
 
-from harness import metrics
-from harness.loop import run
-from harness.report import lane_report
-from harness.scenario import Scenario
+from harness.closedloop import metrics
+from harness.closedloop.loop import run
+from harness.closedloop.report import lane_report
+from harness.closedloop.scenario import Scenario
 
-from .conftest import DEMO
+from .helpers import DEMO
 
 KEYS = ["pf", "thd_i", "vbus_mean_V", "vbus_ripple_pp_V", "vbus_min_V", "vbus_max_V", "il_peak_A", "class_a_pass",
         "harmonics_A", "efficiency"]

@@ -8,10 +8,10 @@ import tomllib
 
 import pytest
 
-from codegen.config import ConfigError, from_dict, load
-from harness.project import from_config
+from design.config import ConfigError, from_dict, load
+from design.project import from_config
 
-from .conftest import DEMO
+from .helpers import DEMO
 
 BASE = tomllib.loads(DEMO.read_text())
 

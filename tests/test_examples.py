@@ -3,10 +3,10 @@ from __future__ import annotations
 
 import pytest
 
-from harness import scenario
-from harness.project import load_project
+from harness.closedloop import scenario
+from design.project import load_project
 
-from .conftest import EXAMPLES
+from .helpers import EXAMPLES
 
 
 @pytest.mark.parametrize("path", sorted(EXAMPLES.glob("*.toml")), ids=lambda p: p.stem)

@@ -8,12 +8,14 @@ from hypothesis import given, settings, strategies as st
 
 from codegen import target
 from codegen.build import compile_objects
-from harness.loop import Controllers, run
-from harness.project import build_of, from_config, render_of
-from harness.report import lane_report
-from harness.scenario import Scenario
+from harness.closedloop.loop import Controllers, run
+from codegen.build import build_project
+from codegen.render import render
+from design.project import from_config
+from harness.closedloop.report import lane_report
+from harness.closedloop.scenario import Scenario
 
-from .test_c_blocks import LEGAL_GATES
+from .helpers import LEGAL_GATES
 
 
 @pytest.fixture(scope="module")
@@ -23,11 +25,11 @@ def q15_project(demo_project):
 
 @pytest.fixture(scope="module")
 def q15_built(q15_project):
-    return build_of(q15_project)
+    return build_project(q15_project)
 
 
 def test_q15_strict_host_build_and_deterministic(q15_project, tmp_path):
-    a, b = render_of(q15_project), render_of(q15_project)
+    a, b = render(q15_project), render(q15_project)
     assert a == b
     assert "Number format: q15" in a["pfc_ctrl.c"] and "float" not in a["pfc_ctrl.c"].split("*/", 1)[1]
     src = tmp_path / "src"
@@ -40,7 +42,7 @@ def test_q15_strict_host_build_and_deterministic(q15_project, tmp_path):
 @pytest.mark.skipif(not target.available(), reason="arm-none-eabi-gcc not installed (Debian: gcc-arm-none-eabi)")
 @pytest.mark.parametrize("core", ["cortex-m0plus", "cortex-m4f"])
 def test_q15_cross_compile(q15_project, core):
-    rep = target.check(render_of(q15_project), "pfc", core)
+    rep = target.check(render(q15_project), "pfc", core)
     assert rep.undefined == [], rep.undefined  # no libm, no allocator
     assert rep.state_B <= target.STATE_LIMIT_B
     # no floating point at all in the fixed build: no soft-float helpers on the M0+
@@ -54,7 +56,7 @@ def test_q15_tracks_float_on_identical_inputs(demo_project, demo_built, q15_proj
     s = Scenario(duration_s=0.3, vrms_V=230.0, freq_Hz=50.0, load_kind="resistive", load_power_W=1500.0)
     res = run(demo_project, [s], progress=False, built=demo_built)
     d = res.lane(0)
-    from harness.loop import adc_scaling
+    from harness.closedloop.loop import adc_scaling
     from plant.sensors import Sensors
 
     codes = Sensors(adc_scaling(demo_project), len(d["t_s"])).convert(d["vterm_V"], d["i_sample_A"], d["vbus_sample_V"])

@@ -11,8 +11,11 @@ from pathlib import Path
 
 import pytest
 
-from harness import fuzz, scenario
-from harness.project import build_of
+from harness.campaigns import fuzz
+
+from .helpers import broken_loader
+from harness.closedloop import scenario
+from codegen.build import build_project
 
 CORPUS = Path(__file__).parent / "corpus"
 CI_CASES = 200
@@ -55,9 +58,10 @@ def test_bounded_campaign(demo_project, tmp_path):
 
 @pytest.mark.slow
 def test_campaign_catches_a_broken_controller(demo_project):
-    """A controller without its zero-crossing window (a test-only template option) keeps
-    switching in the old polarity near each crossing: the campaign must flag it."""
-    broken = build_of(demo_project, test_break="no_zc_blank")
+    """A controller without its zero-crossing window (rendered from a patched template, see
+    tests/helpers.py) keeps switching in the old polarity near each crossing: the campaign
+    must flag it."""
+    broken = build_project(demo_project, broken_loader("no_zc_blank"))
     res = fuzz.campaign(demo_project, 16, seed=2026, workers=1, batch=16, out_dir=None, log=lambda m: None,
                         built=broken)
     counts = res.counts()

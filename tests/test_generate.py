@@ -8,9 +8,10 @@ import pytest
 
 from codegen import target
 from codegen.build import STRICT_FLAGS, BuildError, build, compile_objects
-from harness.project import load_project, render_of
+from codegen.render import render
+from design.project import load_project
 
-from .conftest import DEMO, EXAMPLES
+from .helpers import DEMO, EXAMPLES
 
 CONFIGS = [DEMO, EXAMPLES / "telecom_3k3.toml", EXAMPLES / "appliance_1k2.toml"]
 
@@ -29,7 +30,7 @@ def test_generate_twice_identical_bytes(tmp_path):
 
 def test_headers_carry_caution_digest_and_units():
     prj = load_project(DEMO)
-    files = render_of(prj)
+    files = render(prj)
     for name, text in files.items():
         assert "CAUTION" in text and "lethal" in text and prj.config.digest() in text, name
     cfg = files["pfc_config.h"]
@@ -43,7 +44,7 @@ def test_headers_carry_caution_digest_and_units():
 @pytest.mark.parametrize("cfg", CONFIGS, ids=lambda p: p.stem)
 def test_strict_host_build(cfg, tmp_path):
     prj = load_project(cfg)
-    files = render_of(prj)
+    files = render(prj)
     src = tmp_path / "src"
     src.mkdir()
     for n, t in files.items():
@@ -62,7 +63,7 @@ def test_compiler_error_shows_generated_line(tmp_path):
 
 
 def test_no_double_no_libm_no_heap_in_sources():
-    files = render_of(load_project(DEMO))
+    files = render(load_project(DEMO))
     import re
 
     for name, text in files.items():
@@ -76,7 +77,7 @@ def test_no_double_no_libm_no_heap_in_sources():
 @pytest.mark.parametrize("cfg", CONFIGS, ids=lambda p: p.stem)
 def test_cortex_m4f_cross_compile(cfg):
     prj = load_project(cfg)
-    rep = target.check(render_of(prj), prj.config.control.prefix, "cortex-m4f")
+    rep = target.check(render(prj), prj.config.control.prefix, "cortex-m4f")
     assert rep.undefined == [], rep.undefined  # no libm, no allocator, nothing outside the generated code
     assert rep.flash_B <= target.FLASH_LIMIT_B, rep.flash_B
     assert rep.state_B <= target.STATE_LIMIT_B, rep.state_B

@@ -43,7 +43,7 @@ def test_carried_phase_stays_on_the_unit_circle():
 
 
 def test_zeros_mapped_is_zero_and_writable():
-    from harness.loop import PWM_DTYPE, zeros_mapped
+    from harness.closedloop.loop import PWM_DTYPE, zeros_mapped
 
     a = zeros_mapped((300, 1000, 3), np.float64)  # 7.2 MB: mapped
     assert a.shape == (300, 1000, 3) and not a.any()
@@ -56,9 +56,9 @@ def test_zeros_mapped_is_zero_and_writable():
 PROBE = r"""
 import json, sys
 import numpy as np
-from harness.project import load_project
-from harness.loop import run
-from harness.scenario import Event, Scenario
+from design.project import load_project
+from harness.closedloop.loop import run
+from harness.closedloop.scenario import Event, Scenario
 prj = load_project(sys.argv[1])
 s = Scenario(duration_s=0.035, vrms_V=115.0, freq_Hz=60.0, phase_deg=170.0, load_kind="resistive",
              load_power_W=800.0, harmonics=((5, 0.02, 0.0),), noise_counts=(1.0, 1.0, 1.0), seed=7)

@@ -8,12 +8,13 @@ import subprocess
 import pytest
 from hypothesis import given, settings, strategies as st
 
-from harness import link
-from harness.loop import run
-from harness.pil import (FLOAT32_INSN_LIMIT, PipeTransport, RemoteControllers, build_host_target, compare_outputs,
+from codegen.target import HOST_BUILD, build_target
+from harness.targets import link
+from harness.closedloop.loop import run
+from harness.targets.pil import (FLOAT32_INSN_LIMIT, PipeTransport, RemoteControllers, compare_outputs,
                          run_pil)
-from harness.project import from_config
-from harness.scenario import Scenario
+from design.project import from_config
+from harness.closedloop.scenario import Scenario
 
 frames = st.lists(st.tuples(st.sampled_from([1, 2, 3, 0x81, 0x83]), st.integers(0, 255), st.binary(max_size=60)),
                   min_size=1, max_size=8)
@@ -113,7 +114,7 @@ def test_host_process_pil_equals_in_process(demo_project, fmt):
 
 
 def test_target_that_stops_answering(demo_project):
-    exe = build_host_target(demo_project)
+    exe = build_target(demo_project, HOST_BUILD)
     proc = subprocess.Popen([str(exe)], stdin=subprocess.PIPE, stdout=subprocess.PIPE)
     tr = PipeTransport(proc)
     try:
@@ -147,11 +148,11 @@ def test_target_that_stops_answering(demo_project):
 def test_target_shell_cross_compiles_needing_only_the_board_functions(demo_project):
     from codegen import target
     from codegen.render import render_link
-    from harness.project import render_of
+    from codegen.render import render
 
     if not target.available():
         pytest.skip("arm-none-eabi-gcc not installed (Debian: gcc-arm-none-eabi)")
-    rep = target.check({**render_of(demo_project), **render_link(demo_project.config)}, "pfc", "cortex-m4f")
+    rep = target.check({**render(demo_project), **render_link(demo_project)}, "pfc", "cortex-m4f")
     assert rep.undefined == ["pfc_link_flush", "pfc_link_getc", "pfc_link_putc", "pfc_link_ticks"]
 
 
@@ -206,7 +207,7 @@ class HostBehindPty:
     serial port as pyserial sees one, so the serial transport runs without hardware."""
 
     def __init__(self, prj):
-        exe = build_host_target(prj)
+        exe = build_target(prj, HOST_BUILD)
         self.master, slave = os.openpty()
         self.port = os.ttyname(slave)
         self.proc = subprocess.Popen([str(exe)], stdin=self.master, stdout=self.master)
@@ -220,7 +221,7 @@ class HostBehindPty:
 
 
 def test_serial_transport_snapshot_and_cost_on_a_pty(demo_project):
-    from harness.pil import SerialTransport
+    from harness.targets.pil import SerialTransport
 
     tgt = HostBehindPty(demo_project)
     tr = SerialTransport(tgt.port, 115200)
@@ -253,7 +254,7 @@ def test_pil_cli_over_a_serial_port(demo_path, tmp_path):
     import json
 
     from harness.cli import main
-    from harness.project import load_project
+    from design.project import load_project
 
     tgt = HostBehindPty(load_project(demo_path))
     try:
@@ -282,7 +283,7 @@ def test_silent_serial_target_times_out(demo_project):
     """A port with nothing behind it answering: a clear error within the timeout, no hang."""
     import time
 
-    from harness.pil import SerialTransport
+    from harness.targets.pil import SerialTransport
 
     master, slave = os.openpty()
     tr = SerialTransport(os.ttyname(slave))
@@ -305,7 +306,7 @@ def test_pil_cli_writes_the_partial_report_when_the_target_stops(demo_path, tmp_
     import threading
 
     from harness.cli import main
-    from harness.project import load_project
+    from design.project import load_project
 
     tgt = HostBehindPty(load_project(demo_path))
     freeze = threading.Timer(0.4, lambda: os.kill(tgt.proc.pid, signal.SIGSTOP))
@@ -334,12 +335,13 @@ def test_qemu_m4f_over_a_loopback_socket(demo_path, tmp_path):
 
     from codegen import target
     from harness.cli import main
-    from harness.pil import QEMU_CMD, build_qemu_target
-    from harness.project import load_project
+    from codegen.target import QEMU_M4F_BUILD, build_target
+    from harness.targets.pil import QEMU_CMD
+    from design.project import load_project
 
     if not target.available():
         pytest.skip("arm-none-eabi-gcc not installed")
-    elf = build_qemu_target(load_project(demo_path))
+    elf = build_target(load_project(demo_path), QEMU_M4F_BUILD)
     s = socket.socket()
     s.bind(("127.0.0.1", 0))
     port = s.getsockname()[1]

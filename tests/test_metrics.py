@@ -6,7 +6,7 @@ import math
 import numpy as np
 import pytest
 
-from harness import metrics
+from harness.closedloop import metrics
 
 FS = 65000.0
 

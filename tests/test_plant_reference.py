@@ -19,7 +19,9 @@ from scipy.integrate import solve_ivp
 from plant.batch import FIELDS, Plant
 from plant.grid import Grid
 from plant.load import Load
-from plant.stage import GATE_FAST_HI, GATE_FAST_LO, GATE_SLOW_HI, GATE_SLOW_LO, StageParams
+from plant.stage import StageParams
+
+from .helpers import GHI as GATE_FAST_HI, GLO as GATE_FAST_LO, SHI as GATE_SLOW_HI, SLO as GATE_SLOW_LO
 
 P = StageParams(inductance_H=400e-6, capacitance_F=470e-6, inductor_dcr_ohm=0.05, capacitor_esr_ohm=0.04,
                 rds_on_fast_ohm=0.05, rds_on_slow_ohm=0.03, dead_time_s=200e-9, fsw_Hz=20e3, period_counts=1000,
@@ -32,7 +34,6 @@ def make_sequence(periods):
     # a resistive load of conductance G, connected from the start (power-good and UVLO at 0 V)
     st = Plant(P, Grid(1, VRMS, F, 0.0), Load(1, "resistive", G * 400.0**2, 400.0, connect_V=0.0, uvlo_V=0.0),
                None, 0.0, VBUS0)
-    T = P.period_s
     seq, states = [], [(st.i[0], st.vc[0])]
     comp, gates = 0.0, 0
     ipk = 6.0

@@ -7,9 +7,9 @@ import numpy as np
 import pytest
 from hypothesis import given, settings, strategies as st
 
-from codegen.config import ConfigError
-from harness import scenario as sc
-from harness.loop import run
+from design.config import ConfigError
+from harness.closedloop import scenario as sc
+from harness.closedloop.loop import run
 
 
 def test_round_trip_exact(tmp_path):

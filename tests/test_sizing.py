@@ -13,10 +13,10 @@ from dataclasses import dataclass
 import pytest
 from hypothesis import given, settings, strategies as st
 
-from codegen.config import load
-from plant.sizing import boost_ripple_pp, size
+from design.config import load
+from design.sizing import boost_ripple_pp, size
 
-from .conftest import DEMO, EXAMPLES
+from .helpers import DEMO, EXAMPLES
 
 
 @dataclass(frozen=True)

@@ -20,8 +20,11 @@ import numpy as np
 from plant.batch import FIELDS as PLANT_FIELDS
 from plant.kernel import LANE_ROWS, WS_ROWS
 
-from .loop import run
-from .project import Project, build_of
+from codegen.build import build_project
+from design.project import Project
+from plant.sensors import Sensors
+
+from .loop import adc_scaling, run
 from .scenario import Scenario
 
 TARGETS = {"single_switching_rtf": 1.0, "batch256_scenario_s_per_s": 30.0, "best_batch_vs_bare_c_max_ratio": 10.0}
@@ -35,7 +38,7 @@ def _scenarios(prj: Project, n: int, duration: float) -> list[Scenario]:
 
 
 def bench(prj: Project, sizes=(1, 16, 256, 1024), log=print) -> dict:
-    built = build_of(prj)
+    built = build_project(prj)
     fs = prj.config.spec.fsw
     out: dict = {"fsw_Hz": fs}
 
@@ -70,9 +73,6 @@ def bench(prj: Project, sizes=(1, 16, 256, 1024), log=print) -> dict:
     # (a) bare step over the recorded inputs of that run
     lib, ffi = built.lib, built.ffi
     p = prj.config.control.prefix
-    from plant.sensors import Sensors
-    from .loop import adc_scaling
-
     d = rec.lane(0)
     sens = Sensors(adc_scaling(prj), len(d["t_s"]))
     codes = sens.convert(d["vterm_V"], d["i_sample_A"], d["vbus_sample_V"])

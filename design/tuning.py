@@ -90,7 +90,7 @@ def _margins(loop: LoopDesign) -> tuple[float, float, float]:
     ph = np.unwrap(np.angle(g))
     i = np.nonzero((mag[:-1] >= 1.0) & (mag[1:] < 1.0))[0]
     if len(i) == 0:
-        raise ConfigError(f"{loop.name}: the loop gain never crosses 1 below Nyquist; check the bandwidth")
+        raise ConfigError(f"[control] {loop.name}: the loop gain never crosses 1 below Nyquist; check the bandwidth")
     k = i[0]
     t = (0.0 - math.log(mag[k])) / (math.log(mag[k + 1]) - math.log(mag[k]))
     fc = math.exp(math.log(f[k]) + t * (math.log(f[k + 1]) - math.log(f[k])))
@@ -129,10 +129,3 @@ def tune(cfg: Config, inductance_H: float, capacitance_F: float, current_bandwid
     vol = _design("voltage_bandwidth/voltage_phase_margin_deg", s.efficiency / (capacitance_F * s.vout),
                   c.voltage_bandwidth, c.voltage_phase_margin_deg, th / 2.0 + tv / 2.0, tv, "W per V")
     return Tuning(cur, vol)
-
-
-def margins_at(loop: LoopDesign, ts_s: float, delay_s: float) -> tuple[float, float, float]:
-    """Crossover (Hz), phase margin (deg) and gain margin (dB) of the same gains at another update period."""
-    other = LoopDesign(loop.name, loop.kp, loop.ki, ts_s, delay_s, loop.plant_gain, loop.target_crossover_Hz,
-                       loop.target_phase_margin_deg, math.nan, math.nan, math.nan, loop.units)
-    return _margins(other)

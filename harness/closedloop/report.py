@@ -7,18 +7,23 @@ from pathlib import Path
 
 import numpy as np
 
-from plant.sizing import boost_ripple_pp
+from design.contract import Fault, Mode
+from design.sizing import boost_ripple_pp
 
 from . import metrics
 from .loop import RunResult
 
-MODE_NAMES = ["wait_line", "precharged", "soft_start", "run", "line_loss", "brownout", "tripped", "latched",
-              "sensor_fault"]
-FAULT_NAMES = ["ov", "oc", "brownout", "line_loss", "freq", "sensor", "latched", "nonfinite"]
+MODE_NAMES = [m.name.lower() for m in Mode]
+FAULT_NAMES = [f.name.lower() for f in Fault]
+
+
+def mode_name(code: int) -> str:
+    """The mode's name, or ``unknown_N`` for a code the contract does not define."""
+    return MODE_NAMES[code] if 0 <= code < len(MODE_NAMES) else f"unknown_{code}"
 
 
 def fault_names(bits: int) -> list[str]:
-    return [name for k, name in enumerate(FAULT_NAMES) if bits & (1 << k)]
+    return [f.name.lower() for f in Fault if bits & f]
 
 
 def lane_report(res: RunResult, k: int = 0) -> dict:
@@ -71,8 +76,8 @@ def lane_report(res: RunResult, k: int = 0) -> dict:
             "vbus_min_V": float(d["vbus_V"].min()),
             "vbus_max_V": float(d["vbus_V"].max()),
             "il_peak_A": float(il_abs.max()),
-            "final_mode": MODE_NAMES[modes[-1]],
-            "modes_seen": sorted({MODE_NAMES[m] for m in np.unique(modes)}),
+            "final_mode": mode_name(int(modes[-1])),
+            "modes_seen": sorted({mode_name(int(m)) for m in np.unique(modes)}),
             "faults_seen": fault_names(faults_seen),
             "shoot_through_periods": int(np.sum(d["shoot_through"])),
         },
@@ -124,70 +129,3 @@ def write_csv(res: RunResult, path: str | Path, k: int = 0) -> None:
         wr.writerow(cols)
         for row in zip(*(d[c] for c in cols)):
             wr.writerow([f"{x:.6g}" for x in row])
-
-
-def write_plots(res: RunResult, rep: dict, out_dir: str | Path, k: int = 0) -> list[Path]:
-    import matplotlib
-
-    matplotlib.use("Agg")
-    import matplotlib.pyplot as plt
-
-    out = Path(out_dir)
-    out.mkdir(parents=True, exist_ok=True)
-    d = res.lane(k)
-    t = d["t_s"]
-    paths = []
-
-    w0, w1 = rep["window_s"]
-    sel = (t >= w1 - 3.0 / res.scenarios[k].freq_Hz) & (t < w1)
-    fig, ax = plt.subplots(figsize=(10, 4))
-    ax.plot(t[sel] * 1e3, d["vs_V"][sel], color="tab:blue", lw=1, label="line voltage")
-    ax.set_xlabel("time (ms)")
-    ax.set_ylabel("line voltage (V)", color="tab:blue")
-    ax2 = ax.twinx()
-    ax2.plot(t[sel] * 1e3, d["i_max_A"][sel], color="tab:orange", lw=0.5, alpha=0.5, label="inductor current envelope")
-    ax2.plot(t[sel] * 1e3, d["i_min_A"][sel], color="tab:orange", lw=0.5, alpha=0.5)
-    ax2.plot(t[sel] * 1e3, d["i_avg_A"][sel], color="tab:red", lw=1.2, label="line current (period average)")
-    ax2.set_ylabel("current (A)", color="tab:red")
-    ax.set_title(f"line voltage and current: PF {rep['pf']:.4f}, THD {100 * rep['thd_i']:.2f} %")
-    fig.legend(loc="upper right", fontsize=8)
-    fig.tight_layout()
-    paths.append(out / "line.png")
-    fig.savefig(paths[-1], dpi=110)
-    plt.close(fig)
-
-    fig, axs = plt.subplots(3, 1, figsize=(10, 7), sharex=True)
-    axs[0].plot(t, d["vbus_V"], lw=0.8, label="bus (period average)")
-    axs[0].plot(t, d["vref_V"], lw=0.8, ls="--", label="reference")
-    axs[0].set_ylabel("bus (V)")
-    axs[0].legend(fontsize=8)
-    axs[1].plot(t, d["duty"], lw=0.5)
-    axs[1].set_ylabel("main duty")
-    axs[2].step(t, d["mode"], where="post", lw=0.8)
-    axs[2].set_yticks(range(len(MODE_NAMES)))
-    axs[2].set_yticklabels(MODE_NAMES, fontsize=7)
-    axs[2].set_xlabel("time (s)")
-    for ev in res.scenarios[k].events:
-        for a in axs:
-            a.axvline(ev.t_s, color="grey", lw=0.6, ls=":")
-    fig.suptitle("bus, duty and supervisor mode")
-    fig.tight_layout()
-    paths.append(out / "bus_duty_mode.png")
-    fig.savefig(paths[-1], dpi=110)
-    plt.close(fig)
-
-    h = np.arange(2, metrics.H_MAX + 1)
-    lim = [metrics.class_a_limit_A(int(x)) for x in h]
-    fig, ax = plt.subplots(figsize=(10, 4))
-    ax.bar(h, rep["harmonics_A"][1:], color="tab:red", label="measured (A rms)")
-    ax.step(h, lim, where="mid", color="k", lw=1, label="IEC 61000-3-2 Class A limit")
-    ax.set_yscale("log")
-    ax.set_xlabel("harmonic order")
-    ax.set_ylabel("A rms")
-    ax.set_title("current harmonics over the IEC 61000-4-7 window: Class A " + ("pass" if rep["class_a_pass"] else "FAIL"))
-    ax.legend(fontsize=8)
-    fig.tight_layout()
-    paths.append(out / "harmonics.png")
-    fig.savefig(paths[-1], dpi=110)
-    plt.close(fig)
-    return paths

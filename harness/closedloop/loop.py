@@ -16,16 +16,20 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
-from plant.batch import FIELDS as PLANT_FIELDS, Plant
+from codegen.build import build_project
+from design.contract import ADC_FIELDS, OUTPUT_FIELDS, PROBES, Gate
+from design.project import Project
+from plant.batch import FIELDS as PLANT_FIELDS
+from plant.batch import Plant
 from plant.grid import Grid
 from plant.load import Load
 from plant.sensors import AdcScaling, Sensors
-from plant.stage import GATE_SLOW_HI, GATE_SLOW_LO, StageParams
+from plant.stage import StageParams
 
-from .project import Project, build_of
 from .scenario import Scenario
 
-PWM_DTYPE = np.dtype([("compare", "<u2"), ("gates", "u1"), ("mode", "u1"), ("faults", "<u2")])
+PWM_DTYPE = np.dtype([(f.name, f.dtype) for f in OUTPUT_FIELDS])
+N_PROBES = len(PROBES)
 RECORDED = ("t_s", "vs_V", "vterm_V", "i_avg_A", "i_max_A", "i_min_A", "i_sample_A", "vbus_V", "vbus_sample_V",
             "compare", "gates", "mode", "faults", "duty", "iref_A", "vref_V", "pcmd_W", "e_in_J", "e_out_J",
             "e_loss_J", "shoot_through")
@@ -46,9 +50,8 @@ def stage_params(prj: Project) -> StageParams:
 
 def adc_scaling(prj: Project) -> AdcScaling:
     r = prj.resolved
-    half = float(2 ** (prj.config.sensing.adc_bits - 1))
-    return AdcScaling(r.adc_full_counts, r.vac_range_V / half, r.vac_offset_counts, r.il_range_A / half,
-                      r.il_offset_counts, r.vbus_range_V / r.adc_full_counts)
+    return AdcScaling(r.adc_full_counts, r.vac_V_per_count, r.vac_offset_counts, r.il_A_per_count,
+                      r.il_offset_counts, r.vbus_V_per_count)
 
 
 @dataclass
@@ -104,7 +107,7 @@ class Controllers:
     """``n`` instances of the generated controller in one cffi build."""
 
     def __init__(self, prj: Project, n: int, built=None):
-        self.b = built or build_of(prj)
+        self.b = built or build_project(prj)
         self.p = prj.config.control.prefix
         ffi, lib = self.b.ffi, self.b.lib
         self.n = n
@@ -112,10 +115,10 @@ class Controllers:
         self.adc = ffi.new(f"{self.p}_adc_t[{n}]")
         self.pwm = ffi.new(f"{self.p}_pwm_t[{n}]")
         assert ffi.sizeof(f"{self.p}_pwm_t") == PWM_DTYPE.itemsize
-        self.adc_view = np.frombuffer(ffi.buffer(self.adc), dtype=np.uint16).reshape(n, 3)
+        self.adc_view = np.frombuffer(ffi.buffer(self.adc), dtype=np.uint16).reshape(n, len(ADC_FIELDS))
         self.pwm_view = np.frombuffer(ffi.buffer(self.pwm), dtype=PWM_DTYPE)
-        self.probe = ffi.new(f"float[{4 * n}]")
-        self.probe_view = np.frombuffer(ffi.buffer(self.probe), dtype=np.float32).reshape(n, 4)
+        self.probe = ffi.new(f"float[{N_PROBES * n}]")
+        self.probe_view = np.frombuffer(ffi.buffer(self.probe), dtype=np.float32).reshape(n, N_PROBES)
         self._batch = getattr(lib, f"{self.p}_batch_step")
         self._probe = getattr(lib, f"{self.p}_batch_probe")
         init = getattr(lib, f"{self.p}_init")
@@ -140,12 +143,13 @@ class Controllers:
         def record(k: int) -> None:
             batch(ctrl, adc, pwm, n)
             rec_raw[k + 1] = out_raw
-            probe(ctrl, dst + 4 * n * k, n)
+            probe(ctrl, dst + N_PROBES * n * k, n)
 
         return record
 
     def internals(self) -> np.ndarray:
-        """(n, 4) float32: duty, current reference (A), bus reference (V), power command (W)."""
+        """(n, N_PROBES) float32: ``design.contract.PROBES`` (duty, current reference (A), bus
+        reference (V), power command (W))."""
         self._probe(self.ctrl, self.probe, self.n)
         return self.probe_view
 
@@ -206,7 +210,7 @@ def run(prj: Project, scenarios: list[Scenario], model: str = "switching", progr
     t_alloc = time.perf_counter()
     plant_rec = zeros_mapped((periods, n, len(PLANT_FIELDS)), np.float64)
     pwm_rec = zeros_mapped((periods + 1, n), PWM_DTYPE)  # row k + 1: the outputs of period k
-    probe_rec = zeros_mapped((periods, n, 4), np.float32)
+    probe_rec = zeros_mapped((periods, n, N_PROBES), np.float32)
     bar = Progress(periods, f"run {model} x{n}", progress)
     aborted = None
     clock = time.perf_counter
@@ -244,8 +248,8 @@ def run(prj: Project, scenarios: list[Scenario], model: str = "switching", progr
     outputs, applied = pwm_rec[1:periods + 1], pwm_rec[:periods]  # the plant ran period k with outputs k - 1
     rec["mode"], rec["faults"] = outputs["mode"], outputs["faults"]
     rec["compare"], rec["gates"] = applied["compare"], applied["gates"]
-    rec["shoot_through"] = ((applied["gates"] & GATE_SLOW_LO) != 0) & ((applied["gates"] & GATE_SLOW_HI) != 0)
-    for f, name in enumerate(("duty", "iref_A", "vref_V", "pcmd_W")):
+    rec["shoot_through"] = ((applied["gates"] & Gate.SLOW_LO) != 0) & ((applied["gates"] & Gate.SLOW_HI) != 0)
+    for f, (name, _, _) in enumerate(PROBES):
         rec[name] = probe_rec[:periods, :, f]  # float32, as the controller computes them
     result = RunResult(prj, scenarios, model, {name: rec[name] for name in RECORDED}, clock() - t0, periods)
     result.extras["period_wall_s"] = stamps[:periods + 1] - t0

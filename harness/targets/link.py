@@ -30,13 +30,18 @@ from __future__ import annotations
 import struct
 from dataclasses import dataclass, field
 
-SOF = b"\xa5\x5a"
-VERSION = 1
-HELLO, RESET, STEP, SNAPSHOT, COST, ERROR = 0x01, 0x02, 0x03, 0x04, 0x05, 0xFF
-SNAPSHOT_CHUNK = 256
-ACK = 0x80
-MAX_PAYLOAD = 1 + 64 * 6
-MAX_STEPS_PER_FRAME = 64
+from design.contract import CRC_INIT, CRC_POLY, NUMBER_FORMATS, Request, link_value
+
+SOF = bytes([link_value("SOF0"), link_value("SOF1")])
+VERSION = link_value("VERSION")
+HELLO, RESET, STEP, SNAPSHOT, COST = (int(r) for r in Request)
+ERROR = link_value("ERROR_TYPE")
+SNAPSHOT_CHUNK = link_value("SNAPSHOT_CHUNK")
+ACK = link_value("ACK_BIT")
+MAX_PAYLOAD = link_value("MAX_PAYLOAD")
+MAX_STEPS_PER_FRAME = link_value("MAX_STEPS")
+DIGEST_CHARS = link_value("DIGEST_CHARS")
+FORMAT_NAMES = {code: name for name, code in NUMBER_FORMATS.items()}
 
 
 class LinkError(RuntimeError):
@@ -45,11 +50,11 @@ class LinkError(RuntimeError):
 
 def crc16(data: bytes) -> int:
     """CRC-16/CCITT-FALSE: poly 0x1021, init 0xFFFF, no reflection, no final xor (check 0x29B1)."""
-    crc = 0xFFFF
+    crc = CRC_INIT
     for b in data:
         crc ^= b << 8
         for _ in range(8):
-            crc = ((crc << 1) ^ 0x1021) & 0xFFFF if crc & 0x8000 else (crc << 1) & 0xFFFF
+            crc = ((crc << 1) ^ CRC_POLY) & 0xFFFF if crc & 0x8000 else (crc << 1) & 0xFFFF
     return crc
 
 
@@ -133,11 +138,12 @@ class Hello:
 
 
 def parse_hello(payload: bytes) -> Hello:
-    if len(payload) < 20:
+    end = 4 + DIGEST_CHARS
+    if len(payload) < end:
         raise LinkError(f"HELLO_ACK of {len(payload)} bytes is too short")
     version, fmt, size = struct.unpack_from("<BBH", payload, 0)
-    return Hello(version, "q15" if fmt else "float32", size, payload[4:20].decode("ascii", "replace"),
-                 payload[20:].decode("ascii", "replace"))
+    return Hello(version, FORMAT_NAMES.get(fmt, f"unknown format {fmt}"), size,
+                 payload[4:end].decode("ascii", "replace"), payload[end:].decode("ascii", "replace"))
 
 
 @dataclass(frozen=True)

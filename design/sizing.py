@@ -1,7 +1,7 @@
 """Power-stage sizing of a totem-pole PFC from its ratings.
 
 Input is any object with the ``[spec]`` attributes (``vin_rms_min``, ``vout``,
-``power``, ...); this module imports nothing of the code generator.  Output is
+``power``, ..., ``vout_min_holdup`` filled in as ``design.config`` does).  Output is
 a :class:`Sizing` of plain numbers, SI units in every name, and
 :meth:`Sizing.rows` gives each figure with the formula and its source.
 
@@ -21,6 +21,7 @@ from __future__ import annotations
 
 import math
 from dataclasses import asdict, dataclass
+from typing import Any
 
 SRC_EM_BOOST = "Erickson & Maksimovic, Fundamentals of Power Electronics, ch. 2 (boost CCM ripple)"
 SRC_EM_RECT = "Erickson & Maksimovic, Fundamentals of Power Electronics, ideal-rectifier chapters (from memory)"
@@ -87,7 +88,7 @@ def boost_ripple_pp(v_in: float, vout: float, inductance: float, fsw: float) -> 
     return v * (1.0 - v / vout) / (inductance * fsw)
 
 
-def size(spec, inductance: float | None = None, capacitance: float | None = None) -> Sizing:
+def size(spec: Any, inductance: float | None = None, capacitance: float | None = None) -> Sizing:
     """Size the stage; ``inductance``/``capacitance`` (H, F) override the rules.
 
     Switch rms currents, with ``i = I_pk |sin t|`` and ``d = 1 - Vm |sin t|/Vo``:
@@ -109,7 +110,7 @@ def size(spec, inductance: float | None = None, capacitance: float | None = None
     v_worst = min(vo / 2.0, math.sqrt(2.0) * vmax)
     dv_pp = spec.ripple_voltage_pp * vo
     c_rip = p / (2.0 * math.pi * fl * vo * dv_pp)
-    vh = spec.vout_min_holdup if spec.vout_min_holdup is not None else 0.75 * vo
+    vh = spec.vout_min_holdup
     c_hold = 2.0 * p * spec.holdup_time / (vo**2 - vh**2)
     C = max(c_rip, c_hold) if capacitance is None else capacitance
     k = 4.0 * vm / (3.0 * math.pi * vo)

@@ -30,7 +30,7 @@ import tomllib
 from dataclasses import dataclass
 from pathlib import Path
 
-from codegen.config import ConfigError
+from design.config import ConfigError
 
 EVENT_KEYS = {
     "dip": {"residual": (0.0, 1.0), "cycles": (0.0, 10000.0)},

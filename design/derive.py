@@ -1,7 +1,6 @@
-"""Fill the config values left to be derived (from sizing numbers) and check them.
+"""Fill the config values left to be derived (from the sizing numbers) and check them.
 
-The harness passes the sized inductance, capacitance and peak current as plain
-numbers; this module imports nothing of the plant.
+Each default rule's number is written once, as a module constant here.
 """
 from __future__ import annotations
 
@@ -9,6 +8,18 @@ import math
 from dataclasses import asdict, dataclass
 
 from .config import Config, ConfigError
+
+# default rules (fractions of the named quantity)
+OC_TRIP_OF_PEAK = 1.5  # over-current trip: of the sized peak inductor current
+OV_TRIP_OF_VOUT = 1.1  # over-voltage trip: of vout
+HYST_OF_VPK_MIN = 0.04  # polarity hysteresis: of the lowest line peak
+BLANK_OF_VPK_MIN = 0.08  # zero-crossing blanking: of the lowest line peak
+BROWNOUT_OFF_OF_VMIN = 0.85  # brown-out stop: of vin_rms_min
+BROWNOUT_ON_OF_VMIN = 0.92  # brown-out restart: of vin_rms_min
+RANGE_MARGIN = 1.25  # ADC full scale: of the largest value the channel must read
+CURRENT_BW_DIVISOR = 15.0  # current-loop crossover: fsw over this
+MIN_PERIOD_COUNTS = 100  # timer counts per PWM period at least (duty resolution 1 %)
+MAX_PERIOD_COUNTS = 65535  # the compare is 16 bits
 
 
 @dataclass(frozen=True)
@@ -32,11 +43,31 @@ class Resolved:
     adc_full_counts: int
     pwm_period_counts: int
 
+    @property
+    def adc_half_counts(self) -> float:
+        """Codes from the offset to the top of a bipolar channel (2^(bits-1))."""
+        return float((self.adc_full_counts + 1) // 2)
+
+    @property
+    def vac_V_per_count(self) -> float:
+        """Line channel scale: vac_range over half the codes (bipolar)."""
+        return self.vac_range_V / self.adc_half_counts
+
+    @property
+    def il_A_per_count(self) -> float:
+        """Current channel scale: il_range over half the codes (bipolar)."""
+        return self.il_range_A / self.adc_half_counts
+
+    @property
+    def vbus_V_per_count(self) -> float:
+        """Bus channel scale: vbus_range over all codes (unipolar)."""
+        return self.vbus_range_V / self.adc_full_counts
+
     def as_dict(self) -> dict[str, float]:
         return asdict(self)
 
 
-def _pick(value, default):
+def _pick(value: float | None, default: float) -> float:
     return default if value is None else value
 
 
@@ -45,22 +76,22 @@ def resolve(cfg: Config, inductance_H: float, capacitance_F: float, il_peak_A: f
     s, c, pr, se = cfg.spec, cfg.control, cfg.protection, cfg.sensing
     vpk_min = math.sqrt(2.0) * s.vin_rms_min
     vpk_max = math.sqrt(2.0) * s.vin_rms_max
-    oc = _pick(pr.oc_trip, 1.5 * il_peak_A)
-    ov = _pick(pr.ov_trip, 1.1 * s.vout)
+    oc = _pick(pr.oc_trip, OC_TRIP_OF_PEAK * il_peak_A)
+    ov = _pick(pr.ov_trip, OV_TRIP_OF_VOUT * s.vout)
     mid = float(2 ** (se.adc_bits - 1))
     r = Resolved(
         inductance_H=_pick(cfg.plant.inductance, inductance_H),
         capacitance_F=_pick(cfg.plant.capacitance, capacitance_F),
-        current_bandwidth_Hz=_pick(c.current_bandwidth, s.fsw / 15.0),
-        zc_hysteresis_V=_pick(c.zc_hysteresis, 0.04 * vpk_min),
-        zc_blank_V=_pick(c.zc_blank_voltage, 0.08 * vpk_min),
+        current_bandwidth_Hz=_pick(c.current_bandwidth, s.fsw / CURRENT_BW_DIVISOR),
+        zc_hysteresis_V=_pick(c.zc_hysteresis, HYST_OF_VPK_MIN * vpk_min),
+        zc_blank_V=_pick(c.zc_blank_voltage, BLANK_OF_VPK_MIN * vpk_min),
         ov_trip_V=ov,
         oc_trip_A=oc,
-        brownout_off_rms_V=_pick(pr.brownout_off_rms, 0.85 * s.vin_rms_min),
-        brownout_on_rms_V=_pick(pr.brownout_on_rms, 0.92 * s.vin_rms_min),
-        vac_range_V=_pick(se.vac_range, 1.25 * vpk_max),
-        il_range_A=_pick(se.il_range, 1.25 * oc),
-        vbus_range_V=_pick(se.vbus_range, 1.25 * ov),
+        brownout_off_rms_V=_pick(pr.brownout_off_rms, BROWNOUT_OFF_OF_VMIN * s.vin_rms_min),
+        brownout_on_rms_V=_pick(pr.brownout_on_rms, BROWNOUT_ON_OF_VMIN * s.vin_rms_min),
+        vac_range_V=_pick(se.vac_range, RANGE_MARGIN * vpk_max),
+        il_range_A=_pick(se.il_range, RANGE_MARGIN * oc),
+        vbus_range_V=_pick(se.vbus_range, RANGE_MARGIN * ov),
         vac_offset_counts=_pick(se.vac_offset, mid),
         il_offset_counts=_pick(se.il_offset, mid),
         adc_full_counts=2**se.adc_bits - 1,
@@ -86,7 +117,7 @@ def _check(cfg: Config, r: Resolved) -> None:
         )
     if r.brownout_on_rms_V <= r.brownout_off_rms_V:
         raise ConfigError(
-            f"{src}: [protection] brownout_on_rms = {r.brownout_on_rms_V:g} V: must be > brownout_off_rms = {r.brownout_off_rms_V:g} V"
+            f"{src}: [protection] brownout_on_rms = {r.brownout_on_rms_V:g} V: must be > brownout_off_rms = {r.brownout_off_rms_V:g} V (hysteresis)"
         )
     if r.brownout_on_rms_V > s.vin_rms_min:
         raise ConfigError(
@@ -102,12 +133,12 @@ def _check(cfg: Config, r: Resolved) -> None:
     for table, key, val, need, unit, what in checks:
         if val <= need:
             raise ConfigError(f"{src}: [{table}] {key} = {val:g} {unit}: must exceed {what} = {need:.4g} {unit}")
-    if r.pwm_period_counts < 100:
+    if r.pwm_period_counts < MIN_PERIOD_COUNTS:
         raise ConfigError(
             f"{src}: [control] pwm_timer_clock = {cfg.control.pwm_timer_clock:g} Hz: gives {r.pwm_period_counts} counts per PWM period; "
             "at least 100 are needed"
         )
-    if r.pwm_period_counts > 65535:
+    if r.pwm_period_counts > MAX_PERIOD_COUNTS:
         raise ConfigError(
             f"{src}: [control] pwm_timer_clock = {cfg.control.pwm_timer_clock:g} Hz: gives {r.pwm_period_counts} counts per PWM period; "
             "at most 65535 fit the 16-bit compare"

@@ -1,0 +1,225 @@
+"""The controller's interface, written once: gate bits, supervisor modes and their allowed
+edges, fault bits, the sense block's fault bits, the input and output records, the probe
+layout of the host build, and the lockstep link's framing and request types.
+
+The C templates render their macros from these tables (a test renders the C and checks
+every macro against them); the plant, the records' dtypes, the reports, the fuzz
+invariants and the host side of the link read the same names.
+"""
+from __future__ import annotations
+
+from dataclasses import dataclass
+from enum import IntEnum, IntFlag
+
+
+class Gate(IntFlag):
+    """Bits of the output record's gate-enable mask (a set bit lets that switch conduct)."""
+
+    FAST_LO = 1
+    FAST_HI = 2
+    SLOW_LO = 4
+    SLOW_HI = 8
+
+
+GATE_DOCS = {
+    Gate.FAST_LO: "fast leg, low switch",
+    Gate.FAST_HI: "fast leg, high switch",
+    Gate.SLOW_LO: "slow leg, low switch",
+    Gate.SLOW_HI: "slow leg, high switch",
+}
+
+
+class Mode(IntEnum):
+    """Supervisor modes (the output record's ``mode``).  Switching only in SOFT_START and RUN."""
+
+    WAIT_LINE = 0
+    PRECHARGED = 1
+    SOFT_START = 2
+    RUN = 3
+    LINE_LOSS = 4
+    BROWNOUT = 5
+    TRIPPED = 6
+    LATCHED = 7
+    SENSOR_FAULT = 8
+
+
+MODE_DOCS = {
+    Mode.WAIT_LINE: "waiting for a valid line (frequency, rms, no brown-out) and a precharged bus",
+    Mode.PRECHARGED: "line valid, bus^2 >= {P}_PRECHARGE_K x line mean square; start at the "
+                     "next crossing",
+    Mode.SOFT_START: "reference ramps from the measured bus to {P}_VOUT_V",
+    Mode.RUN: "regulating",
+    Mode.LINE_LOSS: "line lost: gates off, integrators and rms frozen; resume at the next crossing",
+    Mode.BROWNOUT: "line rms under the brown-out threshold: gates off until above the restart one",
+    Mode.TRIPPED: "over-voltage/over-current trip while switching: gates off, retry after "
+                  "{P}_RETRY_DELAY_PERIODS",
+    Mode.LATCHED: "{P}_RETRY_LIMIT trips without a clean run: off until init",
+    Mode.SENSOR_FAULT: "a sensor railed or stuck, or a non-finite state: off until init",
+}
+
+M = Mode
+# Mode changes the supervisor may make from one period to the next (the fuzz invariant `sane`).
+MODE_EDGES: frozenset[tuple[Mode, Mode]] = frozenset(
+    {
+        (M.WAIT_LINE, M.PRECHARGED), (M.PRECHARGED, M.WAIT_LINE), (M.PRECHARGED, M.SOFT_START),
+        (M.SOFT_START, M.RUN), (M.SOFT_START, M.LINE_LOSS), (M.RUN, M.LINE_LOSS),
+        (M.SOFT_START, M.BROWNOUT), (M.RUN, M.BROWNOUT), (M.SOFT_START, M.WAIT_LINE),
+        (M.RUN, M.WAIT_LINE), (M.LINE_LOSS, M.SOFT_START), (M.LINE_LOSS, M.WAIT_LINE),
+        (M.BROWNOUT, M.SOFT_START), (M.TRIPPED, M.WAIT_LINE), (M.TRIPPED, M.LATCHED),
+    }
+    | {(m, M.TRIPPED) for m in Mode if m < M.TRIPPED}
+    | {(m, M.LATCHED) for m in Mode if m < M.TRIPPED}
+    | {(m, M.SENSOR_FAULT) for m in Mode if m < M.SENSOR_FAULT}
+)
+del M
+
+
+class Fault(IntFlag):
+    """Bits of the output record's ``faults``: active conditions, and history bits that stay."""
+
+    OV = 1
+    OC = 2
+    BROWNOUT = 4
+    LINE_LOSS = 8
+    FREQ = 16
+    SENSOR = 32
+    LATCHED = 64
+    NONFINITE = 128
+
+
+FAULT_DOCS = {
+    Fault.OV: "bus over-voltage trip",
+    Fault.OC: "inductor over-current trip",
+    Fault.BROWNOUT: "line rms below the brown-out level",
+    Fault.LINE_LOSS: "line lost",
+    Fault.FREQ: "line frequency out of the accepted band",
+    Fault.SENSOR: "a sensor channel railed or stuck (history: stays set)",
+    Fault.LATCHED: "trips latched the stage off (history: stays set)",
+    Fault.NONFINITE: "a non-finite controller state was cleared",
+}
+
+
+class Channel(IntEnum):
+    """ADC channels, in the order of the input record."""
+
+    VAC = 0
+    IL = 1
+    VBUS = 2
+
+
+class SenseFault(IntFlag):
+    """Latched fault bits of the sense block (a railed channel's bit is 1 << its channel)."""
+
+    LINE_RAIL = 1 << Channel.VAC
+    BUS_RAIL = 1 << Channel.VBUS
+    LINE_STUCK = 8
+
+
+SENSE_FAULT_DOCS = {
+    SenseFault.LINE_RAIL: "line channel at a rail",
+    SenseFault.BUS_RAIL: "bus channel at its top rail",
+    SenseFault.LINE_STUCK: "line channel frozen on one count away from zero",
+}
+
+
+class Start(IntEnum):
+    """What the supervisor asks of the voltage loop in a period."""
+
+    NONE = 0
+    START = 1  # soft start from scratch
+    RESUME = 2  # restart after line loss or brown-out, integrator kept
+
+
+@dataclass(frozen=True)
+class Field:
+    """One field of a record shared between the C and the harness."""
+
+    name: str
+    ctype: str
+    dtype: str  # numpy dtype string of the same field
+    doc: str
+
+
+ADC_FIELDS = (
+    Field("vac", "uint16_t", "<u2", "line voltage: bipolar, 0 V at {P}_VAC_OFFSET_COUNTS [counts]"),
+    Field("il", "uint16_t", "<u2", "inductor current: bipolar, 0 A at {P}_IL_OFFSET_COUNTS [counts]"),
+    Field("vbus", "uint16_t", "<u2", "bus voltage: unipolar, 0 V at 0 counts [counts]"),
+)
+OUTPUT_FIELDS = (
+    Field("compare", "uint16_t", "<u2", "low fast-leg switch on-time, 0..{P}_PWM_PERIOD_COUNTS "
+                                        "[timer counts]; the timer inserts the dead time"),
+    Field("gates", "uint8_t", "u1", "{P}_GATE_* bits of the switches allowed to conduct"),
+    Field("mode", "uint8_t", "u1", "supervisor mode, {P}_MODE_*"),
+    Field("faults", "uint16_t", "<u2", "active fault bits, {P}_FAULT_*"),
+)
+# Internals the host build copies out each period (SI units; q15 builds convert from per unit).
+PROBES = (
+    ("duty", "1", "main-switch duty"),
+    ("iref_A", "A", "current reference"),
+    ("vref_V", "V", "bus reference"),
+    ("pcmd_W", "W", "input power command"),
+)
+
+NUMBER_FORMATS = {"float32": 0, "q15": 1}  # the number-format code of the C and of HELLO_ACK
+
+
+class Request(IntEnum):
+    """Link request types; the answer's type is the request's | ACK_BIT."""
+
+    HELLO = 0x01
+    RESET = 0x02
+    STEP = 0x03
+    SNAPSHOT = 0x04
+    COST = 0x05
+
+
+class LinkErr(IntEnum):
+    """Codes in the payload of an ERROR frame."""
+
+    BAD_LENGTH = 1
+    UNKNOWN_TYPE = 2
+
+
+LINK = {
+    "VERSION": (1, "protocol version in HELLO_ACK"),
+    "SOF0": (0xA5, "first start byte"),
+    "SOF1": (0x5A, "second start byte"),
+    "ACK_BIT": (0x80, "set in the type of an answer"),
+    "ERROR_TYPE": (0xFF, "type of an error answer"),
+    "HEADER_BYTES": (6, "start bytes, type, seq, length (u16)"),
+    "CRC_BYTES": (2, "CRC-16/CCITT-FALSE after the payload"),
+    "MAX_STEPS": (64, "periods in one STEP request at most"),
+    "STEP_IN_BYTES": (6, "bytes per period in a STEP request (vac, il, vbus u16)"),
+    "STEP_OUT_BYTES": (6, "bytes per period in a STEP answer (compare u16, gates, mode, faults u16)"),
+    "MAX_PAYLOAD": (1 + 64 * 6, "largest payload: a count byte and MAX_STEPS periods"),
+    "SNAPSHOT_CHUNK": (256, "state bytes in one SNAPSHOT answer at most"),
+    "DIGEST_CHARS": (16, "config digest characters in HELLO_ACK"),
+    "COST_WORDS": (8, "u32 words in a COST answer"),
+    "TICK_BITS": (24, "counter bits a step's tick difference is taken modulo"),
+}
+CRC_POLY = 0x1021  # CRC-16/CCITT-FALSE: poly 0x1021, init 0xFFFF, no reflection, no final xor
+CRC_INIT = 0xFFFF
+
+
+def link_value(name: str) -> int:
+    return LINK[name][0]
+
+
+def macros() -> dict[str, int]:
+    """Every integer macro the generated C must define from this module (without prefix)."""
+    out: dict[str, int] = {}
+    out.update({f"GATE_{g.name}": int(g) for g in Gate})
+    out.update({f"MODE_{m.name}": int(m) for m in Mode})
+    out.update({f"FAULT_{f.name}": int(f) for f in Fault})
+    out.update({f"SENSE_{f.name}": int(f) for f in SenseFault})
+    out.update({f"CH_{c.name}": int(c) for c in Channel})
+    out["ADC_CHANNELS"] = len(Channel)
+    out.update({f"START_{e.name}": int(e) for e in Start})
+    out.update({f"FORMAT_{k.upper()}": v for k, v in NUMBER_FORMATS.items()})
+    out["PROBES"] = len(PROBES)
+    out.update({f"REQ_{r.name}": int(r) for r in Request})
+    out.update({f"LINKERR_{e.name}": int(e) for e in LinkErr})
+    out.update({f"LINK_{k}": v for k, (v, _) in LINK.items()})
+    out["LINK_CRC_POLY"] = CRC_POLY
+    out["LINK_CRC_INIT"] = CRC_INIT
+    return out

@@ -1,0 +1,2 @@
+"""Campaigns: property-based fault cases drawn by hypothesis, run in lockstep batches and
+checked against the invariants."""

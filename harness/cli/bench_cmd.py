@@ -1,0 +1,35 @@
+"""``pfcrig bench``: the closed loop's cost on this machine, measured in one run."""
+from __future__ import annotations
+
+import argparse
+import sys
+from importlib import resources
+
+from design.project import load_project
+from harness.closedloop.bench import bench
+
+from .output import write_json
+from .tables import format_table
+
+
+def register(sub: argparse._SubParsersAction) -> None:
+    q = sub.add_parser("bench", help="measure the step cost, real-time factors and batch throughput here")
+    q.add_argument("--config", help="config to measure (default: the shipped example)")
+    q.add_argument("--sizes", default="1,16,256,1024", help="batch sizes (default 1,16,256,1024)")
+    q.add_argument("--json", metavar="OUT")
+    q.set_defaults(func=bench_cmd)
+
+
+def bench_cmd(args: argparse.Namespace) -> int:
+    cfg = args.config or str(resources.files("harness").joinpath("data/universal_1k5.toml"))
+    prj = load_project(cfg)
+    sizes = tuple(int(x) for x in args.sizes.split(","))
+    out = bench(prj, sizes=sizes, log=lambda m: print(m, file=sys.stderr))
+    out["config"] = cfg
+    rows = [(k, "met" if v else "NOT met") for k, v in out["meets"].items()]
+    print(format_table(["target", "status"], rows))
+    print(f"bare step {out['bare_step_ns']:.1f} ns; single switching {out['single_switching_rtf']:.4f} x real time; "
+          f"averaged {out['single_averaged_rtf']:.4f} x; best batch {out['best_batch_rate_per_s']:.0f} scenario-periods/s")
+    if args.json:
+        write_json(args.json, out)
+    return 0

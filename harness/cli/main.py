@@ -1,0 +1,53 @@
+"""The ``pfcrig`` command line: the parser and one error path; each command in its module."""
+from __future__ import annotations
+
+import argparse
+import sys
+
+from codegen.build import BuildError
+from design.config import ConfigError
+from harness.targets.link import LinkError
+
+from . import bench_cmd, design_cmd, fuzz_cmd, generate_cmd, init_cmd, pil_cmd, run_cmd
+
+CAUTION = (
+    "CAUTION: a PFC bus (~400 V DC) is lethal. pfcrig output is reference material, to be "
+    "validated on hardware by qualified people; local electrical codes and licensed practice "
+    "take precedence."
+)
+COMMANDS = (init_cmd, design_cmd, generate_cmd, run_cmd, fuzz_cmd, bench_cmd, pil_cmd)
+
+
+def build_parser() -> argparse.ArgumentParser:
+    p = argparse.ArgumentParser(
+        prog="pfcrig",
+        description="Totem-pole PFC: size the stage, generate C control firmware, prove it in "
+                    "closed loop.",
+        epilog=CAUTION,
+    )
+    sub = p.add_subparsers(dest="command", required=True, metavar="COMMAND")
+    for module in COMMANDS:
+        module.register(sub)
+    return p
+
+
+def main(argv: list[str] | None = None) -> int:
+    parser = build_parser()
+    args = parser.parse_args(argv)
+    try:
+        return int(args.func(args) or 0)
+    except ConfigError as exc:
+        print(f"pfcrig: error: {exc}", file=sys.stderr)
+        return 2
+    except BuildError as exc:
+        print(f"pfcrig: build error: {exc}", file=sys.stderr)
+        return 1
+    except (LinkError, TimeoutError) as exc:  # a target behind the link that cannot be reached
+        print(f"pfcrig: link error: {exc}", file=sys.stderr)
+        return 1
+    except BrokenPipeError:
+        sys.stderr.close()
+        return 0
+    except KeyboardInterrupt:
+        print("pfcrig: interrupted", file=sys.stderr)
+        return 130
