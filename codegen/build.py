@@ -6,6 +6,7 @@ cffi wrapper, which is not ours, is compiled with the compiler's defaults and
 linked against those objects), so a warning in generated code fails the build
 with the C diagnostic and the offending generated line.
 """
+
 from __future__ import annotations
 
 import hashlib
@@ -28,10 +29,20 @@ from design.project import Project
 from .render import render, render_host
 
 STRICT_FLAGS = [
-    "-std=c99", "-Wall", "-Wextra", "-Wpedantic", "-Wconversion", "-Wdouble-promotion", "-Wshadow", "-Werror",
+    "-std=c99",
+    "-Wall",
+    "-Wextra",
+    "-Wpedantic",
+    "-Wconversion",
+    "-Wdouble-promotion",
+    "-Wshadow",
+    "-Werror",
 ]
 HOST_FLAGS = ["-O2", "-fPIC", "-ffp-contract=off", "-fno-strict-aliasing"]
-INTERNAL_HEADERS = ("_math.h", "_config.h")  # static inline helpers and macros: not part of the cffi interface
+INTERNAL_HEADERS = (
+    "_math.h",
+    "_config.h",
+)  # static inline helpers and macros: not part of the cffi interface
 
 
 class BuildError(RuntimeError):
@@ -55,15 +66,20 @@ def _diagnostic(stderr: str, src_dir: Path) -> str:
     return "\n".join(lines)
 
 
-def compile_objects(src_dir: Path, out_dir: Path, cc: str = "gcc", flags: list[str] | None = None) -> list[Path]:
+def compile_objects(
+    src_dir: Path, out_dir: Path, cc: str = "gcc", flags: list[str] | None = None
+) -> list[Path]:
     """Compile every ``*.c`` in ``src_dir`` with the strict flags; returns the object files."""
     flags = STRICT_FLAGS + (HOST_FLAGS if flags is None else flags)
     out_dir.mkdir(parents=True, exist_ok=True)
     objs = []
     for c_file in sorted(src_dir.glob("*.c")):
         obj = out_dir / (c_file.stem + ".o")
-        r = subprocess.run([cc, *flags, "-I", str(src_dir), "-c", str(c_file), "-o", str(obj)],
-                           capture_output=True, text=True)
+        r = subprocess.run(
+            [cc, *flags, "-I", str(src_dir), "-c", str(c_file), "-o", str(obj)],
+            capture_output=True,
+            text=True,
+        )
         if r.returncode != 0 or r.stderr.strip():
             raise BuildError(f"{cc} failed on {c_file.name}:\n{_diagnostic(r.stderr, src_dir)}")
         objs.append(obj)
@@ -80,7 +96,9 @@ def cdef_from_headers(headers: list[str], sizes: dict[str, int] | None = None) -
         text = re.sub(r"/\*.*?\*/", "", text, flags=re.S)
         text = re.sub(r"//[^\n]*", "", text)
         text = re.sub(r'^extern "C" \{$|^\}$', "", text, flags=re.M)
-        text = re.sub(r"\[([A-Z][A-Z0-9_]*)\]", lambda m: f"[{sizes.get(m.group(1), m.group(1))}]", text)
+        text = re.sub(
+            r"\[([A-Z][A-Z0-9_]*)\]", lambda m: f"[{sizes.get(m.group(1), m.group(1))}]", text
+        )
         out.extend(ln for ln in text.splitlines() if ln.strip() and not ln.lstrip().startswith("#"))
     return "\n".join(out)
 
@@ -89,7 +107,9 @@ def integer_macros(files: dict[str, str], prefix: str) -> dict[str, int]:
     """Values of every ``#define PREFIX_NAME 12u`` macro in ``files``."""
     found: dict[str, int] = {}
     for text in files.values():
-        for name, value in re.findall(rf"^#define ({prefix.upper()}_[A-Z0-9_]+) \(?(\d+)u\)?", text, re.M):
+        for name, value in re.findall(
+            rf"^#define ({prefix.upper()}_[A-Z0-9_]+) \(?(\d+)u\)?", text, re.M
+        ):
             found[name] = int(value)
     return found
 
@@ -129,7 +149,9 @@ def _import(path: Path, modname: str) -> Built:
 _LOADED: dict[str, Built] = {}
 
 
-def build(files: dict[str, str], prefix: str, extra_c: dict[str, str] | None = None, cc: str = "gcc") -> Built:
+def build(
+    files: dict[str, str], prefix: str, extra_c: dict[str, str] | None = None, cc: str = "gcc"
+) -> Built:
     """Build (or fetch from the cache) an extension exposing every public function.
 
     ``files`` are the generated sources ({name: text}); ``extra_c`` host-only sources
@@ -157,9 +179,16 @@ def build(files: dict[str, str], prefix: str, extra_c: dict[str, str] | None = N
             ffi = cffi.FFI()
             macros = integer_macros(allf, prefix)
             ffi.cdef(cdef_from_headers(headers, macros) + "\n" + _integer_macro_cdef(macros))
-            includes = "\n".join(f'#include "{n}"' for n in order) + f'\n#include "{prefix}_config.h"\n'
-            ffi.set_source(modname, includes, include_dirs=[str(src)], extra_objects=[str(o) for o in objs],
-                           extra_compile_args=["-O2", "-w"])
+            includes = (
+                "\n".join(f'#include "{n}"' for n in order) + f'\n#include "{prefix}_config.h"\n'
+            )
+            ffi.set_source(
+                modname,
+                includes,
+                include_dirs=[str(src)],
+                extra_objects=[str(o) for o in objs],
+                extra_compile_args=["-O2", "-w"],
+            )
             out = Path(ffi.compile(tmpdir=str(tmp / "ext"), verbose=False))
             stage = tmp / "final"
             stage.mkdir()
@@ -183,7 +212,9 @@ def build(files: dict[str, str], prefix: str, extra_c: dict[str, str] | None = N
 def _header_order(files: dict[str, str], prefix: str) -> list[str]:
     """Public headers in dependency order (each after the headers it includes)."""
     names = [n for n in files if n.endswith(".h") and not n.endswith(INTERNAL_HEADERS)]
-    deps = {n: [d for d in re.findall(r'#include "([^"]+)"', files[n]) if d in names] for n in names}
+    deps = {
+        n: [d for d in re.findall(r'#include "([^"]+)"', files[n]) if d in names] for n in names
+    }
     order: list[str] = []
 
     def visit(n: str) -> None:

@@ -1,4 +1,5 @@
 """C literals of the constants in ``design.constants``, per number format."""
+
 from __future__ import annotations
 
 from design.constants import Const
@@ -13,8 +14,9 @@ def c_literal(k: Const, number_format: str = "float32") -> str:
     if number_format == "q15" and k.kind == "f":
         n = int(round(k.value / k.q_base * 2.0**k.q_bits))
         if not -(2**31) <= n < 2**31:
-            raise ValueError(f"{k.name} = {k.value:g} does not fit int32 as Q{k.q_bits} of "
-                             f"{k.q_base:g}")
+            raise ValueError(
+                f"{k.name} = {k.value:g} does not fit int32 as Q{k.q_bits} of {k.q_base:g}"
+            )
         return f"((int32_t){n})"
     text = f"{float(k.value):.9g}"
     if "e" not in text and "." not in text and "inf" not in text and "nan" not in text:

@@ -1,4 +1,5 @@
 """Render the C templates (jinja2) into source text: deterministic, byte for byte."""
+
 from __future__ import annotations
 
 from itertools import groupby
@@ -16,8 +17,21 @@ from .literals import c_literal
 
 VERSION = "0.1.0"
 # One template pair per block, in signal order, then the top level.
-BLOCKS = ["types", "math", "pi", "sense", "polarity", "rms", "busavg", "vloop", "iref", "iloop",
-          "pwm", "supervisor", "ctrl"]
+BLOCKS = [
+    "types",
+    "math",
+    "pi",
+    "sense",
+    "polarity",
+    "rms",
+    "busavg",
+    "vloop",
+    "iref",
+    "iloop",
+    "pwm",
+    "supervisor",
+    "ctrl",
+]
 HEADER_ONLY = {"types", "math"}
 
 
@@ -26,18 +40,28 @@ def _units(P: str, fixed: bool) -> dict[str, str]:
     per-unit base and Q format in q15 builds."""
     if not fixed:
         return dict(V="V", A="A", W="W", V2="V^2", inv_V="1/V", inv_V2="1/V^2", one="1")
-    return dict(V=f"per unit of {P}_V_BASE_V, Q15", A=f"per unit of {P}_I_BASE_A, Q15",
-                W=f"per unit of {P}_P_BASE_W, Q15", V2=f"per unit of {P}_V_BASE_V squared, Q30",
-                inv_V=f"{P}_V_BASE_V/v, Q15", inv_V2=f"1/(per unit of {P}_V_BASE_V)^2, Q15",
-                one="Q15")
+    return dict(
+        V=f"per unit of {P}_V_BASE_V, Q15",
+        A=f"per unit of {P}_I_BASE_A, Q15",
+        W=f"per unit of {P}_P_BASE_W, Q15",
+        V2=f"per unit of {P}_V_BASE_V squared, Q30",
+        inv_V=f"{P}_V_BASE_V/v, Q15",
+        inv_V2=f"1/(per unit of {P}_V_BASE_V)^2, Q15",
+        one="Q15",
+    )
 
 
 def _format_names(p: str, P: str, number_format: str) -> dict[str, Any]:
     """Names the templates use where the two number formats differ."""
     fixed = number_format == "q15"
-    return dict(fixed=fixed, real=f"{p}_real_t", zero="0" if fixed else "0.0f",
-                abs=f"{p}_absq" if fixed else f"{p}_absf",
-                clamp=f"{p}_clampq" if fixed else f"{p}_clampf", u=_units(P, fixed))
+    return dict(
+        fixed=fixed,
+        real=f"{p}_real_t",
+        zero="0" if fixed else "0.0f",
+        abs=f"{p}_absq" if fixed else f"{p}_absf",
+        clamp=f"{p}_clampq" if fixed else f"{p}_clampf",
+        u=_units(P, fixed),
+    )
 
 
 def _context(prj: Project, **extra: Any) -> dict[str, Any]:
@@ -46,10 +70,19 @@ def _context(prj: Project, **extra: Any) -> dict[str, Any]:
     cfg = prj.config
     p = cfg.control.prefix
     P = p.upper()
-    return dict(p=p, P=P, version=VERSION, source_name=Path(cfg.source).name,
-                digest=cfg.digest(), number_format=cfg.control.number_format, vout=cfg.spec.vout,
-                ct=contract, link=contract.LINK, **_format_names(p, P, cfg.control.number_format),
-                **extra)
+    return dict(
+        p=p,
+        P=P,
+        version=VERSION,
+        source_name=Path(cfg.source).name,
+        digest=cfg.digest(),
+        number_format=cfg.control.number_format,
+        vout=cfg.spec.vout,
+        ct=contract,
+        link=contract.LINK,
+        **_format_names(p, P, cfg.control.number_format),
+        **extra,
+    )
 
 
 def environment(loader: jinja2.BaseLoader | None = None) -> jinja2.Environment:
@@ -76,8 +109,9 @@ def render(prj: Project, loader: jinja2.BaseLoader | None = None) -> dict[str, s
     files: dict[str, str] = {}
     groups = [(g, list(items)) for g, items in groupby(consts, key=lambda k: k.group)]
     name = f"{p}_config.h"
-    files[name] = env.get_template("config.h.j2").render(**base, file=name, groups=groups,
-                                                         literals=lits)
+    files[name] = env.get_template("config.h.j2").render(
+        **base, file=name, groups=groups, literals=lits
+    )
     for block in BLOCKS:
         for ext in ("h", "c"):
             if ext == "c" and block in HEADER_ONLY:
@@ -93,8 +127,12 @@ def render_host(prj: Project) -> dict[str, str]:
     p = prj.config.control.prefix
     base = _context(prj)
     env = environment()
-    return {f"{p}_host_batch.{ext}": env.get_template(f"host_batch.{ext}.j2").render(
-        **base, file=f"{p}_host_batch.{ext}") for ext in ("h", "c")}
+    return {
+        f"{p}_host_batch.{ext}": env.get_template(f"host_batch.{ext}.j2").render(
+            **base, file=f"{p}_host_batch.{ext}"
+        )
+        for ext in ("h", "c")
+    }
 
 
 def render_link(prj: Project, host_main: bool = False, port: str | None = None) -> dict[str, str]:
@@ -108,8 +146,10 @@ def render_link(prj: Project, host_main: bool = False, port: str | None = None) 
     if host_main:
         names.append(("link_host_main.c.j2", f"{p}_link_host_main.c"))
     if port == "mps2_an386":
-        names += [("link_mps2_an386.c.j2", f"{p}_link_mps2_an386.c"),
-                  ("link_mps2_an386.ld.j2", f"{p}_mps2_an386.ld")]
+        names += [
+            ("link_mps2_an386.c.j2", f"{p}_link_mps2_an386.c"),
+            ("link_mps2_an386.ld.j2", f"{p}_mps2_an386.ld"),
+        ]
     return {out: env.get_template(t).render(**base, file=out) for t, out in names}
 
 

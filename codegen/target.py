@@ -7,6 +7,7 @@ Sizes are counted one way everywhere (``image_size``, from ``size``): flash = te
 state itself is the caller's, reported as ``sizeof``.  The undefined symbols outside the
 generated code (a libm call or an allocator would show there) are listed.
 """
+
 from __future__ import annotations
 
 import hashlib
@@ -24,13 +25,28 @@ from .build import HOST_FLAGS, STRICT_FLAGS, BuildError, cache_root, compile_obj
 from .render import render, render_link
 
 TARGETS = {
-    "cortex-m4f": ["-mcpu=cortex-m4", "-mthumb", "-mfloat-abi=hard", "-mfpu=fpv4-sp-d16", "-O2", "-ffp-contract=off"],
-    "cortex-m0plus": ["-mcpu=cortex-m0plus", "-mthumb", "-mfloat-abi=soft", "-O2", "-ffp-contract=off"],
+    "cortex-m4f": [
+        "-mcpu=cortex-m4",
+        "-mthumb",
+        "-mfloat-abi=hard",
+        "-mfpu=fpv4-sp-d16",
+        "-O2",
+        "-ffp-contract=off",
+    ],
+    "cortex-m0plus": [
+        "-mcpu=cortex-m0plus",
+        "-mthumb",
+        "-mfloat-abi=soft",
+        "-O2",
+        "-ffp-contract=off",
+    ],
 }
 FLASH_LIMIT_B = 4096
 STATE_LIMIT_B = 256
 # compiler support routines (soft-float and integer division on cores without them): not libm
-SUPPORT = re.compile(r"^__aeabi_|^__(add|sub|mul|div|neg|cmp|eq|ne|lt|le|gt|ge|un|fix|float|extend|trunc)\w*[sd]f\d?$")
+SUPPORT = re.compile(
+    r"^__aeabi_|^__(add|sub|mul|div|neg|cmp|eq|ne|lt|le|gt|ge|un|fix|float|extend|trunc)\w*[sd]f\d?$"
+)
 
 
 @dataclass
@@ -47,18 +63,30 @@ class TargetReport:
         return not self.undefined
 
     def as_dict(self) -> dict:
-        return dict(target=self.target, flags=self.flags, flash_B=self.flash_B, ram_B=self.ram_B, state_B=self.state_B,
-                    undefined=self.undefined, support_calls=self.support_calls,
-                    flash_limit_B=FLASH_LIMIT_B, state_limit_B=STATE_LIMIT_B)
+        return dict(
+            target=self.target,
+            flags=self.flags,
+            flash_B=self.flash_B,
+            ram_B=self.ram_B,
+            state_B=self.state_B,
+            undefined=self.undefined,
+            support_calls=self.support_calls,
+            flash_limit_B=FLASH_LIMIT_B,
+            state_limit_B=STATE_LIMIT_B,
+        )
 
 
 def available(cc: str = "arm-none-eabi-gcc") -> bool:
     return shutil.which(cc) is not None
 
 
-def check(files: dict[str, str], prefix: str, target: str = "cortex-m4f", cc: str = "arm-none-eabi-gcc") -> TargetReport:
+def check(
+    files: dict[str, str], prefix: str, target: str = "cortex-m4f", cc: str = "arm-none-eabi-gcc"
+) -> TargetReport:
     if not available(cc):
-        raise BuildError(f"{cc} not found: install gcc-arm-none-eabi (Debian) for the cross-compile check")
+        raise BuildError(
+            f"{cc} not found: install gcc-arm-none-eabi (Debian) for the cross-compile check"
+        )
     flags = TARGETS[target]
     tool = cc[: -len("gcc")]
     with tempfile.TemporaryDirectory(prefix="pfcrig-target-") as tmp:
@@ -71,28 +99,63 @@ def check(files: dict[str, str], prefix: str, target: str = "cortex-m4f", cc: st
         probe = Path(tmp) / "probe.c"
         probe.write_text(f'#include "{prefix}_ctrl.h"\n{prefix}_ctrl_t {prefix}_probe_state;\n')
         pobj = Path(tmp) / "probe.o"
-        subprocess.run([cc, *STRICT_FLAGS, *flags, "-fno-common", "-I", str(src), "-c", str(probe), "-o", str(pobj)],
-                       check=True, capture_output=True)
-        nm = subprocess.run([tool + "nm", "-S", str(pobj)], capture_output=True, text=True, check=True).stdout
-        state = next(int(ln.split()[1], 16) for ln in nm.splitlines() if ln.endswith(f"{prefix}_probe_state"))
-        nm_all = subprocess.run([tool + "nm", *map(str, objs)], capture_output=True, text=True, check=True).stdout
+        subprocess.run(
+            [
+                cc,
+                *STRICT_FLAGS,
+                *flags,
+                "-fno-common",
+                "-I",
+                str(src),
+                "-c",
+                str(probe),
+                "-o",
+                str(pobj),
+            ],
+            check=True,
+            capture_output=True,
+        )
+        nm = subprocess.run(
+            [tool + "nm", "-S", str(pobj)], capture_output=True, text=True, check=True
+        ).stdout
+        state = next(
+            int(ln.split()[1], 16) for ln in nm.splitlines() if ln.endswith(f"{prefix}_probe_state")
+        )
+        nm_all = subprocess.run(
+            [tool + "nm", *map(str, objs)], capture_output=True, text=True, check=True
+        ).stdout
     defined = {ln.split()[-1] for ln in nm_all.splitlines() if re.match(r"^[0-9a-f]+ [TDRBC] ", ln)}
-    undef = sorted({ln.split()[-1] for ln in nm_all.splitlines() if ln.strip().startswith("U ")} - defined)
+    undef = sorted(
+        {ln.split()[-1] for ln in nm_all.splitlines() if ln.strip().startswith("U ")} - defined
+    )
     support = [u for u in undef if SUPPORT.match(u)]
-    return TargetReport(target, flags, sizes["flash_B"], sizes["ram_B"], state,
-                        [u for u in undef if u not in support], support)
+    return TargetReport(
+        target,
+        flags,
+        sizes["flash_B"],
+        sizes["ram_B"],
+        state,
+        [u for u in undef if u not in support],
+        support,
+    )
 
 
 def image_size(paths: list[Path], size_tool: str = "arm-none-eabi-size") -> dict[str, int]:
     """Flash (text + data) and static RAM (data + bss) of objects or a linked image, summed."""
-    out = subprocess.run([size_tool, *map(str, paths)], capture_output=True, text=True,
-                         check=True).stdout
+    out = subprocess.run(
+        [size_tool, *map(str, paths)], capture_output=True, text=True, check=True
+    ).stdout
     text = data = bss = 0
     for line in out.splitlines()[1:]:
         parts = line.split()
         text, data, bss = text + int(parts[0]), data + int(parts[1]), bss + int(parts[2])
-    return {"flash_B": text + data, "ram_B": data + bss, "text_B": text, "data_B": data,
-            "bss_B": bss}
+    return {
+        "flash_B": text + data,
+        "ram_B": data + bss,
+        "text_B": text,
+        "data_B": data,
+        "bss_B": bss,
+    }
 
 
 @dataclass(frozen=True)
@@ -107,10 +170,17 @@ class TargetBuild:
     suffix: str = ""
 
 
-HOST_BUILD = TargetBuild("host", "gcc", [f for f in HOST_FLAGS if f != "-fPIC"], {"host_main": True})
-QEMU_M4F_BUILD = TargetBuild("qemu-m4f", "arm-none-eabi-gcc", TARGETS["cortex-m4f"],
-                             {"port": "mps2_an386"},
-                             [*TARGETS["cortex-m4f"], "-nostdlib", "-T", "{ld}"], "_mps2_an386.elf")
+HOST_BUILD = TargetBuild(
+    "host", "gcc", [f for f in HOST_FLAGS if f != "-fPIC"], {"host_main": True}
+)
+QEMU_M4F_BUILD = TargetBuild(
+    "qemu-m4f",
+    "arm-none-eabi-gcc",
+    TARGETS["cortex-m4f"],
+    {"port": "mps2_an386"},
+    [*TARGETS["cortex-m4f"], "-nostdlib", "-T", "{ld}"],
+    "_mps2_an386.elf",
+)
 
 
 def build_target(prj: Project, tb: TargetBuild) -> Path:
@@ -137,8 +207,9 @@ def build_target(prj: Project, tb: TargetBuild) -> Path:
         ld = next((str(src / n) for n in files if n.endswith(".ld")), "")
         args = [a.replace("{ld}", ld) for a in tb.link_args] or tb.flags
         libs = ["-lgcc"] if tb.link_args else []
-        r = subprocess.run([tb.cc, *args, *map(str, objs), "-o", str(out), *libs],
-                           capture_output=True, text=True)
+        r = subprocess.run(
+            [tb.cc, *args, *map(str, objs), "-o", str(out), *libs], capture_output=True, text=True
+        )
         if r.returncode:
             raise BuildError(f"link of the {tb.name} target failed:\n{r.stderr}")
         os.replace(out, exe)

@@ -4,6 +4,7 @@ Every error names the file, the table, the key, the value and what would have be
 allowed, and raises :class:`ConfigError` before anything is written.  Checks that need the
 sizing (derived thresholds and ranges) are in ``design.derive``.
 """
+
 from __future__ import annotations
 
 import dataclasses
@@ -16,7 +17,16 @@ from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
 
-from .schema import SCHEMA, TABLES, ControlTable, Key, PlantTable, ProtectionTable, SensingTable, SpecTable
+from .schema import (
+    SCHEMA,
+    TABLES,
+    ControlTable,
+    Key,
+    PlantTable,
+    ProtectionTable,
+    SensingTable,
+    SpecTable,
+)
 
 HOLDUP_FLOOR_OF_VOUT = 0.75  # rule: default lowest bus at the end of hold-up, as a fraction of vout
 FSW_MIN_OF_LINE = 100.0  # rule: fsw at least this many times line_freq (a PWM period per 3.6 deg)
@@ -93,7 +103,8 @@ def _check_value(src: str, table: str, name: str, k: Key, value: Any) -> Any:
             raise ConfigError(f"{at} = {value!r}: must be a finite number")
     if _out_of_range(k, value):
         raise ConfigError(
-            f"{at} = {value:g} {k.unit}: allowed range is {_range_text(k)} {k.unit}".rstrip())
+            f"{at} = {value:g} {k.unit}: allowed range is {_range_text(k)} {k.unit}".rstrip()
+        )
     return value
 
 
@@ -134,9 +145,13 @@ def from_dict(data: dict[str, Any], source: str = "<config>") -> Config:
     _check_control(source, parts["spec"], parts["control"])
     _check_sensing(source, parts["sensing"])
     return Config(
-        spec=SpecTable(**parts["spec"]), plant=PlantTable(**parts["plant"]),
-        control=ControlTable(**parts["control"]), protection=ProtectionTable(**parts["protection"]),
-        sensing=SensingTable(**parts["sensing"]), source=source)
+        spec=SpecTable(**parts["spec"]),
+        plant=PlantTable(**parts["plant"]),
+        control=ControlTable(**parts["control"]),
+        protection=ProtectionTable(**parts["protection"]),
+        sensing=SensingTable(**parts["sensing"]),
+        source=source,
+    )
 
 
 def _check_spec(src: str, s: dict[str, Any]) -> None:
@@ -146,15 +161,24 @@ def _check_spec(src: str, s: dict[str, Any]) -> None:
     if s["vin_rms_max"] < s["vin_rms_min"]:
         raise fail("vin_rms_max", f"V: must be >= vin_rms_min = {s['vin_rms_min']:g} V")
     if not s["vin_rms_min"] <= s["vin_rms_nominal"] <= s["vin_rms_max"]:
-        raise fail("vin_rms_nominal", f"V: allowed range is vin_rms_min..vin_rms_max = "
-                                      f"{s['vin_rms_min']:g}..{s['vin_rms_max']:g} V")
+        raise fail(
+            "vin_rms_nominal",
+            f"V: allowed range is vin_rms_min..vin_rms_max = "
+            f"{s['vin_rms_min']:g}..{s['vin_rms_max']:g} V",
+        )
     vpk = math.sqrt(2.0) * s["vin_rms_max"]
     if s["vout"] <= vpk:
-        raise fail("vout", f"V: must exceed the highest input peak sqrt(2) x vin_rms_max = "
-                           f"{vpk:.1f} V (a boost cannot regulate below it)")
+        raise fail(
+            "vout",
+            f"V: must exceed the highest input peak sqrt(2) x vin_rms_max = "
+            f"{vpk:.1f} V (a boost cannot regulate below it)",
+        )
     if s["fsw"] < FSW_MIN_OF_LINE * s["line_freq"]:
-        raise fail("fsw", f"Hz: must be at least {FSW_MIN_OF_LINE:g} x line_freq = "
-                          f"{FSW_MIN_OF_LINE * s['line_freq']:g} Hz")
+        raise fail(
+            "fsw",
+            f"Hz: must be at least {FSW_MIN_OF_LINE:g} x line_freq = "
+            f"{FSW_MIN_OF_LINE * s['line_freq']:g} Hz",
+        )
     if s["vout_min_holdup"] is None:
         s["vout_min_holdup"] = round(HOLDUP_FLOOR_OF_VOUT * s["vout"], 6)
     elif s["vout_min_holdup"] >= s["vout"]:
@@ -163,36 +187,45 @@ def _check_spec(src: str, s: dict[str, Any]) -> None:
 
 def _check_protection(src: str, s: dict[str, Any], pr: dict[str, Any]) -> None:
     if pr["freq_min"] >= pr["freq_max"]:
-        raise ConfigError(f"{where(src, 'protection', 'freq_min')} = {pr['freq_min']:g} Hz: "
-                          f"must be < freq_max = {pr['freq_max']:g} Hz")
+        raise ConfigError(
+            f"{where(src, 'protection', 'freq_min')} = {pr['freq_min']:g} Hz: "
+            f"must be < freq_max = {pr['freq_max']:g} Hz"
+        )
     if not pr["freq_min"] <= s["line_freq"] <= pr["freq_max"]:
         raise ConfigError(
             f"{where(src, 'spec', 'line_freq')} = {s['line_freq']:g} Hz: outside the accepted "
-            f"band [protection] freq_min..freq_max = {pr['freq_min']:g}..{pr['freq_max']:g} Hz")
+            f"band [protection] freq_min..freq_max = {pr['freq_min']:g}..{pr['freq_max']:g} Hz"
+        )
 
 
 def _check_control(src: str, s: dict[str, Any], c: dict[str, Any]) -> None:
     prefix = c["prefix"]
     if not prefix.isidentifier() or not prefix.isascii() or prefix != prefix.lower():
-        raise ConfigError(f"{where(src, 'control', 'prefix')} = {prefix!r}: must be a lower-case "
-                          "ASCII C identifier")
+        raise ConfigError(
+            f"{where(src, 'control', 'prefix')} = {prefix!r}: must be a lower-case "
+            "ASCII C identifier"
+        )
     if c["current_bandwidth"] is not None and c["current_bandwidth"] > s["fsw"] / 5.0:
         raise ConfigError(
             f"{where(src, 'control', 'current_bandwidth')} = {c['current_bandwidth']:g} Hz: "
-            f"allowed range is > 0 and <= fsw/5 = {s['fsw'] / 5:g} Hz")
+            f"allowed range is > 0 and <= fsw/5 = {s['fsw'] / 5:g} Hz"
+        )
     if c["voltage_bandwidth"] >= s["line_freq"] / 2.0:
         raise ConfigError(
             f"{where(src, 'control', 'voltage_bandwidth')} = {c['voltage_bandwidth']:g} Hz: "
             f"allowed range is > 0 and < line_freq/2 = {s['line_freq'] / 2:g} Hz "
-            "(the voltage loop must stay well below twice line frequency)")
+            "(the voltage loop must stay well below twice line frequency)"
+        )
 
 
 def _check_sensing(src: str, se: dict[str, Any]) -> None:
     full = 2 ** se["adc_bits"] - 1
     for name in ("vac_offset", "il_offset"):
         if se[name] is not None and se[name] > full:
-            raise ConfigError(f"{where(src, 'sensing', name)} = {se[name]:g} counts: allowed "
-                              f"range is 0..{full} for {se['adc_bits']} bits")
+            raise ConfigError(
+                f"{where(src, 'sensing', name)} = {se[name]:g} counts: allowed "
+                f"range is 0..{full} for {se['adc_bits']} bits"
+            )
 
 
 def load(path: str | Path) -> Config:

@@ -6,6 +6,7 @@ The C templates render their macros from these tables (a test renders the C and 
 every macro against them); the plant, the records' dtypes, the reports, the fuzz
 invariants and the host side of the link read the same names.
 """
+
 from __future__ import annotations
 
 from dataclasses import dataclass
@@ -46,13 +47,13 @@ class Mode(IntEnum):
 MODE_DOCS = {
     Mode.WAIT_LINE: "waiting for a valid line (frequency, rms, no brown-out) and a precharged bus",
     Mode.PRECHARGED: "line valid, bus^2 >= {P}_PRECHARGE_K x line mean square; start at the "
-                     "next crossing",
+    "next crossing",
     Mode.SOFT_START: "reference ramps from the measured bus to {P}_VOUT_V",
     Mode.RUN: "regulating",
     Mode.LINE_LOSS: "line lost: gates off, integrators and rms frozen; resume at the next crossing",
     Mode.BROWNOUT: "line rms under the brown-out threshold: gates off until above the restart one",
     Mode.TRIPPED: "over-voltage/over-current trip while switching: gates off, retry after "
-                  "{P}_RETRY_DELAY_PERIODS",
+    "{P}_RETRY_DELAY_PERIODS",
     Mode.LATCHED: "{P}_RETRY_LIMIT trips without a clean run: off until init",
     Mode.SENSOR_FAULT: "a sensor railed or stuck, or a non-finite state: off until init",
 }
@@ -61,11 +62,21 @@ M = Mode
 # Mode changes the supervisor may make from one period to the next (the fuzz invariant `sane`).
 MODE_EDGES: frozenset[tuple[Mode, Mode]] = frozenset(
     {
-        (M.WAIT_LINE, M.PRECHARGED), (M.PRECHARGED, M.WAIT_LINE), (M.PRECHARGED, M.SOFT_START),
-        (M.SOFT_START, M.RUN), (M.SOFT_START, M.LINE_LOSS), (M.RUN, M.LINE_LOSS),
-        (M.SOFT_START, M.BROWNOUT), (M.RUN, M.BROWNOUT), (M.SOFT_START, M.WAIT_LINE),
-        (M.RUN, M.WAIT_LINE), (M.LINE_LOSS, M.SOFT_START), (M.LINE_LOSS, M.WAIT_LINE),
-        (M.BROWNOUT, M.SOFT_START), (M.TRIPPED, M.WAIT_LINE), (M.TRIPPED, M.LATCHED),
+        (M.WAIT_LINE, M.PRECHARGED),
+        (M.PRECHARGED, M.WAIT_LINE),
+        (M.PRECHARGED, M.SOFT_START),
+        (M.SOFT_START, M.RUN),
+        (M.SOFT_START, M.LINE_LOSS),
+        (M.RUN, M.LINE_LOSS),
+        (M.SOFT_START, M.BROWNOUT),
+        (M.RUN, M.BROWNOUT),
+        (M.SOFT_START, M.WAIT_LINE),
+        (M.RUN, M.WAIT_LINE),
+        (M.LINE_LOSS, M.SOFT_START),
+        (M.LINE_LOSS, M.WAIT_LINE),
+        (M.BROWNOUT, M.SOFT_START),
+        (M.TRIPPED, M.WAIT_LINE),
+        (M.TRIPPED, M.LATCHED),
     }
     | {(m, M.TRIPPED) for m in Mode if m < M.TRIPPED}
     | {(m, M.LATCHED) for m in Mode if m < M.TRIPPED}
@@ -142,12 +153,19 @@ class Field:
 
 ADC_FIELDS = (
     Field("vac", "uint16_t", "<u2", "line voltage: bipolar, 0 V at {P}_VAC_OFFSET_COUNTS [counts]"),
-    Field("il", "uint16_t", "<u2", "inductor current: bipolar, 0 A at {P}_IL_OFFSET_COUNTS [counts]"),
+    Field(
+        "il", "uint16_t", "<u2", "inductor current: bipolar, 0 A at {P}_IL_OFFSET_COUNTS [counts]"
+    ),
     Field("vbus", "uint16_t", "<u2", "bus voltage: unipolar, 0 V at 0 counts [counts]"),
 )
 OUTPUT_FIELDS = (
-    Field("compare", "uint16_t", "<u2", "low fast-leg switch on-time, 0..{P}_PWM_PERIOD_COUNTS "
-                                        "[timer counts]; the timer inserts the dead time"),
+    Field(
+        "compare",
+        "uint16_t",
+        "<u2",
+        "low fast-leg switch on-time, 0..{P}_PWM_PERIOD_COUNTS "
+        "[timer counts]; the timer inserts the dead time",
+    ),
     Field("gates", "uint8_t", "u1", "{P}_GATE_* bits of the switches allowed to conduct"),
     Field("mode", "uint8_t", "u1", "supervisor mode, {P}_MODE_*"),
     Field("faults", "uint16_t", "<u2", "active fault bits, {P}_FAULT_*"),
@@ -190,7 +208,10 @@ LINK = {
     "CRC_BYTES": (2, "CRC-16/CCITT-FALSE after the payload"),
     "MAX_STEPS": (64, "periods in one STEP request at most"),
     "STEP_IN_BYTES": (6, "bytes per period in a STEP request (vac, il, vbus u16)"),
-    "STEP_OUT_BYTES": (6, "bytes per period in a STEP answer (compare u16, gates, mode, faults u16)"),
+    "STEP_OUT_BYTES": (
+        6,
+        "bytes per period in a STEP answer (compare u16, gates, mode, faults u16)",
+    ),
     "MAX_PAYLOAD": (1 + 64 * 6, "largest payload: a count byte and MAX_STEPS periods"),
     "SNAPSHOT_CHUNK": (256, "state bytes in one SNAPSHOT answer at most"),
     "DIGEST_CHARS": (16, "config digest characters in HELLO_ACK"),

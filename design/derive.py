@@ -2,6 +2,7 @@
 
 Each default rule's number is written once, as a module constant here.
 """
+
 from __future__ import annotations
 
 import math
@@ -107,24 +108,30 @@ def _check(cfg: Config, r: Resolved) -> None:
     vpk_max = math.sqrt(2.0) * s.vin_rms_max
     if r.zc_blank_V <= r.zc_hysteresis_V:
         raise ConfigError(
-            f"{src}: [control] zc_blank_voltage = {r.zc_blank_V:g} V: must be > zc_hysteresis = {r.zc_hysteresis_V:g} V "
+            f"{src}: [control] zc_blank_voltage = {r.zc_blank_V:g} V: must be > zc_hysteresis = "
+            f"{r.zc_hysteresis_V:g} V "
             "(the polarity must settle inside the blanking window)"
         )
     if r.zc_blank_V >= math.sqrt(2.0) * r.brownout_off_rms_V:
         raise ConfigError(
-            f"{src}: [control] zc_blank_voltage = {r.zc_blank_V:g} V: must be below the brown-out line peak "
+            f"{src}: [control] zc_blank_voltage = {r.zc_blank_V:g} V: must be below the "
+            "brown-out line peak "
             f"{math.sqrt(2.0) * r.brownout_off_rms_V:.1f} V"
         )
     if r.brownout_on_rms_V <= r.brownout_off_rms_V:
         raise ConfigError(
-            f"{src}: [protection] brownout_on_rms = {r.brownout_on_rms_V:g} V: must be > brownout_off_rms = {r.brownout_off_rms_V:g} V (hysteresis)"
+            f"{src}: [protection] brownout_on_rms = {r.brownout_on_rms_V:g} V: must be > "
+            f"brownout_off_rms = {r.brownout_off_rms_V:g} V (hysteresis)"
         )
     if r.brownout_on_rms_V > s.vin_rms_min:
         raise ConfigError(
-            f"{src}: [protection] brownout_on_rms = {r.brownout_on_rms_V:g} V: must be <= vin_rms_min = {s.vin_rms_min:g} V"
+            f"{src}: [protection] brownout_on_rms = {r.brownout_on_rms_V:g} V: must be <= "
+            f"vin_rms_min = {s.vin_rms_min:g} V"
         )
     if r.ov_trip_V <= s.vout:
-        raise ConfigError(f"{src}: [protection] ov_trip = {r.ov_trip_V:g} V: must be > vout = {s.vout:g} V")
+        raise ConfigError(
+            f"{src}: [protection] ov_trip = {r.ov_trip_V:g} V: must be > vout = {s.vout:g} V"
+        )
     checks = [
         ("sensing", "vac_range", r.vac_range_V, vpk_max, "V", "the highest line peak"),
         ("sensing", "il_range", r.il_range_A, r.oc_trip_A, "A", "[protection] oc_trip"),
@@ -132,14 +139,18 @@ def _check(cfg: Config, r: Resolved) -> None:
     ]
     for table, key, val, need, unit, what in checks:
         if val <= need:
-            raise ConfigError(f"{src}: [{table}] {key} = {val:g} {unit}: must exceed {what} = {need:.4g} {unit}")
+            raise ConfigError(
+                f"{src}: [{table}] {key} = {val:g} {unit}: must exceed {what} = {need:.4g} {unit}"
+            )
     if r.pwm_period_counts < MIN_PERIOD_COUNTS:
         raise ConfigError(
-            f"{src}: [control] pwm_timer_clock = {cfg.control.pwm_timer_clock:g} Hz: gives {r.pwm_period_counts} counts per PWM period; "
+            f"{src}: [control] pwm_timer_clock = {cfg.control.pwm_timer_clock:g} Hz: gives "
+            f"{r.pwm_period_counts} counts per PWM period; "
             "at least 100 are needed"
         )
     if r.pwm_period_counts > MAX_PERIOD_COUNTS:
         raise ConfigError(
-            f"{src}: [control] pwm_timer_clock = {cfg.control.pwm_timer_clock:g} Hz: gives {r.pwm_period_counts} counts per PWM period; "
+            f"{src}: [control] pwm_timer_clock = {cfg.control.pwm_timer_clock:g} Hz: gives "
+            f"{r.pwm_period_counts} counts per PWM period; "
             "at most 65535 fit the 16-bit compare"
         )

@@ -1,4 +1,5 @@
 """One place that joins a config, the sizing, the derived values and the loop tuning."""
+
 from __future__ import annotations
 
 from dataclasses import dataclass, replace
@@ -23,8 +24,9 @@ class Project:
     def tuning_at(self, line_freq_Hz: float) -> Tuning:
         """Both loops tuned for another line frequency (the voltage loop's update follows it)."""
         r = self.resolved
-        return tune(self.config, r.inductance_H, r.capacitance_F, r.current_bandwidth_Hz,
-                    line_freq_Hz)
+        return tune(
+            self.config, r.inductance_H, r.capacitance_F, r.current_bandwidth_Hz, line_freq_Hz
+        )
 
 
 def from_config(cfg: Config) -> Project:
@@ -32,11 +34,15 @@ def from_config(cfg: Config) -> Project:
     L = cfg.plant.inductance if cfg.plant.inductance is not None else rules.inductance_H
     C = cfg.plant.capacitance if cfg.plant.capacitance is not None else rules.capacitance_F
     # stress figures use the L and C in force; the capacitance rules are kept for reporting
-    sized = replace(size(cfg.spec, inductance=L, capacitance=C),
-                    capacitance_ripple_F=rules.capacitance_ripple_F,
-                    capacitance_holdup_F=rules.capacitance_holdup_F)
+    sized = replace(
+        size(cfg.spec, inductance=L, capacitance=C),
+        capacitance_ripple_F=rules.capacitance_ripple_F,
+        capacitance_holdup_F=rules.capacitance_holdup_F,
+    )
     r = resolve(cfg, L, C, sized.il_peak_A)
-    return Project(cfg, sized, r, tune(cfg, r.inductance_H, r.capacitance_F, r.current_bandwidth_Hz))
+    return Project(
+        cfg, sized, r, tune(cfg, r.inductance_H, r.capacitance_F, r.current_bandwidth_Hz)
+    )
 
 
 def load_project(path: str | Path) -> Project:

@@ -5,6 +5,7 @@ Units are SI (V, A, W, Hz, H, F, s, ohm); fractions are plain numbers (0.2 = 20 
 whose default is ``None`` (and that is not required) is derived from the sizing by
 ``design.derive``.
 """
+
 from __future__ import annotations
 
 import dataclasses
@@ -32,12 +33,30 @@ class Key:
 _KINDS = {"float": float, "int": int, "str": str}
 
 
-def key(unit: str, doc: str, default: Any = None, *, required: bool = False, lo: float | None = None,
-        hi: float | None = None, lo_open: bool = False, hi_open: bool = False,
-        choices: tuple[str, ...] = ()) -> Any:
+def key(
+    unit: str,
+    doc: str,
+    default: Any = None,
+    *,
+    required: bool = False,
+    lo: float | None = None,
+    hi: float | None = None,
+    lo_open: bool = False,
+    hi_open: bool = False,
+    choices: tuple[str, ...] = (),
+) -> Any:
     """A dataclass field carrying its :class:`Key` (the kind is read from the annotation)."""
-    meta = dict(unit=unit, doc=doc, default=default, required=required, lo=lo, hi=hi,
-                lo_open=lo_open, hi_open=hi_open, choices=choices)
+    meta = dict(
+        unit=unit,
+        doc=doc,
+        default=default,
+        required=required,
+        lo=lo,
+        hi=hi,
+        lo_open=lo_open,
+        hi_open=hi_open,
+        choices=choices,
+    )
     if required:
         return field(metadata={"key": meta})
     return field(default=default, metadata={"key": meta})
@@ -81,14 +100,19 @@ class SpecTable:
     efficiency: float = fraction("expected efficiency at full power", 0.96)
     fsw: float = pos("Hz", "switching frequency of the fast leg", required=True)
     ripple_current: float = fraction(
-        "inductor ripple pk-pk as a fraction of the peak line current at vin_rms_min, "
-        "full power", 0.3, hi=2.0)
+        "inductor ripple pk-pk as a fraction of the peak line current at vin_rms_min, full power",
+        0.3,
+        hi=2.0,
+    )
     ripple_voltage_pp: float = fraction(
-        "bus ripple pk-pk at twice line frequency as a fraction of vout", 0.05, hi=0.5)
-    holdup_time: float = key("s", "time the bus must carry full power after the line is lost",
-                             0.0, lo=0.0, hi=1.0)
+        "bus ripple pk-pk at twice line frequency as a fraction of vout", 0.05, hi=0.5
+    )
+    holdup_time: float = key(
+        "s", "time the bus must carry full power after the line is lost", 0.0, lo=0.0, hi=1.0
+    )
     vout_min_holdup: float = pos(
-        "V", "lowest bus voltage at the end of hold-up (default 0.75 vout)", None)
+        "V", "lowest bus voltage at the end of hold-up (default 0.75 vout)", None
+    )
 
 
 @dataclass(frozen=True, kw_only=True)
@@ -101,46 +125,67 @@ class PlantTable:
     capacitor_esr: float = nonneg("ohm", "bus capacitor equivalent series resistance", 0.05)
     rds_on_fast: float = nonneg("ohm", "on-resistance of each fast-leg switch", 0.04)
     rds_on_slow: float = nonneg(
-        "ohm", "on-resistance of each slow-leg switch (or diode slope resistance)", 0.02)
+        "ohm", "on-resistance of each slow-leg switch (or diode slope resistance)", 0.02
+    )
     dead_time: float = nonneg("s", "dead time the timer inserts at each fast-leg edge", 100e-9)
     slow_leg: str = key("", "slow-leg devices", "mosfet", choices=("mosfet", "diode"))
     source_resistance: float = nonneg("ohm", "grid source resistance", 0.05)
     source_inductance: float = nonneg("H", "grid source inductance", 20e-6)
     inrush_resistance: float = nonneg(
-        "ohm", "inrush limiter in series with the line, bypassed by a relay once the bus is "
-        "charged (0: none)", 10.0)
+        "ohm",
+        "inrush limiter in series with the line, bypassed by a relay once the bus is "
+        "charged (0: none)",
+        10.0,
+    )
 
 
 @dataclass(frozen=True, kw_only=True)
 class ControlTable:
     """``[control]``: loop targets, the zero-crossing handling and the generated C's form."""
 
-    number_format: str = key("", "number format of the generated C", "float32",
-                             choices=("float32", "q15"))
+    number_format: str = key(
+        "", "number format of the generated C", "float32", choices=("float32", "q15")
+    )
     prefix: str = key("", "C symbol prefix (lower-case C identifier)", "pfc")
     current_bandwidth: float | None = pos("Hz", "current-loop crossover (default fsw/15)")
-    current_phase_margin_deg: float = key("deg", "current-loop phase margin", 45.0,
-                                          lo=20.0, hi=85.0)
+    current_phase_margin_deg: float = key(
+        "deg", "current-loop phase margin", 45.0, lo=20.0, hi=85.0
+    )
     voltage_bandwidth: float = pos("Hz", "voltage-loop crossover", 10.0)
-    voltage_phase_margin_deg: float = key("deg", "voltage-loop phase margin", 45.0,
-                                          lo=20.0, hi=85.0)
+    voltage_phase_margin_deg: float = key(
+        "deg", "voltage-loop phase margin", 45.0, lo=20.0, hi=85.0
+    )
     control_delay_periods: float = key(
-        "periods", "sample-to-effect delay used for tuning (computation plus PWM hold)", 1.5,
-        lo=0.0, hi=4.0)
+        "periods",
+        "sample-to-effect delay used for tuning (computation plus PWM hold)",
+        1.5,
+        lo=0.0,
+        hi=4.0,
+    )
     soft_start_time: float = pos("s", "bus reference ramp from the precharged value to vout", 0.1)
     zc_hysteresis: float | None = pos(
-        "V", "polarity comparator hysteresis half-band (default 4 % of the lowest line peak)")
+        "V", "polarity comparator hysteresis half-band (default 4 % of the lowest line peak)"
+    )
     zc_debounce_periods: int = key(
-        "periods", "consecutive samples beyond the band before the polarity changes", 2,
-        lo=1, hi=64)
+        "periods", "consecutive samples beyond the band before the polarity changes", 2, lo=1, hi=64
+    )
     zc_blank_voltage: float | None = pos(
-        "V", "|v| below which neither leg switches (default 8 % of the lowest line peak)")
+        "V", "|v| below which neither leg switches (default 8 % of the lowest line peak)"
+    )
     zc_ramp_periods: int = key(
-        "periods", "periods over which the main switch's duty ramps in after a zero crossing",
-        16, lo=0, hi=1000)
+        "periods",
+        "periods over which the main switch's duty ramps in after a zero crossing",
+        16,
+        lo=0,
+        hi=1000,
+    )
     sync_delay_periods: int = key(
-        "periods", "periods after the ramp before the synchronous switch is enabled", 4,
-        lo=0, hi=1000)
+        "periods",
+        "periods after the ramp before the synchronous switch is enabled",
+        4,
+        lo=0,
+        hi=1000,
+    )
     duty_max: float = key("1", "largest main-switch duty", 0.98, lo=0.5, hi=1.0, hi_open=True)
     pwm_timer_clock: float = pos("Hz", "PWM timer count frequency", 120e6)
 
@@ -152,15 +197,19 @@ class ProtectionTable:
     ov_trip: float | None = pos("V", "bus over-voltage trip (default 1.1 vout)")
     oc_trip: float | None = pos("A", "inductor over-current trip (default 1.5 x sized peak)")
     brownout_off_rms: float | None = pos(
-        "V", "line rms below which the stage stops (default 0.85 vin_rms_min)")
+        "V", "line rms below which the stage stops (default 0.85 vin_rms_min)"
+    )
     brownout_on_rms: float | None = pos(
-        "V", "line rms above which the stage may start (default 0.92 vin_rms_min)")
+        "V", "line rms above which the stage may start (default 0.92 vin_rms_min)"
+    )
     line_loss_time: float = pos(
-        "s", "time with |v| under the blanking voltage that counts as line loss", 3e-3)
+        "s", "time with |v| under the blanking voltage that counts as line loss", 3e-3
+    )
     freq_min: float = key("Hz", "lowest accepted line frequency", 45.0, lo=40.0, hi=70.0)
     freq_max: float = key("Hz", "highest accepted line frequency", 66.0, lo=40.0, hi=70.0)
-    retry_limit: int = key("trips", "over-voltage/over-current trips before the fault latches",
-                           3, lo=1, hi=100)
+    retry_limit: int = key(
+        "trips", "over-voltage/over-current trips before the fault latches", 3, lo=1, hi=100
+    )
     retry_delay: float = pos("s", "wait after a trip before restarting", 0.02)
 
 
@@ -170,20 +219,27 @@ class SensingTable:
 
     adc_bits: int = key("bit", "ADC resolution", 12, lo=8, hi=16)
     vac_range: float | None = pos(
-        "V", "line voltage at the top of the bipolar ADC range (default 1.25 x highest line peak)")
+        "V", "line voltage at the top of the bipolar ADC range (default 1.25 x highest line peak)"
+    )
     il_range: float | None = pos(
-        "A", "inductor current at the top of the bipolar ADC range (default 1.25 x over-current "
-        "trip)")
+        "A",
+        "inductor current at the top of the bipolar ADC range (default 1.25 x over-current trip)",
+    )
     vbus_range: float | None = pos(
-        "V", "bus voltage at ADC full scale (default 1.25 x over-voltage trip)")
+        "V", "bus voltage at ADC full scale (default 1.25 x over-voltage trip)"
+    )
     vac_offset: float | None = nonneg("counts", "ADC count for 0 V line (default mid-scale)")
     il_offset: float | None = nonneg("counts", "ADC count for 0 A (default mid-scale)")
-    rail_periods: int = key("periods", "consecutive samples at a rail before a sensor fault", 4,
-                            lo=1, hi=1000)
+    rail_periods: int = key(
+        "periods", "consecutive samples at a rail before a sensor fault", 4, lo=1, hi=1000
+    )
 
 
 TABLES: dict[str, type] = {
-    "spec": SpecTable, "plant": PlantTable, "control": ControlTable,
-    "protection": ProtectionTable, "sensing": SensingTable,
+    "spec": SpecTable,
+    "plant": PlantTable,
+    "control": ControlTable,
+    "protection": ProtectionTable,
+    "sensing": SensingTable,
 }
 SCHEMA: dict[str, dict[str, Key]] = {name: keys_of(cls) for name, cls in TABLES.items()}

@@ -17,6 +17,7 @@ Relations used (sources named in ``rows``):
     :func:`size`; the capacitor result matches the ideal-rectifier chapters of
     Erickson & Maksimovic, quoted from memory).
 """
+
 from __future__ import annotations
 
 import math
@@ -24,7 +25,10 @@ from dataclasses import asdict, dataclass
 from typing import Any
 
 SRC_EM_BOOST = "Erickson & Maksimovic, Fundamentals of Power Electronics, ch. 2 (boost CCM ripple)"
-SRC_EM_RECT = "Erickson & Maksimovic, Fundamentals of Power Electronics, ideal-rectifier chapters (from memory)"
+SRC_EM_RECT = (
+    "Erickson & Maksimovic, Fundamentals of Power Electronics, ideal-rectifier chapters "
+    "(from memory)"
+)
 SRC_ENERGY = "energy balance on the bus capacitor"
 SRC_POWER = "power balance, sinusoidal line current at unity PF"
 
@@ -73,7 +77,11 @@ class Sizing:
             "duty_min": ("1", "1 - sqrt(2) Vmax/Vo", SRC_EM_BOOST),
             "duty_max": ("1", "1 - 0/Vo (at the zero crossing)", SRC_EM_BOOST),
             "fast_switch_rms_A": ("A", "I_pk/2 (each fast switch over a line cycle)", SRC_EM_RECT),
-            "boost_role_rms_A": ("A", "I_pk sqrt(1/4 - 2 Vm/(3 pi Vo)) over a line cycle", SRC_EM_RECT),
+            "boost_role_rms_A": (
+                "A",
+                "I_pk sqrt(1/4 - 2 Vm/(3 pi Vo)) over a line cycle",
+                SRC_EM_RECT,
+            ),
             "slow_switch_rms_A": ("A", "I_pk/2 (each slow switch, one half cycle)", SRC_POWER),
             "switch_voltage_V": ("V", "Vo + dv_pp/2", SRC_EM_BOOST),
             "cap_ripple_rms_A": ("A", "sqrt(16 Pin^2/(3 pi Vm Vo) - Io^2)", SRC_EM_RECT),

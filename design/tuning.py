@@ -20,6 +20,7 @@ Both PIs are discretised by backward Euler, ``C(z) = Kp + Ki T z/(z - 1)``; the
 reported margins evaluate that discrete PI at ``z = exp(j w T)`` in series with the
 continuous plant and delay, on a dense frequency grid (computed, not assumed).
 """
+
 from __future__ import annotations
 
 import math
@@ -67,14 +68,17 @@ class LoopDesign:
         return pi * self.plant_gain / (1j * w) * np.exp(-1j * w * self.delay_s)
 
 
-def _pi_for(k_plant: float, fc: float, pm_deg: float, delay: float, name: str) -> tuple[float, float]:
+def _pi_for(
+    k_plant: float, fc: float, pm_deg: float, delay: float, name: str
+) -> tuple[float, float]:
     wc = 2.0 * math.pi * fc
     delay_deg = math.degrees(wc * delay)
     lag = 90.0 - pm_deg - delay_deg  # phase the PI zero may still take
     if lag <= 0.5:
         best = 90.0 - delay_deg - 0.5
         raise ConfigError(
-            f"[control] {name}: a phase margin of {pm_deg:g} deg at {fc:g} Hz is not reachable with the "
+            f"[control] {name}: a phase margin of {pm_deg:g} deg at {fc:g} Hz is not reachable "
+            "with the "
             f"{delay_deg:.1f} deg delay there; at most {best:.1f} deg, or lower the bandwidth"
         )
     wi = wc * math.tan(math.radians(lag))
@@ -90,7 +94,10 @@ def _margins(loop: LoopDesign) -> tuple[float, float, float]:
     ph = np.unwrap(np.angle(g))
     i = np.nonzero((mag[:-1] >= 1.0) & (mag[1:] < 1.0))[0]
     if len(i) == 0:
-        raise ConfigError(f"[control] {loop.name}: the loop gain never crosses 1 below Nyquist; check the bandwidth")
+        raise ConfigError(
+            f"[control] {loop.name}: the loop gain never crosses 1 below Nyquist; check the "
+            "bandwidth"
+        )
     k = i[0]
     t = (0.0 - math.log(mag[k])) / (math.log(mag[k + 1]) - math.log(mag[k]))
     fc = math.exp(math.log(f[k]) + t * (math.log(f[k + 1]) - math.log(f[k])))
@@ -100,7 +107,9 @@ def _margins(loop: LoopDesign) -> tuple[float, float, float]:
     return fc, pm, gm
 
 
-def _design(name, k_plant, fc, pm, delay, ts, units) -> LoopDesign:
+def _design(
+    name: str, k_plant: float, fc: float, pm: float, delay: float, ts: float, units: str
+) -> LoopDesign:
     kp, ki = _pi_for(k_plant, fc, pm, delay, name)
     loop = LoopDesign(name, kp, ki, ts, delay, k_plant, fc, pm, math.nan, math.nan, math.nan, units)
     got = _margins(loop)
@@ -116,16 +125,35 @@ class Tuning:
         return {"current": self.current.as_dict(), "voltage": self.voltage.as_dict()}
 
 
-def tune(cfg: Config, inductance_H: float, capacitance_F: float, current_bandwidth_Hz: float,
-         line_freq_Hz: float | None = None) -> Tuning:
+def tune(
+    cfg: Config,
+    inductance_H: float,
+    capacitance_F: float,
+    current_bandwidth_Hz: float,
+    line_freq_Hz: float | None = None,
+) -> Tuning:
     """Gains for both loops; ``line_freq_Hz`` (default: the spec's) sets the voltage-loop update."""
     s, c = cfg.spec, cfg.control
     ts = 1.0 / s.fsw
     fl = s.line_freq if line_freq_Hz is None else line_freq_Hz
     th = 1.0 / (2.0 * fl)
     tv = th / BUS_BLOCKS
-    cur = _design("current_bandwidth/current_phase_margin_deg", s.vout / inductance_H, current_bandwidth_Hz,
-                  c.current_phase_margin_deg, c.control_delay_periods * ts, ts, "duty per A")
-    vol = _design("voltage_bandwidth/voltage_phase_margin_deg", s.efficiency / (capacitance_F * s.vout),
-                  c.voltage_bandwidth, c.voltage_phase_margin_deg, th / 2.0 + tv / 2.0, tv, "W per V")
+    cur = _design(
+        "current_bandwidth/current_phase_margin_deg",
+        s.vout / inductance_H,
+        current_bandwidth_Hz,
+        c.current_phase_margin_deg,
+        c.control_delay_periods * ts,
+        ts,
+        "duty per A",
+    )
+    vol = _design(
+        "voltage_bandwidth/voltage_phase_margin_deg",
+        s.efficiency / (capacitance_F * s.vout),
+        c.voltage_bandwidth,
+        c.voltage_phase_margin_deg,
+        th / 2.0 + tv / 2.0,
+        tv,
+        "W per V",
+    )
     return Tuning(cur, vol)

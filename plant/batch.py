@@ -6,6 +6,7 @@ whole batch and one lane's numbers never depend on the others.  Events (dips, lo
 frequency steps, phase jumps, line voltage changes) change a lane's settings between
 periods.  Nothing here knows what computes the compare values and gate masks.
 """
+
 from __future__ import annotations
 
 import math
@@ -13,27 +14,32 @@ import math
 import numpy as np
 
 from . import kernel as K
+from . import layout as LY
 from .grid import Grid
 from .linear import plan
 from .load import Load
 from .sensors import Sensors
 from .stage import StageParams
 
-FIELDS = K.FIELDS
+FIELDS = LY.FIELDS
 
 
 def stage_par(p: StageParams, load: Load) -> np.ndarray:
     """The kernel's parameter vector (SI units) for the stage and the load; the ADC entries
     are unit scales until ``Sensors.pack`` fills them."""
-    par = np.zeros(K.PAR_ROWS)
-    par[K.P_LT], par[K.P_C], par[K.P_ESR] = p.l_total_H, p.capacitance_F, p.capacitor_esr_ohm
-    par[K.P_RTOT], par[K.P_RINRUSH], par[K.P_TDEAD] = p.r_total_ohm, p.inrush_resistance_ohm, p.dead_time_s
-    par[K.P_T], par[K.P_COUNTS] = p.period_s, p.period_counts
-    par[K.P_RSRC], par[K.P_LSRC] = p.source_resistance_ohm, p.source_inductance_H
-    par[K.P_CLOSE], par[K.P_OPEN] = p.bypass_close_frac, p.bypass_open_frac
-    par[K.P_VOUT], par[K.P_CONNECT], par[K.P_UVLO] = load.vout, load.connect_V, load.uvlo_V
-    par[K.P_FULL] = 65535.0
-    par[K.P_VAC_CPV] = par[K.P_IL_CPA] = par[K.P_VBUS_CPV] = 1.0
+    par = np.zeros(LY.PAR_ROWS)
+    par[LY.P_LT], par[LY.P_C], par[LY.P_ESR] = p.l_total_H, p.capacitance_F, p.capacitor_esr_ohm
+    par[LY.P_RTOT], par[LY.P_RINRUSH], par[LY.P_TDEAD] = (
+        p.r_total_ohm,
+        p.inrush_resistance_ohm,
+        p.dead_time_s,
+    )
+    par[LY.P_T], par[LY.P_COUNTS] = p.period_s, p.period_counts
+    par[LY.P_RSRC], par[LY.P_LSRC] = p.source_resistance_ohm, p.source_inductance_H
+    par[LY.P_CLOSE], par[LY.P_OPEN] = p.bypass_close_frac, p.bypass_open_frac
+    par[LY.P_VOUT], par[LY.P_CONNECT], par[LY.P_UVLO] = load.vout, load.connect_V, load.uvlo_V
+    par[LY.P_FULL] = 65535.0
+    par[LY.P_VAC_CPV] = par[LY.P_IL_CPA] = par[LY.P_VBUS_CPV] = 1.0
     return par
 
 
@@ -45,7 +51,11 @@ def step_plans(p: StageParams, g_max_S: float) -> np.ndarray:
     L, C = p.l_total_H, p.capacitance_F
     base = 1.0 / math.sqrt(L * C) + g_max_S / C + p.capacitor_esr_ohm / L
     rates = ((p.r_total_ohm / L + base), ((p.r_total_ohm + p.inrush_resistance_ohm) / L + base))
-    spans = {K.PLAN_HALF: p.period_s / 2.0, K.PLAN_DEAD: p.dead_time_s, K.PLAN_PERIOD: p.period_s}
+    spans = {
+        LY.PLAN_HALF: p.period_s / 2.0,
+        LY.PLAN_DEAD: p.dead_time_s,
+        LY.PLAN_PERIOD: p.period_s,
+    }
     plans = np.zeros((2, 3, 2), dtype=np.int64)
     for relay, rate in enumerate(rates):
         for kind, span in spans.items():
@@ -56,24 +66,38 @@ def step_plans(p: StageParams, g_max_S: float) -> np.ndarray:
 class Plant:
     """Grid, stage, load and ADC for ``n`` lanes; ``i0_A``/``vc0_V`` scalars or (n,)."""
 
-    def __init__(self, p: StageParams, grid: Grid, load: Load, sensors: Sensors | None = None,
-                 i0_A=0.0, vc0_V=0.0, g_max_S: float = 1.0):
+    def __init__(
+        self,
+        p: StageParams,
+        grid: Grid,
+        load: Load,
+        sensors: Sensors | None = None,
+        i0_A=0.0,
+        vc0_V=0.0,
+        g_max_S: float = 1.0,
+    ):
         """``g_max_S``: the largest load conductance the run will see (bounds the exact
         solver's step, see ``step_plans``)."""
         n = grid.n
         self.p, self.n = p, n
         self.par = stage_par(p, load)
         self.plans = step_plans(p, g_max_S)
-        lane = np.zeros((n, K.LANE_ROWS))  # a lane's numbers side by side (``plant.kernel`` columns)
-        lane[:, K.L_I] = i0_A
-        lane[:, K.L_VC] = vc0_V
-        lane[:, K.L_BYPASSED] = 1.0  # inrush limiter relay: start-up begins precharged
-        lane[:, K.L_THETA], lane[:, K.L_VRMS], lane[:, K.L_FREQ] = grid.theta, grid.vrms, grid.freq
-        lane[:, K.L_DC] = grid.dc
-        lane[:, K.L_S0], lane[:, K.L_C0] = np.sin(grid.theta), np.cos(grid.theta)
-        lane[:, K.L_DIP_END] = -np.inf
-        lane[:, K.L_DIP_LEVEL] = 1.0
-        lane[:, K.L_POWER], lane[:, K.L_CP] = load.power, load.constant_power
+        lane = np.zeros(
+            (n, LY.LANE_ROWS)
+        )  # a lane's numbers side by side (``plant.kernel`` columns)
+        lane[:, LY.L_I] = i0_A
+        lane[:, LY.L_VC] = vc0_V
+        lane[:, LY.L_BYPASSED] = 1.0  # inrush limiter relay: start-up begins precharged
+        lane[:, LY.L_THETA], lane[:, LY.L_VRMS], lane[:, LY.L_FREQ] = (
+            grid.theta,
+            grid.vrms,
+            grid.freq,
+        )
+        lane[:, LY.L_DC] = grid.dc
+        lane[:, LY.L_S0], lane[:, LY.L_C0] = np.sin(grid.theta), np.cos(grid.theta)
+        lane[:, LY.L_DIP_END] = -np.inf
+        lane[:, LY.L_DIP_LEVEL] = 1.0
+        lane[:, LY.L_POWER], lane[:, LY.L_CP] = load.power, load.constant_power
         if sensors is not None:
             sensors.pack(self.par, lane)
             self.seed = sensors.seed.copy()
@@ -82,53 +106,71 @@ class Plant:
         self.lane = lane
         self.harm = grid.harm
         self.codes = np.zeros((n, 3), dtype=np.uint16)
-        self.ws = K.workspace(n)
+        self.ws = LY.workspace(n)
 
     # -- state ---------------------------------------------------------------------------
     @property
     def i(self) -> np.ndarray:
         """Inductor (= line) current, A."""
-        return self.lane[:, K.L_I]
+        return self.lane[:, LY.L_I]
 
     @property
     def vc(self) -> np.ndarray:
         """Bus capacitor voltage, V."""
-        return self.lane[:, K.L_VC]
+        return self.lane[:, LY.L_VC]
 
     @property
     def vrms(self) -> np.ndarray:
-        return self.lane[:, K.L_VRMS]
+        return self.lane[:, LY.L_VRMS]
 
     @property
     def freq(self) -> np.ndarray:
-        return self.lane[:, K.L_FREQ]
+        return self.lane[:, LY.L_FREQ]
 
     # -- events --------------------------------------------------------------------------
     def dip(self, j: int, residual: float, until_s: float) -> None:
         """Line of lane ``j`` at ``residual`` of its amplitude until ``until_s`` (s, run time)."""
-        self.lane[j, K.L_DIP_LEVEL], self.lane[j, K.L_DIP_END] = residual, until_s
+        self.lane[j, LY.L_DIP_LEVEL], self.lane[j, LY.L_DIP_END] = residual, until_s
 
     def set_load_power(self, j: int, power_W: float) -> None:
-        self.lane[j, K.L_POWER] = power_W
+        self.lane[j, LY.L_POWER] = power_W
 
     def set_freq(self, j: int, freq_Hz: float) -> None:
-        self.lane[j, K.L_FREQ] = freq_Hz
+        self.lane[j, LY.L_FREQ] = freq_Hz
 
     def phase_jump(self, j: int, deg: float) -> None:
-        th = self.lane[j, K.L_THETA] + math.radians(deg)
-        self.lane[j, K.L_THETA], self.lane[j, K.L_S0], self.lane[j, K.L_C0] = th, math.sin(th), math.cos(th)
+        th = self.lane[j, LY.L_THETA] + math.radians(deg)
+        self.lane[j, LY.L_THETA], self.lane[j, LY.L_S0], self.lane[j, LY.L_C0] = (
+            th,
+            math.sin(th),
+            math.cos(th),
+        )
 
     def set_vrms(self, j: int, vrms_V: float) -> None:
-        self.lane[j, K.L_VRMS] = vrms_V
+        self.lane[j, LY.L_VRMS] = vrms_V
 
     # -- one period ----------------------------------------------------------------------
-    def step(self, k: int, compare, gates, out: np.ndarray, model: str = "switching", codes=None) -> np.ndarray:
+    def step(
+        self, k: int, compare, gates, out: np.ndarray, model: str = "switching", codes=None
+    ) -> np.ndarray:
         """Advance every lane through period ``k`` (starting at ``k T``) with ``compare``
         (timer counts) and ``gates`` (bit masks), arrays of shape (n,); the period's records
         go into ``out`` (n, len(FIELDS)); returns the ADC codes sampled in it, (n, 3) uint16
         (into ``codes`` when given)."""
         codes = self.codes if codes is None else codes
-        K.step_lanes(self.par, self.plans, self.lane, self.harm, self.seed, k, k * self.p.period_s,
-                     K.MODEL_SWITCHING if model == "switching" else K.MODEL_AVERAGED, compare, gates, codes, out,
-                     self.ws)
+        K.step_lanes(
+            self.par,
+            self.plans,
+            self.lane,
+            self.harm,
+            self.seed,
+            k,
+            k * self.p.period_s,
+            LY.MODEL_SWITCHING if model == "switching" else LY.MODEL_AVERAGED,
+            compare,
+            gates,
+            codes,
+            out,
+            self.ws,
+        )
         return codes

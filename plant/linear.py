@@ -6,10 +6,10 @@ to an order chosen from a bound on ``|A| t`` so that the truncation error stays 
 with ``|A| t > 0.5`` are split.  The bound holds in whatever norm the caller took it in
 (the error bound is in that norm).
 """
+
 from __future__ import annotations
 
 import math
-
 
 _FACT = [math.factorial(k) for k in range(40)]
 

@@ -7,6 +7,7 @@ A resistive load draws ``G = P/vout^2``; a constant-power load ``I = P/max(v_bus
 frozen over each period.  The kernel (``plant.kernel.step_lanes``) applies these rules;
 this class holds the settings.
 """
+
 from __future__ import annotations
 
 import numpy as np

@@ -10,6 +10,7 @@ The noise of lane ``j`` in conversion ``k`` on channel ``c`` is a function of
 scenario gives the same samples alone or inside any batch.  The arithmetic is
 ``plant.kernel.adc_channel``; this class holds the settings.
 """
+
 from __future__ import annotations
 
 from dataclasses import dataclass
@@ -17,6 +18,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from . import kernel as K
+from . import layout as LY
 
 
 @dataclass(frozen=True)
@@ -30,9 +32,17 @@ class AdcScaling:
 
 
 class Sensors:
-    def __init__(self, scaling: AdcScaling, n: int, seed=0, gain_err=(0.0, 0.0, 0.0),
-                 offset_err=(0.0, 0.0, 0.0), noise=(0.0, 0.0, 0.0)):
-        """``seed``: scalar or per lane; ``gain_err``, ``offset_err`` (codes), ``noise`` (codes rms):
+    def __init__(
+        self,
+        scaling: AdcScaling,
+        n: int,
+        seed=0,
+        gain_err=(0.0, 0.0, 0.0),
+        offset_err=(0.0, 0.0, 0.0),
+        noise=(0.0, 0.0, 0.0),
+    ):
+        """``seed``: scalar or per lane; ``gain_err``, ``offset_err`` (codes), ``noise`` (codes
+        rms):
         per channel (vac, il, vbus), scalars or arrays of shape (n,)."""
         self.s = scaling
         self.n = n
@@ -46,15 +56,27 @@ class Sensors:
         """Write the scaling into the kernel's parameter vector and each lane's errors into
         its lane rows (``plant.kernel`` layout)."""
         s = self.s
-        par[K.P_FULL], par[K.P_VAC_CPV], par[K.P_VAC_OFF] = s.full_counts, 1.0 / s.vac_V_per_count, s.vac_offset_counts
-        par[K.P_IL_CPA], par[K.P_IL_OFF], par[K.P_VBUS_CPV] = 1.0 / s.il_A_per_count, s.il_offset_counts, 1.0 / s.vbus_V_per_count
+        par[LY.P_FULL], par[LY.P_VAC_CPV], par[LY.P_VAC_OFF] = (
+            s.full_counts,
+            1.0 / s.vac_V_per_count,
+            s.vac_offset_counts,
+        )
+        par[LY.P_IL_CPA], par[LY.P_IL_OFF], par[LY.P_VBUS_CPV] = (
+            1.0 / s.il_A_per_count,
+            s.il_offset_counts,
+            1.0 / s.vbus_V_per_count,
+        )
         for ch in range(3):
-            lane[:, K.L_GAIN0 + ch], lane[:, K.L_OFF0 + ch], lane[:, K.L_NOISE0 + ch] = self.gain[ch], self.offset[ch], self.noise[ch]
+            lane[:, LY.L_GAIN0 + ch], lane[:, LY.L_OFF0 + ch], lane[:, LY.L_NOISE0 + ch] = (
+                self.gain[ch],
+                self.offset[ch],
+                self.noise[ch],
+            )
 
     def convert(self, vac_V, il_A, vbus_V) -> np.ndarray:
         """Codes, shape (n, 3) uint16 in channel order (vac, il, vbus); each call is the next
         conversion."""
-        par, lane = np.zeros(K.PAR_ROWS), np.zeros((self.n, K.LANE_ROWS))
+        par, lane = np.zeros(LY.PAR_ROWS), np.zeros((self.n, LY.LANE_ROWS))
         self.pack(par, lane)
         out = np.empty((self.n, 3), dtype=np.uint16)
         f = lambda x: np.ascontiguousarray(np.broadcast_to(np.asarray(x, dtype=float), (self.n,)))  # noqa: E731

@@ -5,7 +5,8 @@ Circuit: grid source (``v_s``, ``R_src``, ``L_src``) -> boost inductor ``L`` (DC
 terminal.  With ``q_A``, ``q_B`` = 1 when a midpoint is tied to the bus plus rail
 and 0 when tied to the minus rail, ``m = q_A - q_B`` and
 
-    L_t di/dt = v_s - R_t i - m v_bus          (L_t = L + L_src, R_t = DCR + R_src + Rds_fast + Rds_slow)
+    L_t di/dt = v_s - R_t i - m v_bus
+    (L_t = L + L_src, R_t = DCR + R_src + Rds_fast + Rds_slow)
     C dv_C/dt = m i - i_load,   v_bus = v_C + ESR (m i - i_load)
 
 and the sensed line voltage is ``v_s`` less the source-impedance drop of the
@@ -27,6 +28,7 @@ runs a batch of lanes).  Diode forward drops are not modelled (a
 resistive path only), stated here so nobody reads the efficiency as a loss model
 of real devices.
 """
+
 from __future__ import annotations
 
 from dataclasses import dataclass
@@ -47,8 +49,12 @@ class StageParams:
     period_counts: int
     source_resistance_ohm: float = 0.0
     source_inductance_H: float = 0.0
-    inrush_resistance_ohm: float = 0.0  # series limiter, bypassed by a relay once the bus is charged
-    bypass_close_frac: float = 0.95  # relay closes when the bus reaches this fraction of the line peak
+    inrush_resistance_ohm: float = (
+        0.0  # series limiter, bypassed by a relay once the bus is charged
+    )
+    bypass_close_frac: float = (
+        0.95  # relay closes when the bus reaches this fraction of the line peak
+    )
     bypass_open_frac: float = 0.6  # and opens again below this fraction
 
     @property
@@ -61,4 +67,9 @@ class StageParams:
 
     @property
     def r_total_ohm(self) -> float:
-        return self.inductor_dcr_ohm + self.source_resistance_ohm + self.rds_on_fast_ohm + self.rds_on_slow_ohm
+        return (
+            self.inductor_dcr_ohm
+            + self.source_resistance_ohm
+            + self.rds_on_fast_ohm
+            + self.rds_on_slow_ohm
+        )

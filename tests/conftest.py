@@ -1,15 +1,18 @@
 """Shared fixtures; ``--runslow`` enables the closed-loop campaigns marked ``slow``."""
+
 from __future__ import annotations
 
-import pytest
-
 from pathlib import Path
+
+import pytest
 
 from .helpers import DEMO
 
 
 def pytest_addoption(parser):
-    parser.addoption("--runslow", action="store_true", default=False, help="also run tests marked slow")
+    parser.addoption(
+        "--runslow", action="store_true", default=False, help="also run tests marked slow"
+    )
 
 
 def pytest_collection_modifyitems(config, items):

@@ -1,5 +1,6 @@
 """Helpers shared by the tests (paths, the contract's legal gate patterns, broken
 controllers rendered from patched templates)."""
+
 from __future__ import annotations
 
 from pathlib import Path
@@ -28,10 +29,12 @@ def consts(prj) -> dict[str, float]:
 # Deliberately broken controllers: (template, text of the shipped template, replacement).
 BREAKS = {
     # no zero-crossing window: keeps switching in the old polarity until the new one is confirmed
-    "no_zc_blank": ("polarity.c.j2",
-                    "    s->blank = (a < {{ P }}_ZC_BLANK_V) || (s->pol == 0) || (s->pol > 0 && vac < "
-                    "{{ zero }}) ||\n               (s->pol < 0 && vac > {{ zero }});",
-                    "    (void)a;\n    s->blank = (s->pol == 0); /* TEST BUILD: no zero-crossing window */"),
+    "no_zc_blank": (
+        "polarity.c.j2",
+        "    s->blank = (a < {{ P }}_ZC_BLANK_V) || (s->pol == 0) || (s->pol > 0 && vac < "
+        "{{ zero }}) ||\n               (s->pol < 0 && vac > {{ zero }});",
+        "    (void)a;\n    s->blank = (s->pol == 0); /* TEST BUILD: no zero-crossing window */",
+    ),
 }
 
 
@@ -41,5 +44,9 @@ def broken_loader(name: str) -> jinja2.BaseLoader:
     text = (TEMPLATE_DIR / template).read_text()
     if old not in text:
         raise AssertionError(f"{template} no longer has the text the '{name}' mutant replaces")
-    return jinja2.ChoiceLoader([jinja2.DictLoader({template: text.replace(old, new)}),
-                                jinja2.FileSystemLoader(str(TEMPLATE_DIR))])
+    return jinja2.ChoiceLoader(
+        [
+            jinja2.DictLoader({template: text.replace(old, new)}),
+            jinja2.FileSystemLoader(str(TEMPLATE_DIR)),
+        ]
+    )

@@ -1,4 +1,5 @@
 """A batch of scenarios in lockstep gives each scenario exactly the result it gets alone."""
+
 from __future__ import annotations
 
 import numpy as np
@@ -11,12 +12,32 @@ from harness.closedloop.scenario import Event, Scenario
 @pytest.mark.parametrize("model", ["switching", "averaged"])
 def test_batch_equals_single_runs_bit_for_bit(demo_project, demo_built, model):
     scns = [
-        Scenario(duration_s=0.07, vrms_V=230.0, freq_Hz=50.0, load_kind="resistive", load_power_W=1500.0),
-        Scenario(duration_s=0.07, vrms_V=100.0, freq_Hz=60.0, phase_deg=40.0, load_kind="constant_power",
-                 load_power_W=600.0, harmonics=((3, 0.03, 10.0),), noise_counts=(1.0, 0.5, 0.3), seed=11,
-                 events=(Event(0.05, "dip", (("residual", 0.0), ("cycles", 0.5))),)),
-        Scenario(duration_s=0.07, vrms_V=264.0, freq_Hz=47.0, load_kind="resistive", load_power_W=300.0,
-                 gain_error=(0.01, -0.01, 0.005), offset_counts=(2.0, -1.0, 0.0), noise_counts=(0.8, 0.8, 0.8), seed=3),
+        Scenario(
+            duration_s=0.07, vrms_V=230.0, freq_Hz=50.0, load_kind="resistive", load_power_W=1500.0
+        ),
+        Scenario(
+            duration_s=0.07,
+            vrms_V=100.0,
+            freq_Hz=60.0,
+            phase_deg=40.0,
+            load_kind="constant_power",
+            load_power_W=600.0,
+            harmonics=((3, 0.03, 10.0),),
+            noise_counts=(1.0, 0.5, 0.3),
+            seed=11,
+            events=(Event(0.05, "dip", (("residual", 0.0), ("cycles", 0.5))),),
+        ),
+        Scenario(
+            duration_s=0.07,
+            vrms_V=264.0,
+            freq_Hz=47.0,
+            load_kind="resistive",
+            load_power_W=300.0,
+            gain_error=(0.01, -0.01, 0.005),
+            offset_counts=(2.0, -1.0, 0.0),
+            noise_counts=(0.8, 0.8, 0.8),
+            seed=3,
+        ),
     ]
     batch = run(demo_project, scns, model=model, progress=False, built=demo_built)
     assert np.any(batch.data["gates"] != 0)  # the run got as far as switching

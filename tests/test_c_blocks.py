@@ -1,11 +1,13 @@
 """Polarity, RMS, current reference and PWM assignment blocks through the compiled C."""
+
 from __future__ import annotations
 
 import math
 
 import numpy as np
 import pytest
-from hypothesis import example, given, settings, strategies as st
+from hypothesis import example, given, settings
+from hypothesis import strategies as st
 
 from .helpers import GHI, GLO, LEGAL_GATES, SHI, SLO, consts
 
@@ -41,13 +43,24 @@ def run_polarity(b, v):
 
 
 @settings(max_examples=25, deadline=None)
-@given(amp=st.floats(60.0, 400.0), f=st.floats(45.0, 66.0), phase=st.floats(0, 2 * math.pi),
-       noise_frac=st.floats(0.0, 1.0), dc_frac=st.floats(-0.02, 0.02))
-@example(amp=60.0, f=58.0, phase=0.0, noise_frac=1.0, dc_frac=0.0)  # found once: a one-period estimate was 0.56 % off
-def test_polarity_one_change_per_half_and_frequency(demo_project, demo_built, amp, f, phase, noise_frac, dc_frac):
+@given(
+    amp=st.floats(60.0, 400.0),
+    f=st.floats(45.0, 66.0),
+    phase=st.floats(0, 2 * math.pi),
+    noise_frac=st.floats(0.0, 1.0),
+    dc_frac=st.floats(-0.02, 0.02),
+)
+@example(
+    amp=60.0, f=58.0, phase=0.0, noise_frac=1.0, dc_frac=0.0
+)  # found once: a one-period estimate was 0.56 % off
+def test_polarity_one_change_per_half_and_frequency(
+    demo_project, demo_built, amp, f, phase, noise_frac, dc_frac
+):
     c = consts(demo_project)
     hyst = c["ZC_HYST_V"]
-    sigma = noise_frac * hyst / 5.0  # stated bound: noise rms up to a fifth of the hysteresis half-band
+    sigma = (
+        noise_frac * hyst / 5.0
+    )  # stated bound: noise rms up to a fifth of the hysteresis half-band
     dc = dc_frac * amp
     cycles = 6
     n = int(cycles * FSW / f)
@@ -96,8 +109,13 @@ def run_rms(b, v):
 
 
 @settings(max_examples=20, deadline=None)
-@given(amp=st.floats(100.0, 400.0), f=st.floats(45.0, 66.0), phase=st.floats(0, 2 * math.pi),
-       h3=st.floats(0.0, 0.15), h5=st.floats(0.0, 0.1))
+@given(
+    amp=st.floats(100.0, 400.0),
+    f=st.floats(45.0, 66.0),
+    phase=st.floats(0, 2 * math.pi),
+    h3=st.floats(0.0, 0.15),
+    h5=st.floats(0.0, 0.1),
+)
 def test_rms_matches_numpy(demo_built, amp, f, phase, h3, h5):
     n = int(5 * FSW / f)
     _, _, v = wave(amp, f, phase, n, harm=((3, h3), (5, h5)))
@@ -133,13 +151,16 @@ def test_iref_product_clamp_and_guard(demo_project, demo_built):
     ffi, lib = demo_built.ffi, demo_built.lib
     s = ffi.new("pfc_iref_t*")
     lib.pfc_iref_init(s)
-    # i = P |v| / Vrms^2: 1500 W at 230 V rms, at the peak 325.27 V: 1500 * 325.27 / 52900 = 9.2232 A
-    assert lib.pfc_iref_step(s, 1500.0, 325.27, 1.0 / 52900.0, 400.0) == pytest.approx(9.2232, rel=1e-4)
-    assert lib.pfc_iref_step(s, 1e6, 325.0, 1.0 / 52900.0, 400.0) == pytest.approx(c["IREF_MAX_A"], rel=1e-6)
+    # i = P |v| / Vrms^2: 1500 W at 230 V rms, at the peak 325.27 V: 1500 * 325.27 / 52900 =
+    # 9.2232 A
+    assert lib.pfc_iref_step(s, 1500.0, 325.27, 1.0 / 52900.0, 400.0) == pytest.approx(
+        9.2232, rel=1e-4
+    )
+    assert lib.pfc_iref_step(s, 1e6, 325.0, 1.0 / 52900.0, 400.0) == pytest.approx(
+        c["IREF_MAX_A"], rel=1e-6
+    )
     assert lib.pfc_iref_step(s, 1500.0, 325.0, 1.0 / 52900.0, c["VBUS_GUARD_V"] + 1.0) == 0.0
     assert lib.pfc_iref_step(s, -10.0, 325.0, 1.0 / 52900.0, 400.0) == 0.0
-
-
 
 
 def test_pwm_assignment_table(demo_project, demo_built):
@@ -181,8 +202,11 @@ adc_code = st.integers(0, 65535)
 
 
 @settings(max_examples=60, deadline=None)
-@given(seq=st.lists(st.tuples(adc_code, adc_code, adc_code), min_size=1, max_size=60),
-       repeat=st.integers(1, 80), stuck=st.sampled_from([None, 0, 1, 2]))
+@given(
+    seq=st.lists(st.tuples(adc_code, adc_code, adc_code), min_size=1, max_size=60),
+    repeat=st.integers(1, 80),
+    stuck=st.sampled_from([None, 0, 1, 2]),
+)
 def test_step_arbitrary_adc_stays_in_range(demo_built, seq, repeat, stuck):
     """Whatever the ADC says (railed, stuck, beyond full scale), outputs stay legal and finite."""
     ffi, lib = demo_built.ffi, demo_built.lib
@@ -201,8 +225,15 @@ def test_step_arbitrary_adc_stays_in_range(demo_built, seq, repeat, stuck):
         assert 0 <= out.compare <= per
         assert out.gates in LEGAL_GATES
         assert out.mode <= 8
-        for x in (c.vloop.pi.x, c.vloop.pcmd, c.iloop.pi.x, c.iloop.duty, c.rms.inv_ms, c.bus.avg,
-                  c.iref.iref):
+        for x in (
+            c.vloop.pi.x,
+            c.vloop.pcmd,
+            c.iloop.pi.x,
+            c.iloop.duty,
+            c.rms.inv_ms,
+            c.bus.avg,
+            c.iref.iref,
+        ):
             assert math.isfinite(x)
         assert 0.0 <= c.iloop.duty <= 1.0
 

@@ -1,10 +1,12 @@
 """The generated PI block, through the compiled C, against scipy.signal.dlsim of the same
 discrete transfer function C(z) = kp + ki_ts z/(z - 1) = ((kp + ki_ts) z - kp)/(z - 1)."""
+
 from __future__ import annotations
 
 import numpy as np
 import pytest
-from hypothesis import given, settings, strategies as st
+from hypothesis import given, settings
+from hypothesis import strategies as st
 from scipy import signal
 
 
@@ -15,7 +17,12 @@ def run_pi(b, kp, ki_ts, e, lo=-1e30, hi=1e30, x0=0.0):
     lib.pfc_pi_init(s, x0)
     lo_a = np.broadcast_to(lo, len(e))
     hi_a = np.broadcast_to(hi, len(e))
-    return np.array([lib.pfc_pi_step(s, k, float(x), float(l), float(h)) for x, l, h in zip(e, lo_a, hi_a)])
+    return np.array(
+        [
+            lib.pfc_pi_step(s, k, float(x), float(lo_x), float(hi_x))
+            for x, lo_x, hi_x in zip(e, lo_a, hi_a, strict=True)
+        ]
+    )
 
 
 def reference(kp, ki_ts, e):
@@ -35,8 +42,14 @@ def test_pi_matches_dlsim(demo_built, kind, kp, ki_ts):
 
 
 @settings(max_examples=40, deadline=None)
-@given(kp=st.floats(0.01, 10.0), ki=st.floats(0.001, 1.0), lo=st.floats(-5.0, -0.5), hi=st.floats(0.5, 5.0),
-       amp=st.floats(0.5, 50.0), n_sat=st.integers(20, 300))
+@given(
+    kp=st.floats(0.01, 10.0),
+    ki=st.floats(0.001, 1.0),
+    lo=st.floats(-5.0, -0.5),
+    hi=st.floats(0.5, 5.0),
+    amp=st.floats(0.5, 50.0),
+    n_sat=st.integers(20, 300),
+)
 def test_antiwindup_clamps_and_recovers(demo_built, kp, ki, lo, hi, amp, n_sat):
     # drive hard into the upper clamp, then reverse the error
     e = np.concatenate([np.full(n_sat, amp), np.full(50, -amp)])

@@ -1,15 +1,26 @@
 """`pfcrig init` then `pfcrig design --json` from the command line."""
+
 from __future__ import annotations
 
 import json
 import subprocess
 import sys
 
-KEYS = ["il_rms_A", "il_peak_A", "ripple_pp_A", "inductance_H", "capacitance_ripple_F", "capacitance_holdup_F", "capacitance_F"]
+KEYS = [
+    "il_rms_A",
+    "il_peak_A",
+    "ripple_pp_A",
+    "inductance_H",
+    "capacitance_ripple_F",
+    "capacitance_holdup_F",
+    "capacitance_F",
+]
 
 
 def pfcrig(*args, cwd=None):
-    return subprocess.run([sys.executable, "-m", "harness.cli", *args], capture_output=True, text=True, cwd=cwd)
+    return subprocess.run(
+        [sys.executable, "-m", "harness.cli", *args], capture_output=True, text=True, cwd=cwd
+    )
 
 
 def test_init_then_design_json(tmp_path):

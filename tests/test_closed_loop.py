@@ -5,6 +5,7 @@ PF and THD by the IEC 61000-4-7 window DFT, Class A by the IEC 61000-3-2 table, 
 inductor ripple against the boost CCM relation v(1 - v/Vo)/(L fsw) and the bus ripple
 against P/(2 pi f C Vo) (Erickson & Maksimovic, Fundamentals of Power Electronics).
 """
+
 from __future__ import annotations
 
 import json
@@ -21,19 +22,33 @@ from harness.closedloop.scenario import Scenario
 
 from .helpers import DEMO
 
-KEYS = ["pf", "thd_i", "vbus_mean_V", "vbus_ripple_pp_V", "vbus_min_V", "vbus_max_V", "il_peak_A", "class_a_pass",
-        "harmonics_A", "efficiency"]
+KEYS = [
+    "pf",
+    "thd_i",
+    "vbus_mean_V",
+    "vbus_ripple_pp_V",
+    "vbus_min_V",
+    "vbus_max_V",
+    "il_peak_A",
+    "class_a_pass",
+    "harmonics_A",
+    "efficiency",
+]
 
 
 @pytest.fixture(scope="module")
 def high_line(demo_project):
-    s = Scenario(duration_s=0.5, vrms_V=230.0, freq_Hz=50.0, load_kind="resistive", load_power_W=1500.0)
+    s = Scenario(
+        duration_s=0.5, vrms_V=230.0, freq_Hz=50.0, load_kind="resistive", load_power_W=1500.0
+    )
     return run(demo_project, [s], progress=False)
 
 
 @pytest.fixture(scope="module")
 def low_line(demo_project):
-    s = Scenario(duration_s=0.5, vrms_V=115.0, freq_Hz=60.0, load_kind="resistive", load_power_W=750.0)
+    s = Scenario(
+        duration_s=0.5, vrms_V=115.0, freq_Hz=60.0, load_kind="resistive", load_power_W=750.0
+    )
     return run(demo_project, [s], progress=False)
 
 
@@ -87,13 +102,36 @@ def test_averaged_model_tracks_switching_model(high_line, demo_project):
 
 def test_cli_run_writes_json_csv_plots(tmp_path):
     out = tmp_path / "r.json"
-    r = subprocess.run([sys.executable, "-m", "harness.cli", "run", str(DEMO), "--model", "averaged", "--duration", "0.12",
-                        "--json", str(out), "--csv", str(tmp_path / "w.csv"), "--plot", str(tmp_path / "p"), "--quiet"],
-                       capture_output=True, text=True)
+    r = subprocess.run(
+        [
+            sys.executable,
+            "-m",
+            "harness.cli",
+            "run",
+            str(DEMO),
+            "--model",
+            "averaged",
+            "--duration",
+            "0.12",
+            "--json",
+            str(out),
+            "--csv",
+            str(tmp_path / "w.csv"),
+            "--plot",
+            str(tmp_path / "p"),
+            "--quiet",
+        ],
+        capture_output=True,
+        text=True,
+    )
     assert r.returncode == 0, r.stderr
     rep = json.loads(out.read_text())
     for k in KEYS:
         assert k in rep
     assert (tmp_path / "w.csv").read_text().startswith("t_s,")
-    assert sorted(p.name for p in (tmp_path / "p").iterdir()) == ["bus_duty_mode.png", "harmonics.png", "line.png"]
+    assert sorted(p.name for p in (tmp_path / "p").iterdir()) == [
+        "bus_duty_mode.png",
+        "harmonics.png",
+        "line.png",
+    ]
     assert "PF" in r.stdout and "THD" in r.stdout

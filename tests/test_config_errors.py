@@ -1,4 +1,5 @@
 """Every config validation rule fires with a message naming file, table, key, value and range."""
+
 from __future__ import annotations
 
 import copy
@@ -133,7 +134,9 @@ def test_non_integer_count():
 def test_cli_exit_code_2_no_traceback(tmp_path):
     bad = tmp_path / "bad.toml"
     bad.write_text(DEMO.read_text().replace("efficiency = 0.96", "efficiency = 1.5"))
-    r = subprocess.run([sys.executable, "-m", "harness.cli", "design", str(bad)], capture_output=True, text=True)
+    r = subprocess.run(
+        [sys.executable, "-m", "harness.cli", "design", str(bad)], capture_output=True, text=True
+    )
     assert r.returncode == 2
     assert "Traceback" not in r.stderr
     assert str(bad) in r.stderr and "[spec] efficiency = 1.5" in r.stderr
@@ -142,5 +145,7 @@ def test_cli_exit_code_2_no_traceback(tmp_path):
 def test_cli_bad_toml(tmp_path):
     bad = tmp_path / "bad.toml"
     bad.write_text("[spec\nvout = 1")
-    r = subprocess.run([sys.executable, "-m", "harness.cli", "design", str(bad)], capture_output=True, text=True)
+    r = subprocess.run(
+        [sys.executable, "-m", "harness.cli", "design", str(bad)], capture_output=True, text=True
+    )
     assert r.returncode == 2 and "not valid TOML" in r.stderr and "Traceback" not in r.stderr

@@ -1,17 +1,18 @@
 """The q15 build from the same templates: strict builds, Cortex-M0+ cross-compile, tracking
 of the float build on identical inputs, arbitrary inputs, closed loop."""
+
 from __future__ import annotations
 
 import numpy as np
 import pytest
-from hypothesis import given, settings, strategies as st
+from hypothesis import given, settings
+from hypothesis import strategies as st
 
 from codegen import target
-from codegen.build import compile_objects
-from harness.closedloop.loop import Controllers, run
-from codegen.build import build_project
+from codegen.build import build_project, compile_objects
 from codegen.render import render
 from design.project import from_config
+from harness.closedloop.loop import Controllers, run
 from harness.closedloop.report import lane_report
 from harness.closedloop.scenario import Scenario
 
@@ -31,7 +32,9 @@ def q15_built(q15_project):
 def test_q15_strict_host_build_and_deterministic(q15_project, tmp_path):
     a, b = render(q15_project), render(q15_project)
     assert a == b
-    assert "Number format: q15" in a["pfc_ctrl.c"] and "float" not in a["pfc_ctrl.c"].split("*/", 1)[1]
+    assert (
+        "Number format: q15" in a["pfc_ctrl.c"] and "float" not in a["pfc_ctrl.c"].split("*/", 1)[1]
+    )
     src = tmp_path / "src"
     src.mkdir()
     for n, t in a.items():
@@ -39,27 +42,35 @@ def test_q15_strict_host_build_and_deterministic(q15_project, tmp_path):
     assert compile_objects(src, tmp_path / "obj")
 
 
-@pytest.mark.skipif(not target.available(), reason="arm-none-eabi-gcc not installed (Debian: gcc-arm-none-eabi)")
+@pytest.mark.skipif(
+    not target.available(), reason="arm-none-eabi-gcc not installed (Debian: gcc-arm-none-eabi)"
+)
 @pytest.mark.parametrize("core", ["cortex-m0plus", "cortex-m4f"])
 def test_q15_cross_compile(q15_project, core):
     rep = target.check(render(q15_project), "pfc", core)
     assert rep.undefined == [], rep.undefined  # no libm, no allocator
     assert rep.state_B <= target.STATE_LIMIT_B
     # no floating point at all in the fixed build: no soft-float helpers on the M0+
-    assert not [c for c in rep.support_calls if c.endswith(("sf", "sf2", "sf3", "sfsi", "sisf"))], rep.support_calls
+    assert not [c for c in rep.support_calls if c.endswith(("sf", "sf2", "sf3", "sfsi", "sisf"))], (
+        rep.support_calls
+    )
 
 
 def test_q15_tracks_float_on_identical_inputs(demo_project, demo_built, q15_project, q15_built):
     """Both builds step over the ADC counts of one float closed-loop run (identical inputs):
     in steady state the current reference and the duty agree within 1 % of full scale
     (full scale: the current sensor range, and duty 1)."""
-    s = Scenario(duration_s=0.3, vrms_V=230.0, freq_Hz=50.0, load_kind="resistive", load_power_W=1500.0)
+    s = Scenario(
+        duration_s=0.3, vrms_V=230.0, freq_Hz=50.0, load_kind="resistive", load_power_W=1500.0
+    )
     res = run(demo_project, [s], progress=False, built=demo_built)
     d = res.lane(0)
     from harness.closedloop.loop import adc_scaling
     from plant.sensors import Sensors
 
-    codes = Sensors(adc_scaling(demo_project), len(d["t_s"])).convert(d["vterm_V"], d["i_sample_A"], d["vbus_sample_V"])
+    codes = Sensors(adc_scaling(demo_project), len(d["t_s"])).convert(
+        d["vterm_V"], d["i_sample_A"], d["vbus_sample_V"]
+    )
     outs = {}
     for name, prj, built in (("f", demo_project, demo_built), ("q", q15_project, q15_built)):
         ctl = Controllers(prj, 1, built)
@@ -78,8 +89,14 @@ def test_q15_tracks_float_on_identical_inputs(demo_project, demo_built, q15_proj
 
 
 @settings(max_examples=40, deadline=None)
-@given(seq=st.lists(st.tuples(st.integers(0, 65535), st.integers(0, 65535), st.integers(0, 65535)), min_size=1,
-                    max_size=40), repeat=st.integers(1, 60))
+@given(
+    seq=st.lists(
+        st.tuples(st.integers(0, 65535), st.integers(0, 65535), st.integers(0, 65535)),
+        min_size=1,
+        max_size=40,
+    ),
+    repeat=st.integers(1, 60),
+)
 def test_q15_arbitrary_adc_stays_in_range(q15_built, seq, repeat):
     ffi, lib = q15_built.ffi, q15_built.lib
     c = ffi.new("pfc_ctrl_t*")
@@ -96,7 +113,9 @@ def test_q15_arbitrary_adc_stays_in_range(q15_built, seq, repeat):
 
 @pytest.mark.slow
 def test_q15_closed_loop_230V_full_load(q15_project, q15_built):
-    s = Scenario(duration_s=0.5, vrms_V=230.0, freq_Hz=50.0, load_kind="resistive", load_power_W=1500.0)
+    s = Scenario(
+        duration_s=0.5, vrms_V=230.0, freq_Hz=50.0, load_kind="resistive", load_power_W=1500.0
+    )
     rep = lane_report(run(q15_project, [s], progress=False, built=q15_built))
     assert rep["pf"] >= 0.99 and rep["thd_i"] <= 0.05 and rep["class_a_pass"]
     assert abs(rep["vbus_mean_V"] - 400.0) <= 4.0

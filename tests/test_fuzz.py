@@ -5,17 +5,18 @@ memory): 0 % for 0.5 and 1 cycle, 40 % for 10/12, 70 % for 25/30, 80 % for 250/3
 (50/60 Hz), interruptions 0 % for 250/300 cycles; bounded campaigns cap durations at 12
 cycles.
 """
+
 from __future__ import annotations
 
 from pathlib import Path
 
 import pytest
 
+from codegen.build import build_project
 from harness.campaigns import fuzz
+from harness.closedloop import scenario
 
 from .helpers import broken_loader
-from harness.closedloop import scenario
-from codegen.build import build_project
 
 CORPUS = Path(__file__).parent / "corpus"
 CI_CASES = 200
@@ -44,13 +45,21 @@ def test_corpus_replays(demo_project):
     files = sorted(CORPUS.glob("*.toml"))
     assert files, "the regression corpus is empty"
     scns = [scenario.load(f) for f in files]
-    for f, v in zip(files, fuzz.run_cases(demo_project, scns)):
+    for f, v in zip(files, fuzz.run_cases(demo_project, scns), strict=True):
         assert v.ok, (f.name, v.failed)
 
 
 @pytest.mark.slow
 def test_bounded_campaign(demo_project, tmp_path):
-    res = fuzz.campaign(demo_project, CI_CASES, seed=2026, workers=2, batch=100, out_dir=tmp_path, log=lambda m: None)
+    res = fuzz.campaign(
+        demo_project,
+        CI_CASES,
+        seed=2026,
+        workers=2,
+        batch=100,
+        out_dir=tmp_path,
+        log=lambda m: None,
+    )
     assert len(res.verdicts) == CI_CASES
     failing = {k: v for k, v in res.counts().items() if v}
     assert not failing, (failing, [str(p) for p in res.saved])
@@ -62,7 +71,15 @@ def test_campaign_catches_a_broken_controller(demo_project):
     tests/helpers.py) keeps switching in the old polarity near each crossing: the campaign
     must flag it."""
     broken = build_project(demo_project, broken_loader("no_zc_blank"))
-    res = fuzz.campaign(demo_project, 16, seed=2026, workers=1, batch=16, out_dir=None, log=lambda m: None,
-                        built=broken)
+    res = fuzz.campaign(
+        demo_project,
+        16,
+        seed=2026,
+        workers=1,
+        batch=16,
+        out_dir=None,
+        log=lambda m: None,
+        built=broken,
+    )
     counts = res.counts()
     assert counts["zc_spike"] + counts["chatter"] + counts["ov_oc"] > 0, counts

@@ -1,4 +1,5 @@
 """Generated sources: deterministic bytes, strict warnings-as-errors builds, cross-compile check."""
+
 from __future__ import annotations
 
 import subprocess
@@ -18,13 +19,16 @@ CONFIGS = [DEMO, EXAMPLES / "telecom_3k3.toml", EXAMPLES / "appliance_1k2.toml"]
 
 def test_generate_twice_identical_bytes(tmp_path):
     for out in ("a", "b"):
-        r = subprocess.run([sys.executable, "-m", "harness.cli", "generate", str(DEMO), "-o", str(tmp_path / out)],
-                           capture_output=True, text=True)
+        r = subprocess.run(
+            [sys.executable, "-m", "harness.cli", "generate", str(DEMO), "-o", str(tmp_path / out)],
+            capture_output=True,
+            text=True,
+        )
         assert r.returncode == 0, r.stderr
     a = sorted((tmp_path / "a").iterdir())
     b = sorted((tmp_path / "b").iterdir())
     assert [p.name for p in a] == [p.name for p in b] and len(a) > 10
-    for x, y in zip(a, b):
+    for x, y in zip(a, b, strict=True):
         assert x.read_bytes() == y.read_bytes()
 
 
@@ -38,7 +42,9 @@ def test_headers_carry_caution_digest_and_units():
     lines = cfg.splitlines()
     for k, ln in enumerate(lines):
         if ln.startswith("#define PFC_") and not ln.startswith("#define PFC_CONFIG_H"):
-            assert lines[k - 1].startswith("/*") and "[" in lines[k - 1] and "from" in lines[k - 1], ln
+            assert (
+                lines[k - 1].startswith("/*") and "[" in lines[k - 1] and "from" in lines[k - 1]
+            ), ln
 
 
 @pytest.mark.parametrize("cfg", CONFIGS, ids=lambda p: p.stem)
@@ -51,7 +57,9 @@ def test_strict_host_build(cfg, tmp_path):
         (src / n).write_text(t)
     objs = compile_objects(src, tmp_path / "obj")
     assert len(objs) == sum(1 for n in files if n.endswith(".c"))
-    assert {"-Werror", "-Wconversion", "-Wdouble-promotion", "-Wshadow", "-std=c99"} <= set(STRICT_FLAGS)
+    assert {"-Werror", "-Wconversion", "-Wdouble-promotion", "-Wshadow", "-std=c99"} <= set(
+        STRICT_FLAGS
+    )
 
 
 def test_compiler_error_shows_generated_line(tmp_path):
@@ -59,7 +67,11 @@ def test_compiler_error_shows_generated_line(tmp_path):
     with pytest.raises(BuildError) as ei:
         build(files, "bad")
     msg = str(ei.value)
-    assert "bad_x.c" in msg and "conversion" in msg and "generated line bad_x.c:2: uint8_t f(uint32_t x) { return x; }" in msg
+    assert (
+        "bad_x.c" in msg
+        and "conversion" in msg
+        and "generated line bad_x.c:2: uint8_t f(uint32_t x) { return x; }" in msg
+    )
 
 
 def test_no_double_no_libm_no_heap_in_sources():
@@ -69,24 +81,44 @@ def test_no_double_no_libm_no_heap_in_sources():
     for name, text in files.items():
         body = re.sub(r"/\*.*?\*/", "", text, flags=re.S)
         assert not re.search(r"\bdouble\b", body), name
-        assert not re.search(r"\b(malloc|calloc|free|sqrtf?|sinf?|cosf?|fabsf?|expf?|logf?|powf?)\s*\(", body), name
+        assert not re.search(
+            r"\b(malloc|calloc|free|sqrtf?|sinf?|cosf?|fabsf?|expf?|logf?|powf?)\s*\(", body
+        ), name
         assert "#include <math.h>" not in body and "#include <stdlib.h>" not in body, name
 
 
-@pytest.mark.skipif(not target.available(), reason="arm-none-eabi-gcc not installed (Debian: gcc-arm-none-eabi)")
+@pytest.mark.skipif(
+    not target.available(), reason="arm-none-eabi-gcc not installed (Debian: gcc-arm-none-eabi)"
+)
 @pytest.mark.parametrize("cfg", CONFIGS, ids=lambda p: p.stem)
 def test_cortex_m4f_cross_compile(cfg):
     prj = load_project(cfg)
     rep = target.check(render(prj), prj.config.control.prefix, "cortex-m4f")
-    assert rep.undefined == [], rep.undefined  # no libm, no allocator, nothing outside the generated code
+    assert rep.undefined == [], (
+        rep.undefined
+    )  # no libm, no allocator, nothing outside the generated code
     assert rep.flash_B <= target.FLASH_LIMIT_B, rep.flash_B
     assert rep.state_B <= target.STATE_LIMIT_B, rep.state_B
     assert rep.ram_B == 0  # all state lives in the caller's controller struct
 
 
-@pytest.mark.skipif(not target.available(), reason="arm-none-eabi-gcc not installed (Debian: gcc-arm-none-eabi)")
+@pytest.mark.skipif(
+    not target.available(), reason="arm-none-eabi-gcc not installed (Debian: gcc-arm-none-eabi)"
+)
 def test_generate_check_target_cli(tmp_path):
-    r = subprocess.run([sys.executable, "-m", "harness.cli", "generate", str(DEMO), "-o", str(tmp_path), "--check-target"],
-                       capture_output=True, text=True)
+    r = subprocess.run(
+        [
+            sys.executable,
+            "-m",
+            "harness.cli",
+            "generate",
+            str(DEMO),
+            "-o",
+            str(tmp_path),
+            "--check-target",
+        ],
+        capture_output=True,
+        text=True,
+    )
     assert r.returncode == 0, r.stdout + r.stderr
     assert "cortex-m4f" in r.stdout and "sizeof ctrl" in r.stdout

@@ -1,6 +1,7 @@
 """The plant kernel's own arithmetic: series against the math library, the carried line
 phase against sin/cos of the phase itself, and the compiled kernel against the same code
 run as plain Python."""
+
 from __future__ import annotations
 
 import json
@@ -12,32 +13,38 @@ import sys
 import numpy as np
 import pytest
 
-from plant import kernel as K
+from plant import layout as LY
+from plant.jit import COMPILED
+from plant.source import advance_phase, small_sin_cos
 
 
 def test_small_angle_sin_cos_match_the_math_library():
     # reference: Python's math.sin/math.cos (the C library); the series is used up to 0.05 rad
     for x in np.linspace(-0.05, 0.05, 2001):
-        s, c = K.small_sin_cos(float(x))
+        s, c = small_sin_cos(float(x))
         assert abs(s - math.sin(x)) <= 2e-17 and abs(c - math.cos(x)) <= 2e-17
-    s, c = K.small_sin_cos(0.3)  # beyond the series' range: the library itself
+    s, c = small_sin_cos(0.3)  # beyond the series' range: the library itself
     assert (s, c) == (math.sin(0.3), math.cos(0.3))
 
 
 def test_carried_phase_stays_on_the_unit_circle():
     """sin and cos of the line phase are carried from period to period by rotation; after many
     periods they must still be sin and cos of the phase (to rounding)."""
-    lane = np.zeros((2, K.LANE_ROWS))
-    lane[:, K.L_FREQ] = (50.0, 61.7)
-    lane[:, K.L_THETA] = (0.0, 2.0)
-    lane[:, K.L_S0], lane[:, K.L_C0] = np.sin(lane[:, K.L_THETA]), np.cos(lane[:, K.L_THETA])
+    lane = np.zeros((2, LY.LANE_ROWS))
+    lane[:, LY.L_FREQ] = (50.0, 61.7)
+    lane[:, LY.L_THETA] = (0.0, 2.0)
+    lane[:, LY.L_S0], lane[:, LY.L_C0] = np.sin(lane[:, LY.L_THETA]), np.cos(lane[:, LY.L_THETA])
     T = 1.0 / 65000.0
     worst = 0.0
-    for k in range(3 * 1300):  # three line cycles at 50 Hz, including wraps of the phase
+    for _ in range(3 * 1300):  # three line cycles at 50 Hz, including wraps of the phase
         for j in range(2):
-            K.advance_phase(lane, j, T)
-        th = lane[:, K.L_THETA]
-        worst = max(worst, np.max(np.abs(lane[:, K.L_S0] - np.sin(th))), np.max(np.abs(lane[:, K.L_C0] - np.cos(th))))
+            advance_phase(lane, j, T)
+        th = lane[:, LY.L_THETA]
+        worst = max(
+            worst,
+            np.max(np.abs(lane[:, LY.L_S0] - np.sin(th))),
+            np.max(np.abs(lane[:, LY.L_C0] - np.cos(th))),
+        )
         assert np.all((th >= 0.0) & (th < 2.0 * math.pi))
     assert worst < 1e-12, worst
 
@@ -67,19 +74,30 @@ print(json.dumps({k: np.asarray(v[:, 0], dtype=float).tolist() for k, v in r.dat
 """
 
 
-@pytest.mark.skipif(not K.COMPILED, reason="numba not installed: the kernel already runs as plain Python")
+@pytest.mark.skipif(
+    not COMPILED, reason="numba not installed: the kernel already runs as plain Python"
+)
 def test_compiled_kernel_equals_plain_python(demo_path):
     """The same kernel source, compiled by numba and run by the Python interpreter
     (NUMBA_DISABLE_JIT=1), gives the same records to the bit across the crossing of the line
     (no contraction into fused multiply-adds, no reordering of sums)."""
+
     def records(env_extra):
         env = {**os.environ, **env_extra}
-        out = subprocess.run([sys.executable, "-c", PROBE, str(demo_path)], capture_output=True, text=True, env=env,
-                             check=True, timeout=300)
+        out = subprocess.run(
+            [sys.executable, "-c", PROBE, str(demo_path)],
+            capture_output=True,
+            text=True,
+            env=env,
+            check=True,
+            timeout=300,
+        )
         return json.loads(out.stdout)
 
     compiled, plain = records({}), records({"NUMBA_DISABLE_JIT": "1"})
-    assert any(g != 0 for g in compiled["gates"])  # it got as far as switching (the solver's common step)
+    assert any(
+        g != 0 for g in compiled["gates"]
+    )  # it got as far as switching (the solver's common step)
     assert compiled.keys() == plain.keys()
     for name in compiled:
         assert compiled[name] == plain[name], name

@@ -1,4 +1,5 @@
 """The lockstep link: encoder/decoder properties (hypothesis) and a host-process target."""
+
 from __future__ import annotations
 
 import os
@@ -6,18 +7,27 @@ import signal
 import subprocess
 
 import pytest
-from hypothesis import given, settings, strategies as st
+from hypothesis import given, settings
+from hypothesis import strategies as st
 
 from codegen.target import HOST_BUILD, build_target
-from harness.targets import link
-from harness.closedloop.loop import run
-from harness.targets.pil import (FLOAT32_INSN_LIMIT, PipeTransport, RemoteControllers, compare_outputs,
-                         run_pil)
 from design.project import from_config
+from harness.closedloop.loop import run
 from harness.closedloop.scenario import Scenario
+from harness.targets import link
+from harness.targets.pil import (
+    FLOAT32_INSN_LIMIT,
+    PipeTransport,
+    RemoteControllers,
+    compare_outputs,
+    run_pil,
+)
 
-frames = st.lists(st.tuples(st.sampled_from([1, 2, 3, 0x81, 0x83]), st.integers(0, 255), st.binary(max_size=60)),
-                  min_size=1, max_size=8)
+frames = st.lists(
+    st.tuples(st.sampled_from([1, 2, 3, 0x81, 0x83]), st.integers(0, 255), st.binary(max_size=60)),
+    min_size=1,
+    max_size=8,
+)
 
 
 def test_crc_check_value():
@@ -32,7 +42,7 @@ def test_round_trip_in_any_chunking(fs, chunk):
     d = link.Decoder()
     got = []
     for i in range(0, len(data), chunk):
-        got += d.feed(data[i:i + chunk])
+        got += d.feed(data[i : i + chunk])
     assert [(f.ftype, f.seq, f.payload) for f in got] == fs and d.dropped == 0
 
 
@@ -68,7 +78,9 @@ class FakeTarget:
 
     def write(self, data):
         f = link.Decoder().feed(data)[0]
-        ans = link.encode(f.ftype | link.ACK, f.seq, bytes([1]) + b"\x00" * 6 if f.ftype == link.STEP else b"")
+        ans = link.encode(
+            f.ftype | link.ACK, f.seq, bytes([1]) + b"\x00" * 6 if f.ftype == link.STEP else b""
+        )
         if self.mode == "duplicate":
             self.queue += [ans, ans]
         elif self.mode == "reorder" and self.last is not None:
@@ -103,7 +115,9 @@ def test_stale_answer_detected_and_silent_target_times_out():
 @pytest.mark.parametrize("fmt", ["float32", "q15"])
 def test_host_process_pil_equals_in_process(demo_project, fmt):
     prj = from_config(demo_project.config.replace("control", number_format=fmt))
-    s = Scenario(duration_s=0.16, vrms_V=230.0, freq_Hz=50.0, load_kind="resistive", load_power_W=1500.0)
+    s = Scenario(
+        duration_s=0.16, vrms_V=230.0, freq_Hz=50.0, load_kind="resistive", load_power_W=1500.0
+    )
     pil = run_pil(prj, s, "host")
     ref = run(prj, [s], progress=False)
     cmp_ = compare_outputs(ref, pil.result)
@@ -136,9 +150,14 @@ def test_target_that_stops_answering(demo_project):
             def internals(self):
                 return ctl.internals()
 
-        s = Scenario(duration_s=0.05, vrms_V=230.0, freq_Hz=50.0, load_kind="resistive", load_power_W=1500.0)
+        s = Scenario(
+            duration_s=0.05, vrms_V=230.0, freq_Hz=50.0, load_kind="resistive", load_power_W=1500.0
+        )
         res = run(demo_project, [s], progress=False, controllers=Freezing())
-        assert "stopped at period 499" in res.extras["aborted"] and "no answer" in res.extras["aborted"]
+        assert (
+            "stopped at period 499" in res.extras["aborted"]
+            and "no answer" in res.extras["aborted"]
+        )
         assert res.periods == 499 and len(res.data["t_s"]) == 499  # the partial record is kept
     finally:
         os.kill(proc.pid, signal.SIGKILL)
@@ -147,8 +166,7 @@ def test_target_that_stops_answering(demo_project):
 
 def test_target_shell_cross_compiles_needing_only_the_board_functions(demo_project):
     from codegen import target
-    from codegen.render import render_link
-    from codegen.render import render
+    from codegen.render import render, render_link
 
     if not target.available():
         pytest.skip("arm-none-eabi-gcc not installed (Debian: gcc-arm-none-eabi)")
@@ -170,7 +188,9 @@ def test_qemu_m4f_pil_equals_in_process(demo_project, fmt):
     if not target.available():
         pytest.skip("arm-none-eabi-gcc not installed")
     prj = from_config(demo_project.config.replace("control", number_format=fmt))
-    s = Scenario(duration_s=0.16, vrms_V=230.0, freq_Hz=50.0, load_kind="resistive", load_power_W=1500.0)
+    s = Scenario(
+        duration_s=0.16, vrms_V=230.0, freq_Hz=50.0, load_kind="resistive", load_power_W=1500.0
+    )
     pil = run_pil(prj, s, "qemu-m4f", timeout_s=5.0)
     ref = run(prj, [s], progress=False)
     cmp_ = compare_outputs(ref, pil.result)
@@ -180,7 +200,9 @@ def test_qemu_m4f_pil_equals_in_process(demo_project, fmt):
     # be consistent; float32 has the issue's budget of 1000 instructions per step, worst case
     c = pil.cost
     assert c is not None and c["steps"] == cmp_.periods
-    assert c["min"] <= c["mean"] <= c["max"] and c["min"] > 50  # a real step is more than a few instructions
+    assert (
+        c["min"] <= c["mean"] <= c["max"] and c["min"] > 50
+    )  # a real step is more than a few instructions
     if fmt == "float32":
         assert c["max"] <= FLOAT32_INSN_LIMIT, c
     assert 0 < pil.image["flash_B"] < 64 * 1024 and pil.image["ram_B"] > 0
@@ -228,16 +250,23 @@ def test_serial_transport_snapshot_and_cost_on_a_pty(demo_project):
     try:
         sess = link.Session(tr, timeout_s=1.0)
         ctl = RemoteControllers(sess, demo_project)
-        s = Scenario(duration_s=0.01, vrms_V=230.0, freq_Hz=50.0, load_kind="resistive", load_power_W=1500.0)
+        s = Scenario(
+            duration_s=0.01, vrms_V=230.0, freq_Hz=50.0, load_kind="resistive", load_power_W=1500.0
+        )
         res = run(demo_project, [s], progress=False, controllers=ctl)
         ref = run(demo_project, [s], progress=False)
         snap = ctl.state()
-        assert snap == ref.extras["final_states"][0]  # the state read in 256-byte pieces, byte for byte
+        assert (
+            snap == ref.extras["final_states"][0]
+        )  # the state read in 256-byte pieces, byte for byte
         import struct
 
         for off in (100, len(snap), len(snap) + 7):  # a piece from an offset; nothing past the end
             f = sess.request(link.SNAPSHOT, struct.pack("<H", off))
-            assert struct.unpack_from("<HH", f.payload) == (len(snap), off) and f.payload[4:] == snap[off:]
+            assert (
+                struct.unpack_from("<HH", f.payload) == (len(snap), off)
+                and f.payload[4:] == snap[off:]
+            )
         assert compare_outputs(ref, res).equal
         cost = sess.cost(clear=True)
         assert cost.steps == res.periods and cost.tick_sum == 0 and cost.instructions() is None
@@ -253,21 +282,40 @@ def test_pil_cli_over_a_serial_port(demo_path, tmp_path):
     report as the other targets, outputs equal to the in-process run."""
     import json
 
-    from harness.cli import main
     from design.project import load_project
+    from harness.cli import main
 
     tgt = HostBehindPty(load_project(demo_path))
     try:
         out = tmp_path / "pil.json"
-        code = main(["pil", str(demo_path), "--target", "serial", "--port", tgt.port, "--baud", "230400",
-                     "--duration", "0.06", "--json", str(out)])
+        code = main(
+            [
+                "pil",
+                str(demo_path),
+                "--target",
+                "serial",
+                "--port",
+                tgt.port,
+                "--baud",
+                "230400",
+                "--duration",
+                "0.06",
+                "--json",
+                str(out),
+            ]
+        )
         doc = json.loads(out.read_text())
     finally:
         tgt.close()
     assert code == 0
     assert doc["equivalence"]["equal"] and doc["equivalence"]["final_state_equal"]
     assert doc["port"] == tgt.port and doc["baud"] == 230400 and doc["link"]["bad_crc"] == 0
-    assert {"pf", "thd_i", "vbus_mean_V", "class_a_pass"} <= doc.keys()  # the figures `pfcrig run` reports
+    assert {
+        "pf",
+        "thd_i",
+        "vbus_mean_V",
+        "class_a_pass",
+    } <= doc.keys()  # the figures `pfcrig run` reports
 
 
 def test_serial_target_needs_a_port_and_a_dead_port_is_a_clear_error(demo_path, capsys):
@@ -275,7 +323,10 @@ def test_serial_target_needs_a_port_and_a_dead_port_is_a_clear_error(demo_path, 
 
     assert main(["pil", str(demo_path), "--target", "serial"]) == 2
     assert "--port" in capsys.readouterr().err
-    assert main(["pil", str(demo_path), "--target", "serial", "--port", "/dev/pfcrig-no-such-port"]) == 1
+    assert (
+        main(["pil", str(demo_path), "--target", "serial", "--port", "/dev/pfcrig-no-such-port"])
+        == 1
+    )
     assert "cannot open serial port" in capsys.readouterr().err
 
 
@@ -305,16 +356,30 @@ def test_pil_cli_writes_the_partial_report_when_the_target_stops(demo_path, tmp_
     import json
     import threading
 
-    from harness.cli import main
     from design.project import load_project
+    from harness.cli import main
 
     tgt = HostBehindPty(load_project(demo_path))
     freeze = threading.Timer(0.4, lambda: os.kill(tgt.proc.pid, signal.SIGSTOP))
     try:
         out = tmp_path / "pil.json"
         freeze.start()
-        code = main(["pil", str(demo_path), "--target", "serial", "--port", tgt.port, "--duration", "2.0",
-                     "--timeout", "0.2", "--json", str(out)])
+        code = main(
+            [
+                "pil",
+                str(demo_path),
+                "--target",
+                "serial",
+                "--port",
+                tgt.port,
+                "--duration",
+                "2.0",
+                "--timeout",
+                "0.2",
+                "--json",
+                str(out),
+            ]
+        )
         doc = json.loads(out.read_text())
     finally:
         freeze.cancel()
@@ -334,10 +399,10 @@ def test_qemu_m4f_over_a_loopback_socket(demo_path, tmp_path):
     import time
 
     from codegen import target
-    from harness.cli import main
     from codegen.target import QEMU_M4F_BUILD, build_target
-    from harness.targets.pil import QEMU_CMD
     from design.project import load_project
+    from harness.cli import main
+    from harness.targets.pil import QEMU_CMD
 
     if not target.available():
         pytest.skip("arm-none-eabi-gcc not installed")
@@ -347,8 +412,18 @@ def test_qemu_m4f_over_a_loopback_socket(demo_path, tmp_path):
     port = s.getsockname()[1]
     s.close()
     cmd = [a for a in QEMU_CMD if a not in ("-serial", "pty")]
-    q = subprocess.Popen([*cmd, "-serial", f"tcp:127.0.0.1:{port},server=on,wait=off,nodelay=on", "-kernel", str(elf)],
-                         stdin=subprocess.DEVNULL, stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL)
+    q = subprocess.Popen(
+        [
+            *cmd,
+            "-serial",
+            f"tcp:127.0.0.1:{port},server=on,wait=off,nodelay=on",
+            "-kernel",
+            str(elf),
+        ],
+        stdin=subprocess.DEVNULL,
+        stdout=subprocess.DEVNULL,
+        stderr=subprocess.DEVNULL,
+    )
     try:
         for _ in range(100):  # until QEMU listens
             try:
@@ -357,8 +432,22 @@ def test_qemu_m4f_over_a_loopback_socket(demo_path, tmp_path):
             except OSError:
                 time.sleep(0.05)
         out = tmp_path / "pil.json"
-        code = main(["pil", str(demo_path), "--target", "serial", "--port", f"socket://127.0.0.1:{port}",
-                     "--duration", "0.03", "--timeout", "5", "--json", str(out)])
+        code = main(
+            [
+                "pil",
+                str(demo_path),
+                "--target",
+                "serial",
+                "--port",
+                f"socket://127.0.0.1:{port}",
+                "--duration",
+                "0.03",
+                "--timeout",
+                "5",
+                "--json",
+                str(out),
+            ]
+        )
         doc = json.loads(out.read_text())
     finally:
         q.kill()

@@ -1,4 +1,5 @@
 """Figures of merit against analytic facts and the IEC 61000-3-2 Class A table."""
+
 from __future__ import annotations
 
 import math
@@ -19,7 +20,8 @@ def grid_and(f, cycles=10):
 
 @pytest.mark.parametrize("f", [50.0, 60.0])
 def test_square_wave_thd_and_pf(f):
-    # analytic: a square wave has THD sqrt(pi^2/8 - 1) = 48.34 % and, against a sine, PF 2 sqrt(2)/pi = 0.9003
+    # analytic: a square wave has THD sqrt(pi^2/8 - 1) = 48.34 % and, against a sine, PF 2
+    # sqrt(2)/pi = 0.9003
     t, v = grid_and(f, metrics.window_cycles(f))
     i = 10.0 * np.sign(np.sin(2 * np.pi * f * (t + 0.5 / FS)))
     q = metrics.power_quality(v, i, FS, f)
@@ -56,7 +58,8 @@ def test_known_harmonics_recovered():
             assert q["harmonics_A"][h - 1] < 1e-9
 
 
-# IEC 61000-3-2 Class A maximum permissible harmonic current, A rms (quoted from memory of the standard)
+# IEC 61000-3-2 Class A maximum permissible harmonic current, A rms (quoted from memory of the
+# standard)
 CLASS_A = {3: 2.30, 5: 1.14, 7: 0.77, 9: 0.40, 11: 0.33, 13: 0.21, 2: 1.08, 4: 0.43, 6: 0.30}
 
 

@@ -8,6 +8,7 @@ zero-current state held until a path is forward-biased again.  It spans two line
 cycles and includes a stretch of discontinuous conduction: near each zero
 crossing the synchronous switch stays off, so its body diode blocks reversal.
 """
+
 from __future__ import annotations
 
 import math
@@ -21,24 +22,54 @@ from plant.grid import Grid
 from plant.load import Load
 from plant.stage import StageParams
 
-from .helpers import GHI as GATE_FAST_HI, GLO as GATE_FAST_LO, SHI as GATE_SLOW_HI, SLO as GATE_SLOW_LO
+from .helpers import (
+    GHI as GATE_FAST_HI,
+)
+from .helpers import (
+    GLO as GATE_FAST_LO,
+)
+from .helpers import (
+    SHI as GATE_SLOW_HI,
+)
+from .helpers import (
+    SLO as GATE_SLOW_LO,
+)
 
-P = StageParams(inductance_H=400e-6, capacitance_F=470e-6, inductor_dcr_ohm=0.05, capacitor_esr_ohm=0.04,
-                rds_on_fast_ohm=0.05, rds_on_slow_ohm=0.03, dead_time_s=200e-9, fsw_Hz=20e3, period_counts=1000,
-                source_resistance_ohm=0.1, source_inductance_H=30e-6)
+P = StageParams(
+    inductance_H=400e-6,
+    capacitance_F=470e-6,
+    inductor_dcr_ohm=0.05,
+    capacitor_esr_ohm=0.04,
+    rds_on_fast_ohm=0.05,
+    rds_on_slow_ohm=0.03,
+    dead_time_s=200e-9,
+    fsw_Hz=20e3,
+    period_counts=1000,
+    source_resistance_ohm=0.1,
+    source_inductance_H=30e-6,
+)
 VRMS, F, VBUS0, G = 230.0, 50.0, 390.0, 1.0 / 200.0
 
 
 def make_sequence(periods):
-    """Closed loop under a P controller on our plant: returns per-period compare, gates, and states."""
+    """Closed loop under a P controller on our plant: returns per-period compare, gates, and
+    states."""
     # a resistive load of conductance G, connected from the start (power-good and UVLO at 0 V)
-    st = Plant(P, Grid(1, VRMS, F, 0.0), Load(1, "resistive", G * 400.0**2, 400.0, connect_V=0.0, uvlo_V=0.0),
-               None, 0.0, VBUS0)
+    st = Plant(
+        P,
+        Grid(1, VRMS, F, 0.0),
+        Load(1, "resistive", G * 400.0**2, 400.0, connect_V=0.0, uvlo_V=0.0),
+        None,
+        0.0,
+        VBUS0,
+    )
     seq, states = [], [(st.i[0], st.vc[0])]
     comp, gates = 0.0, 0
     ipk = 6.0
     out = np.zeros((1, len(FIELDS)))
-    cmd = np.zeros(1, dtype=[("compare", "<u2"), ("gates", "u1"), ("mode", "u1"), ("faults", "<u2")])
+    cmd = np.zeros(
+        1, dtype=[("compare", "<u2"), ("gates", "u1"), ("mode", "u1"), ("faults", "<u2")]
+    )
     for k in range(periods):
         cmd["compare"], cmd["gates"] = comp, gates
         st.step(k, cmd["compare"], cmd["gates"], out)
@@ -47,7 +78,9 @@ def make_sequence(periods):
         states.append((st.i[0], st.vc[0]))
         # next period's command
         pol = 1 if vs > 0 else -1
-        vb = st.vc[0] / (1.0 + P.capacitor_esr_ohm * G)  # bus terminal voltage with no converter current
+        vb = st.vc[0] / (
+            1.0 + P.capacitor_esr_ohm * G
+        )  # bus terminal voltage with no converter current
         iref = ipk * abs(vs) / (math.sqrt(2) * VRMS)
         d = min(max(1 - abs(vs) / vb + 0.02 * (iref - pol * st.i[0]), 0.0), 0.97)
         if abs(vs) < 5.0:
@@ -63,26 +96,72 @@ def make_sequence(periods):
     return seq, np.array(states)
 
 
+K_ESR = 1.0 / (1.0 + P.capacitor_esr_ohm * G)
+
+
+def _vs(t):
+    return math.sqrt(2) * VRMS * math.sin(2 * math.pi * F * t)
+
+
+def _vbus(m, i, vc):
+    return K_ESR * (vc + P.capacitor_esr_ohm * m * i)
+
+
+def _rhs(m, zero):
+    Lt, R, C = P.l_total_H, P.r_total_ohm, P.capacitance_F
+
+    def f(t, x):
+        i, vc = x
+        if zero:
+            return [0.0, -G * _vbus(0, 0, vc) / C]
+        vb = _vbus(m, i, vc)
+        return [(_vs(t) - R * i - m * vb) / Lt, (m * i - G * vb) / C]
+
+    return f
+
+
+def _m_of(qa, qb, sign):
+    """Midpoint difference with a switch fixing a midpoint (0/1) or its diode (None) choosing
+    by the current's sign."""
+    qa_ = qa if qa is not None else (1 if sign > 0 else 0)
+    qb_ = qb if qb is not None else (0 if sign > 0 else 1)
+    return qa_ - qb_
+
+
+def _conduction(qa, qb, forced, x, ta):
+    """(m, zero): which path the present state and source voltage forward-bias."""
+    i, vc = x
+    if forced or i > 0 or (i == 0 and _vs(ta) - _m_of(qa, qb, 1) * _vbus(0, 0, vc) > 0):
+        return _m_of(qa, qb, 1), False
+    if i < 0 or (i == 0 and _vs(ta) - _m_of(qa, qb, -1) * _vbus(0, 0, vc) < 0):
+        return _m_of(qa, qb, -1), False
+    return 0, True
+
+
+def _interval(x, ta, tb, qa, qb):
+    """Integrate one sub-interval by solve_ivp, stopping where a diode current reaches zero."""
+    forced = _m_of(qa, qb, 1) == _m_of(qa, qb, -1)
+    while ta < tb - 1e-15:
+        m, zero = _conduction(qa, qb, forced, x, ta)
+        ev = None
+        if not forced and not zero:
+            ev = lambda t, y: y[0]  # noqa: E731
+            ev.terminal = True
+            ev.direction = -1 if x[0] > 0 else 1
+        sol = solve_ivp(
+            _rhs(m, zero), (ta, tb), x, method="DOP853", rtol=1e-10, atol=1e-12, events=ev
+        )
+        x = sol.y[:, -1].copy()
+        if sol.status == 1:  # current reached zero
+            x[0] = 0.0
+            ta = sol.t[-1]
+        else:
+            ta = tb
+    return x
+
+
 def reference(seq):
-    Lt, R, C, rc = P.l_total_H, P.r_total_ohm, P.capacitance_F, P.capacitor_esr_ohm
     T = P.period_s
-    k = 1.0 / (1.0 + rc * G)
-
-    def vs(t):
-        return math.sqrt(2) * VRMS * math.sin(2 * math.pi * F * t)
-
-    def vbus(m, i, vc):
-        return k * (vc + rc * m * i)
-
-    def rhs(m, zero):
-        def f(t, x):
-            i, vc = x
-            if zero:
-                return [0.0, -G * vbus(0, 0, vc) / C]
-            vb = vbus(m, i, vc)
-            return [(vs(t) - R * i - m * vb) / Lt, (m * i - G * vb) / C]
-        return f
-
     x = np.array([0.0, VBUS0])
     out = [x.copy()]
     t0 = 0.0
@@ -90,44 +169,20 @@ def reference(seq):
         dl = min(max(comp / P.period_counts, 0.0), 1.0)
         td = P.dead_time_s if 0.0 < dl < 1.0 else 0.0
         t1, t2 = dl * T / 2, T - dl * T / 2
-        bounds = [(0.0, t1, "lo"), (t1, min(t1 + td, t2), "dead"), (min(t1 + td, t2), t2, "hi"),
-                  (t2, min(t2 + td, T), "dead"), (min(t2 + td, T), T, "lo")]
+        bounds = [
+            (0.0, t1, "lo"),
+            (t1, min(t1 + td, t2), "dead"),
+            (min(t1 + td, t2), t2, "hi"),
+            (t2, min(t2 + td, T), "dead"),
+            (min(t2 + td, T), T, "lo"),
+        ]
         qb = 0 if gates & GATE_SLOW_LO else (1 if gates & GATE_SLOW_HI else None)
         for a, b, kind in bounds:
             if b <= a:
                 continue
-            qa = 0 if (kind == "lo" and gates & GATE_FAST_LO) else (1 if (kind == "hi" and gates & GATE_FAST_HI) else None)
-
-            def m_of(sign):
-                qa_ = qa if qa is not None else (1 if sign > 0 else 0)
-                qb_ = qb if qb is not None else (0 if sign > 0 else 1)
-                return qa_ - qb_
-
-            forced = m_of(1) == m_of(-1)
-            ta = t0 + a
-            while ta < t0 + b - 1e-15:
-                i, vc = x
-                if forced:
-                    m, zero = m_of(1), False
-                elif i > 0 or (i == 0 and vs(ta) - m_of(1) * vbus(0, 0, vc) > 0):
-                    m, zero = m_of(1), False
-                elif i < 0 or (i == 0 and vs(ta) - m_of(-1) * vbus(0, 0, vc) < 0):
-                    m, zero = m_of(-1), False
-                else:
-                    m, zero = 0, True
-                ev = None
-                if not forced and not zero:
-                    ev = lambda t, y: y[0]  # noqa: E731
-                    ev.terminal = True
-                    ev.direction = -1 if i > 0 else 1
-                sol = solve_ivp(rhs(m, zero), (ta, t0 + b), x, method="DOP853", rtol=1e-10, atol=1e-12,
-                                events=ev)
-                x = sol.y[:, -1].copy()
-                if sol.status == 1:  # current reached zero
-                    x[0] = 0.0
-                    ta = sol.t[-1]
-                else:
-                    ta = t0 + b
+            lo_on = kind == "lo" and gates & GATE_FAST_LO
+            qa = 0 if lo_on else (1 if (kind == "hi" and gates & GATE_FAST_HI) else None)
+            x = _interval(x, t0 + a, t0 + b, qa, qb)
         out.append(x.copy())
         t0 += T
     return np.array(out)

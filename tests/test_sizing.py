@@ -5,13 +5,15 @@ di_pp = v (1 - v/Vo)/(L fsw), worst case at v = Vo/2 gives L = Vo/(4 fsw di_pp))
 energy balance for the twice-line ripple dv_pp = P/(2 pi f C Vo) and the hold-up
 C = 2 P t_h/(Vo^2 - Vmin^2).
 """
+
 from __future__ import annotations
 
 import math
 from dataclasses import dataclass
 
 import pytest
-from hypothesis import given, settings, strategies as st
+from hypothesis import given, settings
+from hypothesis import strategies as st
 
 from design.config import load
 from design.sizing import boost_ripple_pp, size
@@ -59,11 +61,13 @@ def test_telecom_3k3_by_hand():
     assert z.iline_peak_A == pytest.approx(27.1964, rel=1e-5)
     # L = 400/(4*65000*6.79910) = 226.274 uH
     assert z.inductance_H == pytest.approx(226.274e-6, rel=1e-5)
-    # C_ripple = 3300/(2 pi 50 * 400 * 20) = 1313.03 uF;  C_holdup = 2*3300*0.02/(160000-90000) = 1885.71 uF
+    # C_ripple = 3300/(2 pi 50 * 400 * 20) = 1313.03 uF;  C_holdup = 2*3300*0.02/(160000-90000) =
+    # 1885.71 uF
     assert z.capacitance_ripple_F == pytest.approx(1313.03e-6, rel=1e-5)
     assert z.capacitance_holdup_F == pytest.approx(1885.71e-6, rel=1e-5)
     assert z.capacitance_F == z.capacitance_holdup_F
-    # with hold-up dominating, the ripple falls below the target: 3300/(2 pi 50 * 1885.71e-6 * 400) = 13.926 V
+    # with hold-up dominating, the ripple falls below the target: 3300/(2 pi 50 * 1885.71e-6 *
+    # 400) = 13.926 V
     assert z.bus_ripple_pp_V == pytest.approx(13.926, rel=1e-4)
 
 
@@ -77,7 +81,8 @@ def test_appliance_1k2_by_hand():
     # C_ripple = 1200/(2 pi 60 * 390 * 23.4) = 348.792 uF; no hold-up asked
     assert z.capacitance_ripple_F == pytest.approx(348.792e-6, rel=1e-5)
     assert z.capacitance_holdup_F == 0.0
-    # ripple at the low-line peak v = 120.208 V: 120.208 (1 - 120.208/390) / (133.946e-6 * 1e5) = 6.2082 A
+    # ripple at the low-line peak v = 120.208 V: 120.208 (1 - 120.208/390) / (133.946e-6 * 1e5) =
+    # 6.2082 A
     assert z.ripple_at_vmin_peak_A == pytest.approx(6.2082, rel=1e-4)
     # peak inductor current = 20.7973 + 6.2082/2 = 23.9014 A
     assert z.il_peak_A == pytest.approx(23.9014, rel=1e-4)
@@ -98,7 +103,9 @@ def test_capacitor_ripple_current_textbook_form():
     z = size(s)
     vm = math.sqrt(2) * s.vin_rms_min
     io = s.power / s.vout
-    assert z.cap_ripple_rms_A == pytest.approx(io * math.sqrt(16 * s.vout / (3 * math.pi * vm) - 1), rel=1e-9)
+    assert z.cap_ripple_rms_A == pytest.approx(
+        io * math.sqrt(16 * s.vout / (3 * math.pi * vm) - 1), rel=1e-9
+    )
 
 
 pos = dict(allow_nan=False, allow_infinity=False)

@@ -8,6 +8,7 @@ rms, offsets <= 3 codes, gain errors <= 1 % (a calibrated front end, common prac
 load 10..100 %; IEC 61000-4-11 dip and interruption levels at any phase (durations capped
 at ``max_event_cycles`` for bounded campaigns); load steps 10..100 %.
 """
+
 from __future__ import annotations
 
 import math
@@ -25,8 +26,13 @@ RESTART_CYCLES = 20  # the same when the stage had to stop and restart
 SETTLE_S = 0.22  # start-up, soft start and the power-good load connection settle by then
 LINE_MARGIN = 1.03  # lowest line drawn: this much above the brown-out restart level
 # IEC 61000-4-11 test levels (from memory): residual and duration in cycles (50 Hz, 60 Hz)
-IEC_DIPS = [(0.0, 0.5, 0.5), (0.0, 1.0, 1.0), (0.4, 10.0, 12.0), (0.7, 25.0, 30.0),
-            (0.8, 250.0, 300.0)]
+IEC_DIPS = [
+    (0.0, 0.5, 0.5),
+    (0.0, 1.0, 1.0),
+    (0.4, 10.0, 12.0),
+    (0.7, 25.0, 30.0),
+    (0.8, 250.0, 300.0),
+]
 IEC_INTERRUPTION = (0.0, 250.0, 300.0)
 FINITE = dict(allow_nan=False, allow_infinity=False)
 
@@ -76,10 +82,20 @@ class Case:
             cycles = RESTART_CYCLES if restart_expected(prj, self) else RECOVERY_CYCLES
         duration = self.line_back_s() + (cycles + 2) / self.freq_Hz
         harm = tuple(h for h in ((3, self.h3, self.h3_deg), (5, self.h5, self.h5_deg)) if h[1] > 0)
-        return Scenario(duration_s=duration, vrms_V=self.vrms_V, freq_Hz=self.freq_Hz,
-                        load_kind=self.load_kind, load_power_W=p, harmonics=harm, events=events,
-                        noise_counts=self.noise_counts, gain_error=self.gain_error,
-                        offset_counts=self.offset_counts, seed=self.seed, name=name)
+        return Scenario(
+            duration_s=duration,
+            vrms_V=self.vrms_V,
+            freq_Hz=self.freq_Hz,
+            load_kind=self.load_kind,
+            load_power_W=p,
+            harmonics=harm,
+            events=events,
+            noise_counts=self.noise_counts,
+            gain_error=self.gain_error,
+            offset_counts=self.offset_counts,
+            seed=self.seed,
+            name=name,
+        )
 
 
 def restart_expected(prj: Project, c: Case) -> bool:
@@ -108,26 +124,41 @@ def _triple(lo: float, hi: float) -> st.SearchStrategy[tuple[float, float, float
 
 def distortion() -> st.SearchStrategy[dict[str, Any]]:
     """Grid 3rd and 5th harmonics, fraction of the fundamental and phase (deg)."""
-    return st.fixed_dictionaries({"h3": _floats(0.0, 0.04), "h3_deg": _floats(0.0, 360.0),
-                                  "h5": _floats(0.0, 0.03), "h5_deg": _floats(0.0, 360.0)})
+    return st.fixed_dictionaries(
+        {
+            "h3": _floats(0.0, 0.04),
+            "h3_deg": _floats(0.0, 360.0),
+            "h5": _floats(0.0, 0.03),
+            "h5_deg": _floats(0.0, 360.0),
+        }
+    )
 
 
 def sensor_errors() -> st.SearchStrategy[dict[str, Any]]:
     """Noise (codes rms), offsets (codes) and gain errors per channel, and the noise seed."""
-    return st.fixed_dictionaries({"noise_counts": _triple(0.0, 1.5),
-                                  "offset_counts": _triple(-3.0, 3.0),
-                                  "gain_error": _triple(-0.01, 0.01),
-                                  "seed": st.integers(0, 2**32 - 1)})
+    return st.fixed_dictionaries(
+        {
+            "noise_counts": _triple(0.0, 1.5),
+            "offset_counts": _triple(-3.0, 3.0),
+            "gain_error": _triple(-0.01, 0.01),
+            "seed": st.integers(0, 2**32 - 1),
+        }
+    )
 
 
 def loads() -> st.SearchStrategy[dict[str, Any]]:
     """Load kind and power as a fraction of rating."""
-    return st.fixed_dictionaries({"load_kind": st.sampled_from(["resistive", "constant_power"]),
-                                  "load_frac": _floats(0.1, 1.0)})
+    return st.fixed_dictionaries(
+        {
+            "load_kind": st.sampled_from(["resistive", "constant_power"]),
+            "load_frac": _floats(0.1, 1.0),
+        }
+    )
 
 
 def dips(freq_Hz: float, max_cycles: float) -> st.SearchStrategy[dict[str, Any]]:
     """An IEC 61000-4-11 dip or interruption (the 50 Hz or 60 Hz duration of its level)."""
+
     def level(lv: tuple[float, float, float]) -> dict[str, Any]:
         cycles = lv[1] if freq_Hz < 55.0 else lv[2]
         return {"event": "dip", "residual": lv[0], "cycles": min(cycles, max_cycles)}
@@ -147,10 +178,14 @@ def events(freq_Hz: float, max_cycles: float) -> st.SearchStrategy[dict[str, Any
     return st.builds(lambda e, deg: {**e, "event_deg": deg}, kind, _floats(0.0, 360.0))
 
 
-def cases(max_event_cycles: float = 12.0, vrms_range: tuple[float, float] = (85.0, 265.0),
-          freq_range: tuple[float, float] = (45.0, 66.0)) -> st.SearchStrategy[Case]:
+def cases(
+    max_event_cycles: float = 12.0,
+    vrms_range: tuple[float, float] = (85.0, 265.0),
+    freq_range: tuple[float, float] = (45.0, 66.0),
+) -> st.SearchStrategy[Case]:
     """Whole cases: a line over ``vrms_range`` (Vrms) and ``freq_range`` (Hz), then the
     other pieces joined with ``st.builds``."""
+
     def around(line: tuple[float, float]) -> st.SearchStrategy[Case]:
         vrms, f = line
 
@@ -160,15 +195,18 @@ def cases(max_event_cycles: float = 12.0, vrms_range: tuple[float, float] = (85.
                 kw.update(part)
             return Case(vrms_V=vrms, freq_Hz=f, **kw)
 
-        return st.builds(join, distortion(), sensor_errors(), loads(),
-                         events(f, max_event_cycles))
+        return st.builds(join, distortion(), sensor_errors(), loads(), events(f, max_event_cycles))
 
     return st.tuples(_floats(*vrms_range), _floats(*freq_range)).flatmap(around)
 
 
-def draw_cases(n: int, seed: int, max_event_cycles: float = 12.0,
-               vrms_range: tuple[float, float] = (85.0, 265.0),
-               freq_range: tuple[float, float] = (45.0, 66.0)) -> list[Case]:
+def draw_cases(
+    n: int,
+    seed: int,
+    max_event_cycles: float = 12.0,
+    vrms_range: tuple[float, float] = (85.0, 265.0),
+    freq_range: tuple[float, float] = (45.0, 66.0),
+) -> list[Case]:
     """``n`` distinct cases drawn by hypothesis, reproducibly from ``seed`` (eight cases per
     hypothesis example, so each example stays within hypothesis's size budget)."""
     from hypothesis import seed as hseed
@@ -180,8 +218,13 @@ def draw_cases(n: int, seed: int, max_event_cycles: float = 12.0,
 
     # hypothesis opens with its simplest example (the same case drawn over and over, which
     # the de-duplication drops): ask for a few more examples than the count alone needs
-    @settings(max_examples=n // group + 10, database=None, phases=[Phase.generate],
-              deadline=None, suppress_health_check=list(HealthCheck))
+    @settings(
+        max_examples=n // group + 10,
+        database=None,
+        phases=[Phase.generate],
+        deadline=None,
+        suppress_health_check=list(HealthCheck),
+    )
     @given(st.data())
     def collect(data: st.DataObject) -> None:
         for _ in range(group):

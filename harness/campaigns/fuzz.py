@@ -3,6 +3,7 @@ loop runs them in lockstep batches, every lane is checked against the invariants
 (``campaigns.invariants``), and failing cases are shrunk (batched, one simplified parameter
 per lane) and saved as scenario files.
 """
+
 from __future__ import annotations
 
 import multiprocessing as mp
@@ -37,9 +38,13 @@ def check(prj: Project, res: RunResult, k: int, c: Case | Scenario) -> Verdict:
     return Verdict(c, failed, figures)
 
 
-def run_cases(prj: Project, cases: list, model: str = "switching", built: Any = None) -> list[Verdict]:
+def run_cases(
+    prj: Project, cases: list, model: str = "switching", built: Any = None
+) -> list[Verdict]:
     """Run cases (or scenarios) in one lockstep batch and check each."""
-    scns = [c.to_scenario(prj, f"case{k}") if isinstance(c, Case) else c for k, c in enumerate(cases)]
+    scns = [
+        c.to_scenario(prj, f"case{k}") if isinstance(c, Case) else c for k, c in enumerate(cases)
+    ]
     res = run(prj, scns, model=model, progress=False, built=built)
     return [check(prj, res, k, c) for k, c in enumerate(cases)]
 
@@ -49,11 +54,24 @@ def _simpler(prj: Project, c: Case) -> list[Case]:
     spec = prj.config.spec
     cands = []
     z3 = (0.0, 0.0, 0.0)
-    for name, simple in (("noise_counts", z3), ("offset_counts", z3), ("gain_error", z3), ("h3", 0.0), ("h5", 0.0),
-                         ("load_kind", "resistive"), ("event_deg", 90.0), ("event_deg", 0.0), ("seed", 0),
-                         ("freq_Hz", spec.line_freq), ("vrms_V", spec.vin_rms_nominal), ("load_frac", 1.0),
-                         ("load_frac", round(c.load_frac, 1)), ("vrms_V", round(c.vrms_V)),
-                         ("freq_Hz", round(c.freq_Hz)), ("event_deg", round(c.event_deg / 15.0) * 15.0)):
+    for name, simple in (
+        ("noise_counts", z3),
+        ("offset_counts", z3),
+        ("gain_error", z3),
+        ("h3", 0.0),
+        ("h5", 0.0),
+        ("load_kind", "resistive"),
+        ("event_deg", 90.0),
+        ("event_deg", 0.0),
+        ("seed", 0),
+        ("freq_Hz", spec.line_freq),
+        ("vrms_V", spec.vin_rms_nominal),
+        ("load_frac", 1.0),
+        ("load_frac", round(c.load_frac, 1)),
+        ("vrms_V", round(c.vrms_V)),
+        ("freq_Hz", round(c.freq_Hz)),
+        ("event_deg", round(c.event_deg / 15.0) * 15.0),
+    ):
         if getattr(c, name) != simple:
             cands.append(replace(c, **{name: simple}))
     if c.event == "dip" and c.cycles > 0.5:
@@ -105,27 +123,46 @@ class CampaignResult:
         return all(v.ok for v in self.verdicts)
 
 
-def campaign(prj: Project, n: int, seed: int = 0, workers: int = 1, batch: int = 128, out_dir=None,
-             max_event_cycles: float = 12.0, do_shrink: bool = True, log=print, built=None) -> CampaignResult:
+def campaign(
+    prj: Project,
+    n: int,
+    seed: int = 0,
+    workers: int = 1,
+    batch: int = 128,
+    out_dir=None,
+    max_event_cycles: float = 12.0,
+    do_shrink: bool = True,
+    log=print,
+    built=None,
+) -> CampaignResult:
     t0 = time.perf_counter()
     vrms_range, freq_range = line_ranges(prj)
     cases = draw_cases(n, seed, max_event_cycles, vrms_range, freq_range)
-    chunks = [cases[i:i + batch] for i in range(0, len(cases), batch)]
+    chunks = [cases[i : i + batch] for i in range(0, len(cases), batch)]
     verdicts: list[Verdict] = []
-    log(f"fuzz: {n} cases in {len(chunks)} batch(es) of <= {batch}, {workers} worker(s), seed {seed}; line "
-        f"{vrms_range[0]:.1f}..{vrms_range[1]:.1f} Vrms, {freq_range[0]:g}..{freq_range[1]:g} Hz")
+    log(
+        f"fuzz: {n} cases in {len(chunks)} batch(es) of <= {batch}, {workers} worker(s), seed "
+        f"{seed}; line "
+        f"{vrms_range[0]:.1f}..{vrms_range[1]:.1f} Vrms, {freq_range[0]:g}..{freq_range[1]:g} Hz"
+    )
     if workers > 1 and len(chunks) > 1:
         ctx = mp.get_context("fork")
         with ctx.Pool(workers) as pool:
             for k, vs in enumerate(pool.imap(_worker, [(prj.config, ch) for ch in chunks])):
                 verdicts += vs
-                log(f"  batch {k + 1}/{len(chunks)} done, {sum(not v.ok for v in verdicts)} failing so far, "
-                    f"{time.perf_counter() - t0:.0f} s")
+                log(
+                    f"  batch {k + 1}/{len(chunks)} done, {sum(not v.ok for v in verdicts)} "
+                    "failing so far, "
+                    f"{time.perf_counter() - t0:.0f} s"
+                )
     else:
         for k, ch in enumerate(chunks):
             verdicts += run_cases(prj, ch, built=built)
-            log(f"  batch {k + 1}/{len(chunks)} done, {sum(not v.ok for v in verdicts)} failing so far, "
-                f"{time.perf_counter() - t0:.0f} s")
+            log(
+                f"  batch {k + 1}/{len(chunks)} done, {sum(not v.ok for v in verdicts)} failing "
+                "so far, "
+                f"{time.perf_counter() - t0:.0f} s"
+            )
     saved, shrunk = [], []
     failing = [v for v in verdicts if not v.ok]
     if failing and out_dir is not None:
@@ -136,7 +173,9 @@ def campaign(prj: Project, n: int, seed: int = 0, workers: int = 1, batch: int =
             c = shrink(prj, v.case, inv, log=log) if do_shrink else v.case
             shrunk.append(c)
             path = out / f"fail_{inv}_{seed}_{j}.toml"
-            text = f"# pfcrig fuzz: invariant '{inv}' failed: {v.failed[inv]}\n" + dumps(c.to_scenario(prj, path.stem))
+            text = f"# pfcrig fuzz: invariant '{inv}' failed: {v.failed[inv]}\n" + dumps(
+                c.to_scenario(prj, path.stem)
+            )
             path.write_text(text)
             saved.append(path)
             log(f"  saved {path}")

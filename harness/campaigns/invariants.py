@@ -16,6 +16,7 @@ functions, each returning a message (violated) or ``None`` (held), with its boun
               ZC_SPIKE_LIMIT of the fundamental peak
   sane        no NaN or Inf in any record; supervisor modes change only along allowed edges
 """
+
 from __future__ import annotations
 
 import math
@@ -88,8 +89,10 @@ def legs(ln: Lane) -> str | None:
     per = ln.prj.resolved.pwm_period_counts
     both_slow = int(np.sum(ln.d["shoot_through"] > 0))
     if both_slow or np.any(ln.d["compare"] > per):
-        return (f"{both_slow} periods with both slow-leg switches on, compare max "
-                f"{ln.d['compare'].max():.0f}/{per}")
+        return (
+            f"{both_slow} periods with both slow-leg switches on, compare max "
+            f"{ln.d['compare'].max():.0f}/{per}"
+        )
     return None
 
 
@@ -118,8 +121,10 @@ def ov_oc(ln: Lane) -> str | None:
     if vmax > r.ov_trip_V:
         return f"bus {vmax:.1f} V > ov_trip {r.ov_trip_V:.1f} V"
     if il_ctl > r.oc_trip_A:
-        return (f"inductor {il_ctl:.1f} A > oc_trip {r.oc_trip_A:.1f} A while boosting or "
-                "flowing against the line")
+        return (
+            f"inductor {il_ctl:.1f} A > oc_trip {r.oc_trip_A:.1f} A while boosting or "
+            "flowing against the line"
+        )
     return None
 
 
@@ -163,8 +168,7 @@ def recovery(ln: Lane) -> str | None:
         dev = float(np.max(np.abs(smooth[tail] - spec.vout)) / spec.vout)
         ln.figures["bus_dev_after_bound"] = dev
         if dev > RECOVERY_BAND and msg is None:
-            msg = (f"bus {100 * dev:.1f} % off vout {tm.bound_cycles} cycles after the line "
-                   "returned")
+            msg = f"bus {100 * dev:.1f} % off vout {tm.bound_cycles} cycles after the line returned"
     return msg
 
 
@@ -195,12 +199,20 @@ def sane(ln: Lane) -> str | None:
 
 
 INVARIANTS: dict[str, Callable[[Lane], str | None]] = {
-    "legs": legs, "ov_oc": ov_oc, "chatter": chatter, "recovery": recovery,
-    "zc_spike": zc_spike, "sane": sane,
+    "legs": legs,
+    "ov_oc": ov_oc,
+    "chatter": chatter,
+    "recovery": recovery,
+    "zc_spike": zc_spike,
+    "sane": sane,
 }
-BOUNDS = {"recovery_cycles": RECOVERY_CYCLES, "restart_cycles": RESTART_CYCLES,
-          "recovery_band": RECOVERY_BAND, "zc_spike_limit": ZC_SPIKE_LIMIT,
-          "overshoot_limit": OVERSHOOT_LIMIT}
+BOUNDS = {
+    "recovery_cycles": RECOVERY_CYCLES,
+    "restart_cycles": RESTART_CYCLES,
+    "recovery_band": RECOVERY_BAND,
+    "zc_spike_limit": ZC_SPIKE_LIMIT,
+    "overshoot_limit": OVERSHOOT_LIMIT,
+}
 
 
 def check_lane(prj: Project, scn: Scenario, d: dict[str, np.ndarray]) -> tuple[dict, dict]:

@@ -1,4 +1,5 @@
 """``pfcrig bench``: the closed loop's cost on this machine, measured in one run."""
+
 from __future__ import annotations
 
 import argparse
@@ -13,7 +14,9 @@ from .tables import format_table
 
 
 def register(sub: argparse._SubParsersAction) -> None:
-    q = sub.add_parser("bench", help="measure the step cost, real-time factors and batch throughput here")
+    q = sub.add_parser(
+        "bench", help="measure the step cost, real-time factors and batch throughput here"
+    )
     q.add_argument("--config", help="config to measure (default: the shipped example)")
     q.add_argument("--sizes", default="1,16,256,1024", help="batch sizes (default 1,16,256,1024)")
     q.add_argument("--json", metavar="OUT")
@@ -28,8 +31,12 @@ def bench_cmd(args: argparse.Namespace) -> int:
     out["config"] = cfg
     rows = [(k, "met" if v else "NOT met") for k, v in out["meets"].items()]
     print(format_table(["target", "status"], rows))
-    print(f"bare step {out['bare_step_ns']:.1f} ns; single switching {out['single_switching_rtf']:.4f} x real time; "
-          f"averaged {out['single_averaged_rtf']:.4f} x; best batch {out['best_batch_rate_per_s']:.0f} scenario-periods/s")
+    print(
+        f"bare step {out['bare_step_ns']:.1f} ns; single switching "
+        f"{out['single_switching_rtf']:.4f} x real time; "
+        f"averaged {out['single_averaged_rtf']:.4f} x; best batch "
+        f"{out['best_batch_rate_per_s']:.0f} scenario-periods/s"
+    )
     if args.json:
         write_json(args.json, out)
     return 0

@@ -1,4 +1,5 @@
 """``pfcrig design``: sizing and loop tuning, as tables, JSON or Bode plots."""
+
 from __future__ import annotations
 
 import argparse
@@ -21,7 +22,10 @@ def register(sub: argparse._SubParsersAction) -> None:
 def design(args: argparse.Namespace) -> int:
     prj = load_project(args.config)
     tun = prj.tuning
-    doc = {**prj.sizing.as_dict(), **{f"resolved_{k}": v for k, v in prj.resolved.as_dict().items()}}
+    doc = {
+        **prj.sizing.as_dict(),
+        **{f"resolved_{k}": v for k, v in prj.resolved.as_dict().items()},
+    }
     doc["loops"] = tun.as_dict()
     doc["config_digest"] = prj.config.digest()
     if args.plot:
@@ -31,18 +35,57 @@ def design(args: argparse.Namespace) -> int:
         return 0
     print(f"pfcrig design: {prj.config.source} (digest {prj.config.digest()})\n")
     print("Power stage at vin_rms_min, full power")
-    print(format_table(["quantity", "value", "unit", "formula", "source"],
-                       [(k, f"{v:.4g}", u, f, src) for k, v, u, f, src in prj.sizing.rows()]))
-    print("\nLoops (PI by backward Euler; margins computed on the discrete PI with the plant and delay)")
+    print(
+        format_table(
+            ["quantity", "value", "unit", "formula", "source"],
+            [(k, f"{v:.4g}", u, f, src) for k, v, u, f, src in prj.sizing.rows()],
+        )
+    )
+    print(
+        "\nLoops (PI by backward Euler; margins computed on the discrete PI with the plant and "
+        "delay)"
+    )
     rows = []
     for lp in (tun.current, tun.voltage):
-        rows.append((lp.name.split("_")[0], f"{lp.kp:.5g}", f"{lp.ki:.5g}", lp.units, f"{lp.ts_s * 1e6:.4g}",
-                     f"{lp.delay_s * 1e6:.4g}", f"{lp.target_crossover_Hz:.4g}", f"{lp.crossover_Hz:.4g}",
-                     f"{lp.target_phase_margin_deg:.1f}", f"{lp.phase_margin_deg:.1f}", f"{lp.gain_margin_dB:.1f}"))
-    print(format_table(["loop", "kp", "ki (/s)", "units", "T (us)", "delay (us)", "fc target (Hz)", "fc (Hz)",
-                        "PM target", "PM (deg)", "GM (dB)"], rows))
+        rows.append(
+            (
+                lp.name.split("_")[0],
+                f"{lp.kp:.5g}",
+                f"{lp.ki:.5g}",
+                lp.units,
+                f"{lp.ts_s * 1e6:.4g}",
+                f"{lp.delay_s * 1e6:.4g}",
+                f"{lp.target_crossover_Hz:.4g}",
+                f"{lp.crossover_Hz:.4g}",
+                f"{lp.target_phase_margin_deg:.1f}",
+                f"{lp.phase_margin_deg:.1f}",
+                f"{lp.gain_margin_dB:.1f}",
+            )
+        )
+    print(
+        format_table(
+            [
+                "loop",
+                "kp",
+                "ki (/s)",
+                "units",
+                "T (us)",
+                "delay (us)",
+                "fc target (Hz)",
+                "fc (Hz)",
+                "PM target",
+                "PM (deg)",
+                "GM (dB)",
+            ],
+            rows,
+        )
+    )
     print("\nDerived settings")
-    print(format_table(["setting", "value"], [(k, f"{v:.4g}") for k, v in prj.resolved.as_dict().items()]))
+    print(
+        format_table(
+            ["setting", "value"], [(k, f"{v:.4g}") for k, v in prj.resolved.as_dict().items()]
+        )
+    )
     if args.plot:
         print("\nwrote " + ", ".join(doc["plots"]))
     return 0
@@ -72,8 +115,11 @@ def bode_plots(tun, out_dir: str) -> list[Path]:
         b.set_ylabel("phase (deg)")
         b.set_xlabel("frequency (Hz)")
         kind = lp.name.split("_")[0]
-        a.set_title(f"{kind} loop: crossover {lp.crossover_Hz:.4g} Hz, phase margin {lp.phase_margin_deg:.1f} deg, "
-                    f"gain margin {lp.gain_margin_dB:.1f} dB")
+        a.set_title(
+            f"{kind} loop: crossover {lp.crossover_Hz:.4g} Hz, phase margin "
+            f"{lp.phase_margin_deg:.1f} deg, "
+            f"gain margin {lp.gain_margin_dB:.1f} dB"
+        )
         fig.tight_layout()
         paths.append(out / f"bode_{kind}.png")
         fig.savefig(paths[-1], dpi=110)

@@ -1,4 +1,5 @@
 """``pfcrig fuzz``: a property-based fault campaign in closed loop."""
+
 from __future__ import annotations
 
 import argparse
@@ -17,13 +18,27 @@ from .tables import format_table
 def register(sub: argparse._SubParsersAction) -> None:
     q = sub.add_parser("fuzz", help="property-based fault campaign in closed loop")
     q.add_argument("config")
-    q.add_argument("--examples", type=int, default=200, metavar="N", help="cases to draw (default 200)")
+    q.add_argument(
+        "--examples", type=int, default=200, metavar="N", help="cases to draw (default 200)"
+    )
     q.add_argument("--seed", type=int, default=0, metavar="S")
     q.add_argument("--workers", type=int, default=2, metavar="K", help="processes (default 2)")
-    q.add_argument("--batch", type=int, default=128, metavar="B", help="cases per lockstep batch (default 128)")
-    q.add_argument("--max-event-cycles", type=float, default=12.0, metavar="C",
-                   help="cap on dip/interruption length in line cycles (IEC 61000-4-11 goes to 250/300)")
-    q.add_argument("--out", default="fuzz_failures", metavar="DIR", help="where failing cases are saved as scenarios")
+    q.add_argument(
+        "--batch", type=int, default=128, metavar="B", help="cases per lockstep batch (default 128)"
+    )
+    q.add_argument(
+        "--max-event-cycles",
+        type=float,
+        default=12.0,
+        metavar="C",
+        help="cap on dip/interruption length in line cycles (IEC 61000-4-11 goes to 250/300)",
+    )
+    q.add_argument(
+        "--out",
+        default="fuzz_failures",
+        metavar="DIR",
+        help="where failing cases are saved as scenarios",
+    )
     q.add_argument("--no-shrink", action="store_true", help="save failing cases as drawn")
     q.add_argument("--json", metavar="OUT", help="write the campaign report as JSON")
     q.set_defaults(func=fuzz_cmd)
@@ -32,20 +47,39 @@ def register(sub: argparse._SubParsersAction) -> None:
 def fuzz_cmd(args: argparse.Namespace) -> int:
     prj = load_project(args.config)
     out_dir = Path(args.out)
-    res = fuzz.campaign(prj, args.examples, seed=args.seed, workers=args.workers, batch=args.batch,
-                        out_dir=out_dir, max_event_cycles=args.max_event_cycles, do_shrink=not args.no_shrink,
-                        log=lambda m: print(m, file=sys.stderr))
+    res = fuzz.campaign(
+        prj,
+        args.examples,
+        seed=args.seed,
+        workers=args.workers,
+        batch=args.batch,
+        out_dir=out_dir,
+        max_event_cycles=args.max_event_cycles,
+        do_shrink=not args.no_shrink,
+        log=lambda m: print(m, file=sys.stderr),
+    )
     counts = res.counts()
     rows = [(inv, len(res.verdicts) - counts[inv], counts[inv]) for inv in INVARIANTS]
     print(format_table(["invariant", "held", "violated"], rows))
-    print(f"{len(res.verdicts)} cases, {sum(not v.ok for v in res.verdicts)} failing, {res.wall_s:.1f} s")
+    print(
+        f"{len(res.verdicts)} cases, {sum(not v.ok for v in res.verdicts)} failing, "
+        f"{res.wall_s:.1f} s"
+    )
     for p in res.saved:
         print(f"failing case: {p}  (replay: pfcrig run {args.config} --scenario {p})")
     if args.json:
-        doc = {"cases": len(res.verdicts), "counts": counts, "wall_s": res.wall_s, "seed": args.seed,
-               "bounds": {**BOUNDS, "max_event_cycles": args.max_event_cycles},
-               "failures": [{"failed": v.failed, "case": asdict(v.case), "figures": v.figures}
-                            for v in res.verdicts if not v.ok],
-               "saved": [str(p) for p in res.saved]}
+        doc = {
+            "cases": len(res.verdicts),
+            "counts": counts,
+            "wall_s": res.wall_s,
+            "seed": args.seed,
+            "bounds": {**BOUNDS, "max_event_cycles": args.max_event_cycles},
+            "failures": [
+                {"failed": v.failed, "case": asdict(v.case), "figures": v.figures}
+                for v in res.verdicts
+                if not v.ok
+            ],
+            "saved": [str(p) for p in res.saved],
+        }
         write_json(args.json, doc)
     return 0 if res.ok else 1

@@ -1,4 +1,5 @@
 """``pfcrig generate``: the C sources, optionally the target shell and the cross-compile check."""
+
 from __future__ import annotations
 
 import argparse
@@ -14,12 +15,20 @@ from .tables import format_table
 def register(sub: argparse._SubParsersAction) -> None:
     q = sub.add_parser("generate", help="write the C control code")
     q.add_argument("config")
-    q.add_argument("-o", "--output", required=True, metavar="DIR", help="folder for the .c/.h files")
-    q.add_argument("--check-target", action="store_true",
-                   help="cross-compile for Cortex-M (arm-none-eabi-gcc) and print flash, RAM and state size")
-    q.add_argument("--with-link", action="store_true",
-                   help="also write the target shell (the lockstep link around the step) for a board run by "
-                        "`pfcrig pil --target serial`")
+    q.add_argument(
+        "-o", "--output", required=True, metavar="DIR", help="folder for the .c/.h files"
+    )
+    q.add_argument(
+        "--check-target",
+        action="store_true",
+        help="cross-compile for Cortex-M (arm-none-eabi-gcc) and print flash, RAM and state size",
+    )
+    q.add_argument(
+        "--with-link",
+        action="store_true",
+        help="also write the target shell (the lockstep link around the step) for a board run by "
+        "`pfcrig pil --target serial`",
+    )
     q.set_defaults(func=generate)
 
 
@@ -33,8 +42,11 @@ def generate(args: argparse.Namespace) -> int:
     print(f"wrote {len(paths)} files to {args.output} (config digest {prj.config.digest()})")
     if extra:
         p = prj.config.control.prefix
-        print(f"target shell for `pfcrig pil --target serial`: {', '.join(sorted(extra))}; the board supplies "
-              f"{p}_link_getc, {p}_link_putc, {p}_link_flush and {p}_link_ticks (see {p}_link.h)")
+        print(
+            f"target shell for `pfcrig pil --target serial`: {', '.join(sorted(extra))}; the "
+            "board supplies "
+            f"{p}_link_getc, {p}_link_putc, {p}_link_flush and {p}_link_ticks (see {p}_link.h)"
+        )
     if args.check_target:
         return check_target(prj, files)
     return 0
@@ -42,7 +54,10 @@ def generate(args: argparse.Namespace) -> int:
 
 def check_target(prj: Project, files: dict[str, str]) -> int:
     if not target.available():
-        print("target check: arm-none-eabi-gcc not installed (Debian: gcc-arm-none-eabi); skipped", file=sys.stderr)
+        print(
+            "target check: arm-none-eabi-gcc not installed (Debian: gcc-arm-none-eabi); skipped",
+            file=sys.stderr,
+        )
         return 1
     p = prj.config.control.prefix
     fmt = prj.config.control.number_format
@@ -54,9 +69,33 @@ def check_target(prj: Project, files: dict[str, str]) -> int:
         ok_state = rep.state_B <= target.STATE_LIMIT_B
         # the flash and state targets are for the float build on the Cortex-M4F
         bad |= not (rep.ok() and (t != "cortex-m4f" or fmt != "float32" or (ok_flash and ok_state)))
-        rows.append((t, fmt, rep.flash_B, rep.ram_B, rep.state_B, ", ".join(rep.undefined) or "none",
-                     len(rep.support_calls)))
-    print(format_table(["target", "format", "flash (B)", "static RAM (B)", "sizeof ctrl (B)", "foreign symbols",
-                        "support calls"], rows))
-    print(f"targets for float32 on cortex-m4f: flash <= {target.FLASH_LIMIT_B} B, state <= {target.STATE_LIMIT_B} B")
+        rows.append(
+            (
+                t,
+                fmt,
+                rep.flash_B,
+                rep.ram_B,
+                rep.state_B,
+                ", ".join(rep.undefined) or "none",
+                len(rep.support_calls),
+            )
+        )
+    print(
+        format_table(
+            [
+                "target",
+                "format",
+                "flash (B)",
+                "static RAM (B)",
+                "sizeof ctrl (B)",
+                "foreign symbols",
+                "support calls",
+            ],
+            rows,
+        )
+    )
+    print(
+        f"targets for float32 on cortex-m4f: flash <= {target.FLASH_LIMIT_B} B, state <= "
+        f"{target.STATE_LIMIT_B} B"
+    )
     return 1 if bad else 0

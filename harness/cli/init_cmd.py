@@ -1,4 +1,5 @@
 """``pfcrig init``: a commented example config."""
+
 from __future__ import annotations
 
 import argparse
@@ -21,7 +22,9 @@ def init(args: argparse.Namespace) -> int:
     if target.exists() and not args.force:
         raise ConfigError(f"{target}: exists already (use --force to overwrite)")
     out.mkdir(parents=True, exist_ok=True)
-    text = resources.files("harness").joinpath("data/universal_1k5.toml").read_text(encoding="utf-8")
+    text = (
+        resources.files("harness").joinpath("data/universal_1k5.toml").read_text(encoding="utf-8")
+    )
     target.write_text(text, encoding="utf-8")
     print(f"wrote {target}")
     print(f"next: pfcrig design {target}")

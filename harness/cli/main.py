@@ -1,4 +1,5 @@
 """The ``pfcrig`` command line: the parser and one error path; each command in its module."""
+
 from __future__ import annotations
 
 import argparse
@@ -22,7 +23,7 @@ def build_parser() -> argparse.ArgumentParser:
     p = argparse.ArgumentParser(
         prog="pfcrig",
         description="Totem-pole PFC: size the stage, generate C control firmware, prove it in "
-                    "closed loop.",
+        "closed loop.",
         epilog=CAUTION,
     )
     sub = p.add_subparsers(dest="command", required=True, metavar="COMMAND")

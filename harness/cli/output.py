@@ -1,5 +1,6 @@
 """What the run-like commands share: JSON reports (non-finite floats as null) and the
 scenario a command was given."""
+
 from __future__ import annotations
 
 import json
@@ -28,7 +29,11 @@ def write_json(path: str, doc: Any) -> None:
 
 def scenario_of(args: Any, prj: Project, default_duration_s: float) -> Scenario:
     """The scenario a run-like command was given (or the nominal one), with --duration applied."""
-    scn = load_scenario(args.scenario) if args.scenario else default_for(prj.config.spec, default_duration_s)
+    scn = (
+        load_scenario(args.scenario)
+        if args.scenario
+        else default_for(prj.config.spec, default_duration_s)
+    )
     return replace(scn, duration_s=args.duration) if args.duration else scn
 
 

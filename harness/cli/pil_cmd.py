@@ -1,4 +1,5 @@
 """``pfcrig pil``: the controller on a target over the lockstep link (processor in the loop)."""
+
 from __future__ import annotations
 
 import argparse
@@ -13,33 +14,66 @@ from .output import scenario_of, write_json
 
 
 def register(sub: argparse._SubParsersAction) -> None:
-    q = sub.add_parser("pil", help="run the controller on a target over the lockstep link (processor in the loop)")
+    q = sub.add_parser(
+        "pil", help="run the controller on a target over the lockstep link (processor in the loop)"
+    )
     q.add_argument("config")
-    q.add_argument("--target", choices=TARGETS, default="host",
-                   help="host: a separate process, stdin/stdout as its UART; qemu-m4f: the image cross-compiled "
-                        "for the Cortex-M4F, booted on QEMU's mps2-an386 with its first UART on a pseudo-terminal; "
-                        "serial: a board already running the target shell, on --port")
-    q.add_argument("--port", metavar="PORT",
-                   help="serial device (/dev/ttyUSB0) or pyserial URL (socket://HOST:PORT) for --target serial")
-    q.add_argument("--baud", type=int, default=115200, metavar="N", help="serial bit rate (default 115200, 8N1)")
+    q.add_argument(
+        "--target",
+        choices=TARGETS,
+        default="host",
+        help="host: a separate process, stdin/stdout as its UART; qemu-m4f: the image "
+        "cross-compiled "
+        "for the Cortex-M4F, booted on QEMU's mps2-an386 with its first UART on a pseudo-terminal; "
+        "serial: a board already running the target shell, on --port",
+    )
+    q.add_argument(
+        "--port",
+        metavar="PORT",
+        help="serial device (/dev/ttyUSB0) or pyserial URL (socket://HOST:PORT) for --target "
+        "serial",
+    )
+    q.add_argument(
+        "--baud",
+        type=int,
+        default=115200,
+        metavar="N",
+        help="serial bit rate (default 115200, 8N1)",
+    )
     q.add_argument("--scenario", metavar="FILE")
     q.add_argument("--duration", type=float, metavar="S")
-    q.add_argument("--timeout", type=float, default=2.0, metavar="S", help="answer timeout per frame (s)")
-    q.add_argument("--json", metavar="OUT", help="write the report (partial if the target stops answering)")
+    q.add_argument(
+        "--timeout", type=float, default=2.0, metavar="S", help="answer timeout per frame (s)"
+    )
+    q.add_argument(
+        "--json", metavar="OUT", help="write the report (partial if the target stops answering)"
+    )
     q.set_defaults(func=pil_cmd)
 
 
 def pil_cmd(args: argparse.Namespace) -> int:
     if args.target == "serial" and not args.port:
-        print("pfcrig pil: --target serial needs --port (a device such as /dev/ttyUSB0, or a pyserial URL "
-              "such as socket://127.0.0.1:4000)", file=sys.stderr)
+        print(
+            "pfcrig pil: --target serial needs --port (a device such as /dev/ttyUSB0, or a "
+            "pyserial URL "
+            "such as socket://127.0.0.1:4000)",
+            file=sys.stderr,
+        )
         return 2
     prj = load_project(args.config)
     scn = scenario_of(args, prj, 0.2)
-    pil = run_pil(prj, scn, target=args.target, timeout_s=args.timeout, port=args.port, baud=args.baud)
+    pil = run_pil(
+        prj, scn, target=args.target, timeout_s=args.timeout, port=args.port, baud=args.baud
+    )
     res, stats, wall = pil.result, pil.link_stats, pil.wall_s
-    doc = {"target": args.target, "scenario": scn.name, "periods": res.periods, "link": stats,
-           "wall_s": wall, "real_time_factor": res.periods / prj.config.spec.fsw / wall}
+    doc = {
+        "target": args.target,
+        "scenario": scn.name,
+        "periods": res.periods,
+        "link": stats,
+        "wall_s": wall,
+        "real_time_factor": res.periods / prj.config.spec.fsw / wall,
+    }
     if args.target == "serial":
         doc["port"], doc["baud"] = args.port, args.baud
     code = 0
@@ -53,27 +87,45 @@ def pil_cmd(args: argparse.Namespace) -> int:
         print(report.summary_text(rep))
         ref = run(prj, [scn], progress=False)
         cmp_ = compare_outputs(ref, res)
-        doc["equivalence"] = {"periods": cmp_.periods, "equal": cmp_.equal, "first_difference": cmp_.first_difference,
-                              "final_state_equal": cmp_.final_state_equal}
+        doc["equivalence"] = {
+            "periods": cmp_.periods,
+            "equal": cmp_.equal,
+            "first_difference": cmp_.first_difference,
+            "final_state_equal": cmp_.final_state_equal,
+        }
         if cmp_.equal:
-            print(f"target outputs equal the in-process run for all {cmp_.periods} periods, "
-                  f"and so does the final controller state")
+            print(
+                f"target outputs equal the in-process run for all {cmp_.periods} periods, "
+                f"and so does the final controller state"
+            )
         else:
-            print(f"target differs from the in-process run: {cmp_.first_difference or 'final controller state'}")
+            print(
+                "target differs from the in-process run: "
+                f"{cmp_.first_difference or 'final controller state'}"
+            )
             code = 1
     if pil.cost:
         c = pil.cost
-        doc["cost_on_target"] = {**c, "method": "SysTick read around each step under QEMU -icount shift=0 "
-                                 "(time counts instructions), calibrated at boot against a loop of known "
-                                 "instruction count; ticks of an empty measurement subtracted",
-                                 "float32_limit_instructions": FLOAT32_INSN_LIMIT}
-        print(f"cost on the target: {c['mean']:.0f} instructions per step on average, {c['max']:.0f} at most "
-              f"(min {c['min']:.0f}; resolution {c['resolution']:.0f}) over {c['steps']} steps")
+        doc["cost_on_target"] = {
+            **c,
+            "method": "SysTick read around each step under QEMU -icount shift=0 "
+            "(time counts instructions), calibrated at boot against a loop of known "
+            "instruction count; ticks of an empty measurement subtracted",
+            "float32_limit_instructions": FLOAT32_INSN_LIMIT,
+        }
+        print(
+            f"cost on the target: {c['mean']:.0f} instructions per step on average, "
+            f"{c['max']:.0f} at most "
+            f"(min {c['min']:.0f}; resolution {c['resolution']:.0f}) over {c['steps']} steps"
+        )
     if pil.image:
         doc["image"] = pil.image
         print(f"image: {pil.image['flash_B']} B flash, {pil.image['ram_B']} B RAM (static)")
-    print(f"link: {stats['frames_sent']} frames sent, {stats['retries']} retries, {stats['bad_crc']} bad CRC, "
-          f"{stats['bytes_dropped']} bytes dropped; {doc['real_time_factor']:.3f} x real time")
+    print(
+        f"link: {stats['frames_sent']} frames sent, {stats['retries']} retries, "
+        f"{stats['bad_crc']} bad CRC, "
+        f"{stats['bytes_dropped']} bytes dropped; {doc['real_time_factor']:.3f} x real time"
+    )
     if args.json:
         write_json(args.json, doc)
     return code

@@ -1,4 +1,5 @@
 """``pfcrig run``: the generated C in closed loop against the plant, with its report."""
+
 from __future__ import annotations
 
 import argparse
@@ -11,9 +12,13 @@ from .output import scenario_of, write_json
 
 
 def register(sub: argparse._SubParsersAction) -> None:
-    q = sub.add_parser("run", help="compile the generated C and run it in closed loop against the plant model")
+    q = sub.add_parser(
+        "run", help="compile the generated C and run it in closed loop against the plant model"
+    )
     q.add_argument("config")
-    q.add_argument("--scenario", metavar="FILE", help="scenario TOML (default: nominal line, full load, 0.6 s)")
+    q.add_argument(
+        "--scenario", metavar="FILE", help="scenario TOML (default: nominal line, full load, 0.6 s)"
+    )
     q.add_argument("--model", choices=["switching", "averaged"], default="switching")
     q.add_argument("--duration", type=float, metavar="S", help="override the scenario duration (s)")
     q.add_argument("--json", metavar="OUT", help="write the report as JSON")

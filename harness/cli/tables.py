@@ -1,4 +1,5 @@
 """Plain-text tables for the terminal."""
+
 from __future__ import annotations
 
 
@@ -7,7 +8,7 @@ def format_table(headers: list[str], rows: list[tuple]) -> str:
     widths = [max(len(r[i]) for r in cells) for i in range(len(headers))]
     lines = []
     for n, r in enumerate(cells):
-        lines.append("  ".join(c.ljust(w) for c, w in zip(r, widths)).rstrip())
+        lines.append("  ".join(c.ljust(w) for c, w in zip(r, widths, strict=True)).rstrip())
         if n == 0:
             lines.append("  ".join("-" * w for w in widths))
     return "\n".join(lines)

@@ -11,30 +11,42 @@ the best of three runs;
 (d) the best of (c) over the bare C step rate of (a);
 and the memory per scenario in a batch (bytes).
 """
+
 from __future__ import annotations
 
 import time
 
 import numpy as np
 
-from plant.batch import FIELDS as PLANT_FIELDS
-from plant.kernel import LANE_ROWS, WS_ROWS
-
 from codegen.build import build_project
 from design.project import Project
+from plant.batch import FIELDS as PLANT_FIELDS
+from plant.layout import LANE_ROWS, WS_ROWS
 from plant.sensors import Sensors
 
 from .loop import adc_scaling, run
 from .scenario import Scenario
 
-TARGETS = {"single_switching_rtf": 1.0, "batch256_scenario_s_per_s": 30.0, "best_batch_vs_bare_c_max_ratio": 10.0}
+TARGETS = {
+    "single_switching_rtf": 1.0,
+    "batch256_scenario_s_per_s": 30.0,
+    "best_batch_vs_bare_c_max_ratio": 10.0,
+}
 
 
 def _scenarios(prj: Project, n: int, duration: float) -> list[Scenario]:
     spec = prj.config.spec
-    return [Scenario(duration_s=duration, vrms_V=spec.vin_rms_nominal * (0.9 + 0.2 * k / max(n - 1, 1)),
-                     freq_Hz=spec.line_freq, load_kind="resistive", load_power_W=spec.power, seed=k)
-            for k in range(n)]
+    return [
+        Scenario(
+            duration_s=duration,
+            vrms_V=spec.vin_rms_nominal * (0.9 + 0.2 * k / max(n - 1, 1)),
+            freq_Hz=spec.line_freq,
+            load_kind="resistive",
+            load_power_W=spec.power,
+            seed=k,
+        )
+        for k in range(n)
+    ]
 
 
 def bench(prj: Project, sizes=(1, 16, 256, 1024), log=print) -> dict:
@@ -67,7 +79,10 @@ def bench(prj: Project, sizes=(1, 16, 256, 1024), log=print) -> dict:
         rate, r = switching_rate(1, model)
         out[f"single_{model}_rtf"] = rate / fs
         out[f"single_{model}_us_per_period"] = 1e6 / rate
-        log(f"single scenario, {model} model: {rate / fs:.4f} x real time ({1e6 / rate:.1f} us per period)")
+        log(
+            f"single scenario, {model} model: {rate / fs:.4f} x real time ({1e6 / rate:.1f} us "
+            "per period)"
+        )
         if model == "switching":
             rec = r
     # (a) bare step over the recorded inputs of that run
@@ -118,6 +133,7 @@ def bench(prj: Project, sizes=(1, 16, 256, 1024), log=print) -> dict:
         "single_switching_rtf": out["single_switching_rtf"] >= TARGETS["single_switching_rtf"],
         "batch256_scenario_s_per_s": out["batch"].get("256", {}).get("scenario_s_per_s", 0.0)
         >= TARGETS["batch256_scenario_s_per_s"],
-        "best_batch_vs_bare_c_max_ratio": out["best_batch_vs_bare_c_ratio"] <= TARGETS["best_batch_vs_bare_c_max_ratio"],
+        "best_batch_vs_bare_c_max_ratio": out["best_batch_vs_bare_c_ratio"]
+        <= TARGETS["best_batch_vs_bare_c_max_ratio"],
     }
     return out

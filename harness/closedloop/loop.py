@@ -7,6 +7,7 @@ period ``k+1``.  A gate the controller left off does not conduct.  Start-up as i
 practice: bus precharged through the rectifying body diodes to the line peak, load
 connected at power-good, the controller's own soft start in between.
 """
+
 from __future__ import annotations
 
 import mmap
@@ -30,9 +31,29 @@ from .scenario import Scenario
 
 PWM_DTYPE = np.dtype([(f.name, f.dtype) for f in OUTPUT_FIELDS])
 N_PROBES = len(PROBES)
-RECORDED = ("t_s", "vs_V", "vterm_V", "i_avg_A", "i_max_A", "i_min_A", "i_sample_A", "vbus_V", "vbus_sample_V",
-            "compare", "gates", "mode", "faults", "duty", "iref_A", "vref_V", "pcmd_W", "e_in_J", "e_out_J",
-            "e_loss_J", "shoot_through")
+RECORDED = (
+    "t_s",
+    "vs_V",
+    "vterm_V",
+    "i_avg_A",
+    "i_max_A",
+    "i_min_A",
+    "i_sample_A",
+    "vbus_V",
+    "vbus_sample_V",
+    "compare",
+    "gates",
+    "mode",
+    "faults",
+    "duty",
+    "iref_A",
+    "vref_V",
+    "pcmd_W",
+    "e_in_J",
+    "e_out_J",
+    "e_loss_J",
+    "shoot_through",
+)
 
 
 def stage_params(prj: Project) -> StageParams:
@@ -40,18 +61,31 @@ def stage_params(prj: Project) -> StageParams:
     pl = c.plant
     slow = pl.rds_on_slow
     return StageParams(
-        inductance_H=r.inductance_H, capacitance_F=r.capacitance_F, inductor_dcr_ohm=pl.inductor_dcr,
-        capacitor_esr_ohm=pl.capacitor_esr, rds_on_fast_ohm=pl.rds_on_fast, rds_on_slow_ohm=slow,
-        dead_time_s=pl.dead_time, fsw_Hz=c.spec.fsw, period_counts=r.pwm_period_counts,
-        source_resistance_ohm=pl.source_resistance, source_inductance_H=pl.source_inductance,
+        inductance_H=r.inductance_H,
+        capacitance_F=r.capacitance_F,
+        inductor_dcr_ohm=pl.inductor_dcr,
+        capacitor_esr_ohm=pl.capacitor_esr,
+        rds_on_fast_ohm=pl.rds_on_fast,
+        rds_on_slow_ohm=slow,
+        dead_time_s=pl.dead_time,
+        fsw_Hz=c.spec.fsw,
+        period_counts=r.pwm_period_counts,
+        source_resistance_ohm=pl.source_resistance,
+        source_inductance_H=pl.source_inductance,
         inrush_resistance_ohm=pl.inrush_resistance,
     )
 
 
 def adc_scaling(prj: Project) -> AdcScaling:
     r = prj.resolved
-    return AdcScaling(r.adc_full_counts, r.vac_V_per_count, r.vac_offset_counts, r.il_A_per_count,
-                      r.il_offset_counts, r.vbus_V_per_count)
+    return AdcScaling(
+        r.adc_full_counts,
+        r.vac_V_per_count,
+        r.vac_offset_counts,
+        r.il_A_per_count,
+        r.il_offset_counts,
+        r.vbus_V_per_count,
+    )
 
 
 @dataclass
@@ -94,13 +128,19 @@ class Progress:
         eta = (now - self.t0) * (1.0 - frac) / max(frac, 1e-9)
         bar = "#" * int(30 * frac)
         lead, end = ("\r", "") if self.tty else ("", "\n")
-        sys.stderr.write(f"{lead}{self.label} [{bar:<30}] {100 * frac:5.1f} %  eta {eta:5.1f} s{end}")
+        sys.stderr.write(
+            f"{lead}{self.label} [{bar:<30}] {100 * frac:5.1f} %  eta {eta:5.1f} s{end}"
+        )
         sys.stderr.flush()
 
     def close(self) -> None:
         if self.shown:
             lead = "\r" if self.tty else ""
-            sys.stderr.write(f"{lead}{self.label} done in {time.perf_counter() - self.t0:.1f} s" + " " * 30 + "\n")
+            sys.stderr.write(
+                f"{lead}{self.label} done in {time.perf_counter() - self.t0:.1f} s"
+                + " " * 30
+                + "\n"
+            )
 
 
 class Controllers:
@@ -115,10 +155,14 @@ class Controllers:
         self.adc = ffi.new(f"{self.p}_adc_t[{n}]")
         self.pwm = ffi.new(f"{self.p}_pwm_t[{n}]")
         assert ffi.sizeof(f"{self.p}_pwm_t") == PWM_DTYPE.itemsize
-        self.adc_view = np.frombuffer(ffi.buffer(self.adc), dtype=np.uint16).reshape(n, len(ADC_FIELDS))
+        self.adc_view = np.frombuffer(ffi.buffer(self.adc), dtype=np.uint16).reshape(
+            n, len(ADC_FIELDS)
+        )
         self.pwm_view = np.frombuffer(ffi.buffer(self.pwm), dtype=PWM_DTYPE)
         self.probe = ffi.new(f"float[{N_PROBES * n}]")
-        self.probe_view = np.frombuffer(ffi.buffer(self.probe), dtype=np.float32).reshape(n, N_PROBES)
+        self.probe_view = np.frombuffer(ffi.buffer(self.probe), dtype=np.float32).reshape(
+            n, N_PROBES
+        )
         self._batch = getattr(lib, f"{self.p}_batch_step")
         self._probe = getattr(lib, f"{self.p}_batch_probe")
         init = getattr(lib, f"{self.p}_init")
@@ -172,8 +216,14 @@ def zeros_mapped(shape, dtype) -> np.ndarray:
     return np.frombuffer(mm, dtype=dtype).reshape(shape)
 
 
-def run(prj: Project, scenarios: list[Scenario], model: str = "switching", progress: bool = True,
-        built=None, controllers=None) -> RunResult:
+def run(
+    prj: Project,
+    scenarios: list[Scenario],
+    model: str = "switching",
+    progress: bool = True,
+    built=None,
+    controllers=None,
+) -> RunResult:
     """Run all ``scenarios`` in lockstep (one lane each) for the longest duration.
 
     ``controllers``: something with ``step(codes) -> outputs`` and ``internals()`` in place
@@ -185,13 +235,23 @@ def run(prj: Project, scenarios: list[Scenario], model: str = "switching", progr
     T = sp.period_s
     spec = prj.config.spec
     periods = int(round(max(s.duration_s for s in scenarios) / T))
-    grid = Grid(n, [s.vrms_V for s in scenarios], [s.freq_Hz for s in scenarios], [s.phase_deg for s in scenarios],
-                dc_V=[s.dc_V for s in scenarios], harmonics_per_lane=[s.harmonics for s in scenarios])
+    grid = Grid(
+        n,
+        [s.vrms_V for s in scenarios],
+        [s.freq_Hz for s in scenarios],
+        [s.phase_deg for s in scenarios],
+        dc_V=[s.dc_V for s in scenarios],
+        harmonics_per_lane=[s.harmonics for s in scenarios],
+    )
     load = Load(n, [s.load_kind for s in scenarios], [s.load_power_W for s in scenarios], spec.vout)
-    sens = Sensors(adc_scaling(prj), n, seed=[s.seed for s in scenarios],
-                   gain_err=tuple(np.array([s.gain_error[ch] for s in scenarios]) for ch in range(3)),
-                   offset_err=tuple(np.array([s.offset_counts[ch] for s in scenarios]) for ch in range(3)),
-                   noise=tuple(np.array([s.noise_counts[ch] for s in scenarios]) for ch in range(3)))
+    sens = Sensors(
+        adc_scaling(prj),
+        n,
+        seed=[s.seed for s in scenarios],
+        gain_err=tuple(np.array([s.gain_error[ch] for s in scenarios]) for ch in range(3)),
+        offset_err=tuple(np.array([s.offset_counts[ch] for s in scenarios]) for ch in range(3)),
+        noise=tuple(np.array([s.noise_counts[ch] for s in scenarios]) for ch in range(3)),
+    )
     # precharge: the body diodes rectify the line into the bus before any switching
     vpk = np.sqrt(2.0) * np.array([s.vrms_V for s in scenarios]) * 0.98
     plant = Plant(sp, grid, load, sens, 0.0, vpk)
@@ -245,14 +305,21 @@ def run(prj: Project, scenarios: list[Scenario], model: str = "switching", progr
     # views, no copies: a batch's records are large, and fresh memory is slow to fault in
     rec = {name: plant_rec[:periods, :, f] for f, name in enumerate(PLANT_FIELDS)}
     rec["t_s"] = np.broadcast_to((np.arange(periods) * T)[:, None], (periods, n))
-    outputs, applied = pwm_rec[1:periods + 1], pwm_rec[:periods]  # the plant ran period k with outputs k - 1
+    outputs, applied = (
+        pwm_rec[1 : periods + 1],
+        pwm_rec[:periods],
+    )  # the plant ran period k with outputs k - 1
     rec["mode"], rec["faults"] = outputs["mode"], outputs["faults"]
     rec["compare"], rec["gates"] = applied["compare"], applied["gates"]
-    rec["shoot_through"] = ((applied["gates"] & Gate.SLOW_LO) != 0) & ((applied["gates"] & Gate.SLOW_HI) != 0)
+    rec["shoot_through"] = ((applied["gates"] & Gate.SLOW_LO) != 0) & (
+        (applied["gates"] & Gate.SLOW_HI) != 0
+    )
     for f, (name, _, _) in enumerate(PROBES):
         rec[name] = probe_rec[:periods, :, f]  # float32, as the controller computes them
-    result = RunResult(prj, scenarios, model, {name: rec[name] for name in RECORDED}, clock() - t0, periods)
-    result.extras["period_wall_s"] = stamps[:periods + 1] - t0
+    result = RunResult(
+        prj, scenarios, model, {name: rec[name] for name in RECORDED}, clock() - t0, periods
+    )
+    result.extras["period_wall_s"] = stamps[: periods + 1] - t0
     result.extras["record_alloc_s"] = alloc_s
     if local:
         result.extras["final_states"] = [ctl.state(k) for k in range(n)]

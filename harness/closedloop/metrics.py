@@ -11,6 +11,7 @@
   standard: odd 3: 2.30, 5: 1.14, 7: 0.77, 9: 0.40, 11: 0.33, 13: 0.21,
   15..39: 0.15 x 15/h; even 2: 1.08, 4: 0.43, 6: 0.30, 8..40: 0.23 x 8/h.
 """
+
 from __future__ import annotations
 
 import math
@@ -37,7 +38,9 @@ def window_cycles(f_line_Hz: float) -> int:
     return 12 if f_line_Hz > 55.0 else 10
 
 
-def harmonics_rms(x: np.ndarray, fs_Hz: float, f_line_Hz: float, h_max: int = H_MAX) -> tuple[np.ndarray, np.ndarray]:
+def harmonics_rms(
+    x: np.ndarray, fs_Hz: float, f_line_Hz: float, h_max: int = H_MAX
+) -> tuple[np.ndarray, np.ndarray]:
     """(rms amplitudes, phases in rad) of harmonics 1..h_max of ``x`` sampled at ``fs_Hz``.
 
     ``x`` should span a whole number of line cycles (the window)."""
@@ -120,7 +123,9 @@ def half_cycle_mean(x: np.ndarray, fs_Hz: float, f_line_Hz: float) -> np.ndarray
     return out
 
 
-def step_response(t_s: np.ndarray, v: np.ndarray, t_step: float, ref: float, band: float = 0.02) -> dict:
+def step_response(
+    t_s: np.ndarray, v: np.ndarray, t_step: float, ref: float, band: float = 0.02
+) -> dict:
     """Over/undershoot (V) and settling time (s, into +-band x ref for good) after ``t_step``."""
     after = t_s >= t_step
     if not after.any():
@@ -134,5 +139,8 @@ def step_response(t_s: np.ndarray, v: np.ndarray, t_step: float, ref: float, ban
     else:
         last = np.nonzero(out)[0][-1]
         settle = float(tt[last + 1] - t_step)
-    return {"overshoot_V": float(max(vv.max() - ref, 0.0)), "undershoot_V": float(max(ref - vv.min(), 0.0)),
-            "settling_s": settle}
+    return {
+        "overshoot_V": float(max(vv.max() - ref, 0.0)),
+        "undershoot_V": float(max(ref - vv.min(), 0.0)),
+        "settling_s": settle,
+    }

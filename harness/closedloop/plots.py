@@ -1,5 +1,6 @@
 """PNG plots of a closed-loop run: line voltage and current, bus/duty/mode, harmonics
 against the IEC 61000-3-2 Class A limits."""
+
 from __future__ import annotations
 
 from pathlib import Path
@@ -30,9 +31,22 @@ def write_plots(res: RunResult, rep: dict, out_dir: str | Path, k: int = 0) -> l
     ax.set_xlabel("time (ms)")
     ax.set_ylabel("line voltage (V)", color="tab:blue")
     ax2 = ax.twinx()
-    ax2.plot(t[sel] * 1e3, d["i_max_A"][sel], color="tab:orange", lw=0.5, alpha=0.5, label="inductor current envelope")
+    ax2.plot(
+        t[sel] * 1e3,
+        d["i_max_A"][sel],
+        color="tab:orange",
+        lw=0.5,
+        alpha=0.5,
+        label="inductor current envelope",
+    )
     ax2.plot(t[sel] * 1e3, d["i_min_A"][sel], color="tab:orange", lw=0.5, alpha=0.5)
-    ax2.plot(t[sel] * 1e3, d["i_avg_A"][sel], color="tab:red", lw=1.2, label="line current (period average)")
+    ax2.plot(
+        t[sel] * 1e3,
+        d["i_avg_A"][sel],
+        color="tab:red",
+        lw=1.2,
+        label="line current (period average)",
+    )
     ax2.set_ylabel("current (A)", color="tab:red")
     ax.set_title(f"line voltage and current: PF {rep['pf']:.4f}, THD {100 * rep['thd_i']:.2f} %")
     fig.legend(loc="upper right", fontsize=8)
@@ -69,7 +83,10 @@ def write_plots(res: RunResult, rep: dict, out_dir: str | Path, k: int = 0) -> l
     ax.set_yscale("log")
     ax.set_xlabel("harmonic order")
     ax.set_ylabel("A rms")
-    ax.set_title("current harmonics over the IEC 61000-4-7 window: Class A " + ("pass" if rep["class_a_pass"] else "FAIL"))
+    ax.set_title(
+        "current harmonics over the IEC 61000-4-7 window: Class A "
+        + ("pass" if rep["class_a_pass"] else "FAIL")
+    )
     ax.legend(fontsize=8)
     fig.tight_layout()
     paths.append(out / "harmonics.png")

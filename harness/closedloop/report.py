@@ -1,4 +1,5 @@
 """Reports of a closed-loop run: JSON figures, terminal summary, CSV, PNG plots."""
+
 from __future__ import annotations
 
 import csv
@@ -51,15 +52,33 @@ def lane_report(res: RunResult, k: int = 0) -> dict:
     v_pk = float(np.mean(np.abs(vs_w[near_peak])))
     rip_formula = boost_ripple_pp(v_pk, bus["vbus_mean_V"], prj.resolved.inductance_H, fs)
     c_bus = prj.resolved.capacitance_F
-    bus_formula = p_out / (2 * math.pi * f_line * c_bus * bus["vbus_mean_V"]) if bus["vbus_mean_V"] > 0 else math.nan
+    bus_formula = (
+        p_out / (2 * math.pi * f_line * c_bus * bus["vbus_mean_V"])
+        if bus["vbus_mean_V"] > 0
+        else math.nan
+    )
     modes = d["mode"].astype(int)
     faults_seen = int(np.bitwise_or.reduce(d["faults"].astype(int)))
     il_abs = np.maximum(np.abs(d["i_max_A"]), np.abs(d["i_min_A"]))
     rep = {
         "scenario": scn.name,
         "model": res.model,
-        **{k2: pq[k2] for k2 in ("pf", "thd_i", "thd_i_h40", "displacement_factor", "harmonics_A", "class_a_pass",
-                                  "class_a_worst_h", "class_a_worst_ratio", "i_rms_A", "v_rms_V", "p_in_W")},
+        **{
+            k2: pq[k2]
+            for k2 in (
+                "pf",
+                "thd_i",
+                "thd_i_h40",
+                "displacement_factor",
+                "harmonics_A",
+                "class_a_pass",
+                "class_a_worst_h",
+                "class_a_worst_ratio",
+                "i_rms_A",
+                "v_rms_V",
+                "p_in_W",
+            )
+        },
         **bus,
         "vbus_ref_V": spec.vout,
         "il_peak_A": float(il_abs[w].max()),
@@ -68,8 +87,9 @@ def lane_report(res: RunResult, k: int = 0) -> dict:
         "il_ripple_at_peak_A": float(np.mean(rip)) if len(rip) else math.nan,
         "il_ripple_formula_A": rip_formula,
         "vbus_ripple_formula_V": bus_formula,
-        "zc_spike_ratio": metrics.zero_crossing_spike(d["vs_V"][w], d["i_avg_A"][w], 2.0 * prj.resolved.zc_blank_V,
-                                                      pq["harmonics_A"][0]),
+        "zc_spike_ratio": metrics.zero_crossing_spike(
+            d["vs_V"][w], d["i_avg_A"][w], 2.0 * prj.resolved.zc_blank_V, pq["harmonics_A"][0]
+        ),
         "window_s": [float(t[w][0]), float(t[w][-1] + 1.0 / fs)],
         "whole_run": {
             "duration_s": float(t[-1] + 1.0 / fs),
@@ -98,34 +118,65 @@ def lane_report(res: RunResult, k: int = 0) -> dict:
 
 
 def summary_text(rep: dict) -> str:
-    ok = "pass" if rep["class_a_pass"] else f"FAIL (h{rep['class_a_worst_h']} at {rep['class_a_worst_ratio']:.2f} x limit)"
+    ok = (
+        "pass"
+        if rep["class_a_pass"]
+        else f"FAIL (h{rep['class_a_worst_h']} at {rep['class_a_worst_ratio']:.2f} x limit)"
+    )
     wr = rep["whole_run"]
     lines = [
-        f"scenario {rep['scenario']} ({rep['model']} model), window {rep['window_s'][0]:.3f}..{rep['window_s'][1]:.3f} s",
-        f"  PF {rep['pf']:.4f}   THD(i) {100 * rep['thd_i']:.2f} %  (h<=40: {100 * rep['thd_i_h40']:.2f} %)   "
+        f"scenario {rep['scenario']} ({rep['model']} model), window "
+        f"{rep['window_s'][0]:.3f}..{rep['window_s'][1]:.3f} s",
+        f"  PF {rep['pf']:.4f}   THD(i) {100 * rep['thd_i']:.2f} %  (h<=40: "
+        f"{100 * rep['thd_i_h40']:.2f} %)   "
         f"displacement {rep['displacement_factor']:.4f}   Class A {ok}",
         f"  line {rep['v_rms_V']:.1f} V rms, {rep['i_rms_A']:.2f} A rms, {rep['p_in_W']:.0f} W in, "
-        f"{rep['p_out_W']:.0f} W out, efficiency {100 * rep['efficiency']:.2f} % (conduction losses only)",
-        f"  bus mean {rep['vbus_mean_V']:.2f} V (ref {rep['vbus_ref_V']:.0f}), ripple {rep['vbus_ripple_pp_V']:.2f} V pp "
-        f"(formula {rep['vbus_ripple_formula_V']:.2f}), min {rep['vbus_min_V']:.1f}, max {rep['vbus_max_V']:.1f} V",
-        f"  inductor peak {rep['il_peak_A']:.2f} A, ripple at line peak {rep['il_ripple_at_peak_A']:.2f} A pp "
-        f"(formula {rep['il_ripple_formula_A']:.2f}), zero-crossing spike {100 * rep['zc_spike_ratio']:.1f} % of peak",
-        f"  whole run: bus {wr['vbus_min_V']:.1f}..{wr['vbus_max_V']:.1f} V, current peak {wr['il_peak_A']:.2f} A, "
+        f"{rep['p_out_W']:.0f} W out, efficiency {100 * rep['efficiency']:.2f} % (conduction "
+        "losses only)",
+        f"  bus mean {rep['vbus_mean_V']:.2f} V (ref {rep['vbus_ref_V']:.0f}), ripple "
+        f"{rep['vbus_ripple_pp_V']:.2f} V pp "
+        f"(formula {rep['vbus_ripple_formula_V']:.2f}), min {rep['vbus_min_V']:.1f}, max "
+        f"{rep['vbus_max_V']:.1f} V",
+        f"  inductor peak {rep['il_peak_A']:.2f} A, ripple at line peak "
+        f"{rep['il_ripple_at_peak_A']:.2f} A pp "
+        f"(formula {rep['il_ripple_formula_A']:.2f}), zero-crossing spike "
+        f"{100 * rep['zc_spike_ratio']:.1f} % of peak",
+        f"  whole run: bus {wr['vbus_min_V']:.1f}..{wr['vbus_max_V']:.1f} V, current peak "
+        f"{wr['il_peak_A']:.2f} A, "
         f"final mode {wr['final_mode']}, faults seen: {', '.join(wr['faults_seen']) or 'none'}",
     ]
     for ev in rep["events"]:
         extra = {k: v for k, v in ev.items() if k not in ("t_s", "kind")}
-        lines.append(f"  event {ev['kind']} at {ev['t_s']:.3f} s: " + ", ".join(
-            f"{k} {v:.4g}" if isinstance(v, float) else f"{k} {v}" for k, v in extra.items()))
+        lines.append(
+            f"  event {ev['kind']} at {ev['t_s']:.3f} s: "
+            + ", ".join(
+                f"{k} {v:.4g}" if isinstance(v, float) else f"{k} {v}" for k, v in extra.items()
+            )
+        )
     return "\n".join(lines)
 
 
 def write_csv(res: RunResult, path: str | Path, k: int = 0) -> None:
-    cols = ["t_s", "vs_V", "vterm_V", "i_avg_A", "i_max_A", "i_min_A", "vbus_V", "duty", "iref_A", "vref_V", "pcmd_W",
-            "compare", "gates", "mode", "faults"]
+    cols = [
+        "t_s",
+        "vs_V",
+        "vterm_V",
+        "i_avg_A",
+        "i_max_A",
+        "i_min_A",
+        "vbus_V",
+        "duty",
+        "iref_A",
+        "vref_V",
+        "pcmd_W",
+        "compare",
+        "gates",
+        "mode",
+        "faults",
+    ]
     d = res.lane(k)
     with open(path, "w", newline="") as fh:
         wr = csv.writer(fh)
         wr.writerow(cols)
-        for row in zip(*(d[c] for c in cols)):
+        for row in zip(*(d[c] for c in cols), strict=True):
             wr.writerow([f"{x:.6g}" for x in row])

@@ -23,6 +23,7 @@ residual = 0.0                 # freq: hz; phase_jump: deg; vrms: vrms (V)
 cycles = 1.0
 ```
 """
+
 from __future__ import annotations
 
 import math
@@ -105,21 +106,31 @@ def from_dict(d: dict, src: str = "<scenario>") -> Scenario:
         raise ConfigError(f"{src}: duration: missing (s)")
     kind = load.get("kind", "resistive")
     if kind not in ("resistive", "constant_power"):
-        raise ConfigError(f"{src}: [load] kind = {kind!r}: allowed values are resistive, constant_power")
+        raise ConfigError(
+            f"{src}: [load] kind = {kind!r}: allowed values are resistive, constant_power"
+        )
     harm = []
     for h in grid.get("harmonics", []):
         if not isinstance(h, list) or len(h) != 3:
-            raise ConfigError(f"{src}: [grid] harmonics entry {h!r}: expected [order, fraction, phase_deg]")
-        harm.append((int(_num(src, "[grid] harmonics order", h[0], 2, 50)),
-                     _num(src, "[grid] harmonics fraction", h[1], 0.0, 0.5),
-                     _num(src, "[grid] harmonics phase_deg", h[2], -360.0, 360.0)))
+            raise ConfigError(
+                f"{src}: [grid] harmonics entry {h!r}: expected [order, fraction, phase_deg]"
+            )
+        harm.append(
+            (
+                int(_num(src, "[grid] harmonics order", h[0], 2, 50)),
+                _num(src, "[grid] harmonics fraction", h[1], 0.0, 0.5),
+                _num(src, "[grid] harmonics phase_deg", h[2], -360.0, 360.0),
+            )
+        )
     events = []
     for n, e in enumerate(d.get("event", [])):
         where = f"[[event]] #{n + 1}"
         if not isinstance(e, dict) or "kind" not in e or "t" not in e:
             raise ConfigError(f"{src}: {where}: needs t (s) and kind")
         if e["kind"] not in EVENT_KEYS:
-            raise ConfigError(f"{src}: {where} kind = {e['kind']!r}: allowed values are {', '.join(EVENT_KEYS)}")
+            raise ConfigError(
+                f"{src}: {where} kind = {e['kind']!r}: allowed values are {', '.join(EVENT_KEYS)}"
+            )
         keys = EVENT_KEYS[e["kind"]]
         _known(src, where, {k: v for k, v in e.items() if k not in ("t", "kind")}, list(keys))
         vals = []
@@ -138,9 +149,15 @@ def from_dict(d: dict, src: str = "<scenario>") -> Scenario:
         harmonics=tuple(harm),
         dc_V=_num(src, "[grid] dc", grid.get("dc", 0.0), -1000.0, 1000.0),
         events=tuple(sorted(events, key=lambda ev: ev.t_s)),
-        noise_counts=_triple(src, "[sensors] noise_counts", sens.get("noise_counts", [0, 0, 0]), 0.0, 1000.0),
-        gain_error=_triple(src, "[sensors] gain_error", sens.get("gain_error", [0, 0, 0]), -0.5, 0.5),
-        offset_counts=_triple(src, "[sensors] offset_counts", sens.get("offset_counts", [0, 0, 0]), -65535.0, 65535.0),
+        noise_counts=_triple(
+            src, "[sensors] noise_counts", sens.get("noise_counts", [0, 0, 0]), 0.0, 1000.0
+        ),
+        gain_error=_triple(
+            src, "[sensors] gain_error", sens.get("gain_error", [0, 0, 0]), -0.5, 0.5
+        ),
+        offset_counts=_triple(
+            src, "[sensors] offset_counts", sens.get("offset_counts", [0, 0, 0]), -65535.0, 65535.0
+        ),
         seed=int(_num(src, "[sensors] seed", sens.get("seed", 0), 0, 2**63)),
         name=str(d.get("name", Path(src).stem)),
     )
@@ -163,13 +180,35 @@ def _fmt(x: float) -> str:
 
 def dumps(s: Scenario) -> str:
     """TOML text that ``load`` reads back to an equal Scenario (floats by repr: exact)."""
-    lines = [f'name = "{s.name}"', f"duration = {_fmt(s.duration_s)}", "", "[grid]",
-             f"vrms = {_fmt(s.vrms_V)}", f"freq = {_fmt(s.freq_Hz)}", f"phase_deg = {_fmt(s.phase_deg)}",
-             f"dc = {_fmt(s.dc_V)}"]
+    lines = [
+        f'name = "{s.name}"',
+        f"duration = {_fmt(s.duration_s)}",
+        "",
+        "[grid]",
+        f"vrms = {_fmt(s.vrms_V)}",
+        f"freq = {_fmt(s.freq_Hz)}",
+        f"phase_deg = {_fmt(s.phase_deg)}",
+        f"dc = {_fmt(s.dc_V)}",
+    ]
     if s.harmonics:
-        lines.append("harmonics = [" + ", ".join(f"[{k}, {_fmt(a)}, {_fmt(p)}]" for k, a, p in s.harmonics) + "]")
-    lines += ["", "[load]", f'kind = "{s.load_kind}"', f"power = {_fmt(s.load_power_W)}", "", "[sensors]"]
-    for key, v in (("noise_counts", s.noise_counts), ("gain_error", s.gain_error), ("offset_counts", s.offset_counts)):
+        lines.append(
+            "harmonics = ["
+            + ", ".join(f"[{k}, {_fmt(a)}, {_fmt(p)}]" for k, a, p in s.harmonics)
+            + "]"
+        )
+    lines += [
+        "",
+        "[load]",
+        f'kind = "{s.load_kind}"',
+        f"power = {_fmt(s.load_power_W)}",
+        "",
+        "[sensors]",
+    ]
+    for key, v in (
+        ("noise_counts", s.noise_counts),
+        ("gain_error", s.gain_error),
+        ("offset_counts", s.offset_counts),
+    ):
         lines.append(f"{key} = [{', '.join(_fmt(x) for x in v)}]")
     lines.append(f"seed = {s.seed}")
     for e in s.events:
@@ -180,5 +219,11 @@ def dumps(s: Scenario) -> str:
 
 def default_for(spec, duration_s: float = 0.6) -> Scenario:
     """Nominal line, full resistive load."""
-    return Scenario(duration_s=duration_s, vrms_V=spec.vin_rms_nominal, freq_Hz=spec.line_freq,
-                    load_kind="resistive", load_power_W=spec.power, name="nominal_full_load")
+    return Scenario(
+        duration_s=duration_s,
+        vrms_V=spec.vin_rms_nominal,
+        freq_Hz=spec.line_freq,
+        load_kind="resistive",
+        load_power_W=spec.power,
+        name="nominal_full_load",
+    )

@@ -25,6 +25,7 @@ reports what it dropped, so corruption, truncation, duplication and reordering a
 detected: a frame is accepted only whole, with a good CRC, and the host checks that each
 answer carries the sequence number and type it expects.
 """
+
 from __future__ import annotations
 
 import struct
@@ -103,7 +104,7 @@ class Decoder:
                 continue
             if len(self.buf) < 8 + n:
                 return out
-            body = bytes(self.buf[2:6 + n])
+            body = bytes(self.buf[2 : 6 + n])
             (crc,) = struct.unpack_from("<H", self.buf, 6 + n)
             if crc != crc16(body):
                 self.bad_crc += 1
@@ -142,8 +143,13 @@ def parse_hello(payload: bytes) -> Hello:
     if len(payload) < end:
         raise LinkError(f"HELLO_ACK of {len(payload)} bytes is too short")
     version, fmt, size = struct.unpack_from("<BBH", payload, 0)
-    return Hello(version, FORMAT_NAMES.get(fmt, f"unknown format {fmt}"), size,
-                 payload[4:end].decode("ascii", "replace"), payload[end:].decode("ascii", "replace"))
+    return Hello(
+        version,
+        FORMAT_NAMES.get(fmt, f"unknown format {fmt}"),
+        size,
+        payload[4:end].decode("ascii", "replace"),
+        payload[end:].decode("ascii", "replace"),
+    )
 
 
 @dataclass(frozen=True)
@@ -165,9 +171,15 @@ class Cost:
             return None
         per_tick = self.calib_instructions / self.calib_ticks
         net = lambda ticks: max(ticks - self.tick_empty, 0) * per_tick  # noqa: E731
-        return {"steps": self.steps, "mean": (self.tick_sum / self.steps - self.tick_empty) * per_tick,
-                "max": net(self.tick_max), "min": net(self.tick_min), "instructions_per_tick": per_tick,
-                "resolution": per_tick, "empty_measurement_ticks": self.tick_empty}
+        return {
+            "steps": self.steps,
+            "mean": (self.tick_sum / self.steps - self.tick_empty) * per_tick,
+            "max": net(self.tick_max),
+            "min": net(self.tick_min),
+            "instructions_per_tick": per_tick,
+            "resolution": per_tick,
+            "empty_measurement_ticks": self.tick_empty,
+        }
 
 
 def parse_cost(payload: bytes) -> Cost:
@@ -188,7 +200,13 @@ class Session:
         self.seq = 0
         self.dec = Decoder()
         self.pending: list[Frame] = []
-        self.stats = {"frames_sent": 0, "frames_received": 0, "retries": 0, "bytes_dropped": 0, "bad_crc": 0}
+        self.stats = {
+            "frames_sent": 0,
+            "frames_received": 0,
+            "retries": 0,
+            "bytes_dropped": 0,
+            "bad_crc": 0,
+        }
 
     def _receive(self, want_type: int, seq: int) -> Frame:
         import time
@@ -202,9 +220,13 @@ class Session:
                     # an old answer (duplicate or late): not ours, skip it
                     continue
                 if f.ftype == ERROR:
-                    raise LinkError(f"target reported error {f.payload[:1].hex()} for request {seq}")
+                    raise LinkError(
+                        f"target reported error {f.payload[:1].hex()} for request {seq}"
+                    )
                 if f.ftype != want_type:
-                    raise LinkError(f"expected frame type 0x{want_type:02x}, got 0x{f.ftype:02x} (seq {seq})")
+                    raise LinkError(
+                        f"expected frame type 0x{want_type:02x}, got 0x{f.ftype:02x} (seq {seq})"
+                    )
                 return f
             left = deadline - time.monotonic()
             if left <= 0:
@@ -244,8 +266,11 @@ class Session:
             size, off = struct.unpack_from("<HH", f.payload)
             chunk = f.payload[4:]
             if off != len(data) or len(chunk) != min(SNAPSHOT_CHUNK, size - off):
-                raise LinkError(f"SNAPSHOT_ACK for offset {off} with {len(chunk)} bytes, asked offset {len(data)} "
-                                f"of {size}")
+                raise LinkError(
+                    f"SNAPSHOT_ACK for offset {off} with {len(chunk)} bytes, asked offset "
+                    f"{len(data)} "
+                    f"of {size}"
+                )
             data += chunk
             if len(data) >= size:
                 return data

@@ -4,6 +4,7 @@ board behind a serial port; the harness drives it in lockstep through ``targets.
 and compares it with the in-process run period by period.  QEMU's UART is put on a
 pseudo-terminal and read through ``SerialTransport``, the same code a real board uses.
 """
+
 from __future__ import annotations
 
 import os
@@ -32,8 +33,18 @@ FLOAT32_INSN_LIMIT = 1000  # worst-case instructions per step on the Cortex-M4F 
 # -- starting them -----------------------------------------------------------------------
 # -icount shift=0: virtual time advances 1 ns per instruction, so the SysTick the port reads
 # counts instructions (the port calibrates the ratio at boot against a known loop)
-QEMU_CMD = ["qemu-system-arm", "-M", "mps2-an386", "-nographic", "-monitor", "none", "-icount", "shift=0",
-            "-serial", "pty"]
+QEMU_CMD = [
+    "qemu-system-arm",
+    "-M",
+    "mps2-an386",
+    "-nographic",
+    "-monitor",
+    "none",
+    "-icount",
+    "shift=0",
+    "-serial",
+    "pty",
+]
 PTY_LINE = re.compile(rb"char device redirected to (/dev/\S+)")
 
 
@@ -53,8 +64,10 @@ def _qemu_pty(proc: subprocess.Popen, timeout_s: float = 10.0) -> str:
             if not chunk and proc.poll() is not None:
                 break
     stop_process(proc)
-    raise link.LinkError(f"QEMU did not announce its serial pseudo-terminal within {timeout_s:g} s: "
-                         f"{seen.decode(errors='replace').strip()!r}")
+    raise link.LinkError(
+        f"QEMU did not announce its serial pseudo-terminal within {timeout_s:g} s: "
+        f"{seen.decode(errors='replace').strip()!r}"
+    )
 
 
 def open_target(prj: Project, target: str, port: str | None = None, baud: int = 115200):
@@ -62,18 +75,26 @@ def open_target(prj: Project, target: str, port: str | None = None, baud: int = 
     ``host`` (child process), ``qemu-m4f`` (QEMU, its UART on a pseudo-terminal through
     pyserial) or ``serial`` (a board already running the target image, on ``port``)."""
     if target == "host":
-        proc = subprocess.Popen([str(build_target(prj, HOST_BUILD))], stdin=subprocess.PIPE, stdout=subprocess.PIPE)
+        proc = subprocess.Popen(
+            [str(build_target(prj, HOST_BUILD))], stdin=subprocess.PIPE, stdout=subprocess.PIPE
+        )
         return PipeTransport(proc), None
     if target == "qemu-m4f":
         if shutil.which(QEMU_CMD[0]) is None:
             raise BuildError("qemu-system-arm not found: install qemu-system-arm (Debian)")
         elf = build_target(prj, QEMU_M4F_BUILD)
-        proc = subprocess.Popen([*QEMU_CMD, "-kernel", str(elf)], stdin=subprocess.DEVNULL, stdout=subprocess.PIPE,
-                                stderr=subprocess.STDOUT)
+        proc = subprocess.Popen(
+            [*QEMU_CMD, "-kernel", str(elf)],
+            stdin=subprocess.DEVNULL,
+            stdout=subprocess.PIPE,
+            stderr=subprocess.STDOUT,
+        )
         return SerialTransport(_qemu_pty(proc), baud, proc=proc), elf
     if target == "serial":
         if not port:
-            raise ValueError("--target serial needs --port (a device such as /dev/ttyUSB0, or a pyserial URL)")
+            raise ValueError(
+                "--target serial needs --port (a device such as /dev/ttyUSB0, or a pyserial URL)"
+            )
         return SerialTransport(port, baud), None
     raise ValueError(f"unknown target {target!r}: one of {', '.join(TARGETS)}")
 
@@ -86,17 +107,21 @@ class RemoteControllers:
         self.n = 1
         hello = session.hello()
         if hello.digest != prj.config.digest() or hello.prefix != prj.config.control.prefix:
-            raise link.LinkError(f"target runs config {hello.digest} ({hello.prefix}), expected "
-                                 f"{prj.config.digest()} ({prj.config.control.prefix}): rebuild the target")
+            raise link.LinkError(
+                f"target runs config {hello.digest} ({hello.prefix}), expected "
+                f"{prj.config.digest()} ({prj.config.control.prefix}): rebuild the target"
+            )
         if hello.number_format != prj.config.control.number_format:
-            raise link.LinkError(f"target runs the {hello.number_format} build, the config asks for "
-                                 f"{prj.config.control.number_format}")
+            raise link.LinkError(
+                f"target runs the {hello.number_format} build, the config asks for "
+                f"{prj.config.control.number_format}"
+            )
         self.hello = hello
         session.reset()
         self._nan = np.full((1, 4), np.nan, dtype=np.float32)
 
     def step(self, codes: np.ndarray) -> np.ndarray:
-        (cmp_, gates, mode, faults), = self.s.step(codes[:1])
+        ((cmp_, gates, mode, faults),) = self.s.step(codes[:1])
         return np.array([(cmp_, gates, mode, faults)], dtype=PWM_DTYPE)
 
     def internals(self) -> np.ndarray:
@@ -123,9 +148,18 @@ def compare_outputs(a: RunResult, b: RunResult) -> Comparison:
     for k in range(n):
         for f in ("compare", "gates", "mode", "faults"):
             if a.data[f][k, 0] != b.data[f][k, 0]:
-                return Comparison(n, False, {"period": k, "t_s": float(a.data["t_s"][k, 0]), "field": f,
-                                             "reference": float(a.data[f][k, 0]), "target": float(b.data[f][k, 0])},
-                                  same_state)
+                return Comparison(
+                    n,
+                    False,
+                    {
+                        "period": k,
+                        "t_s": float(a.data["t_s"][k, 0]),
+                        "field": f,
+                        "reference": float(a.data[f][k, 0]),
+                        "target": float(b.data[f][k, 0]),
+                    },
+                    same_state,
+                )
     return Comparison(n, n == a.periods == b.periods and same_state is not False, None, same_state)
 
 
@@ -134,12 +168,21 @@ class PilRun:
     result: RunResult
     link_stats: dict
     wall_s: float
-    cost: dict | None = None  # instructions per step on the target (None: the target has no counter)
+    cost: dict | None = (
+        None  # instructions per step on the target (None: the target has no counter)
+    )
     image: dict | None = None  # flash/RAM of the target image, where one was built
 
 
-def run_pil(prj: Project, scn: Scenario, target: str = "host", timeout_s: float = 2.0, model: str = "switching",
-            port: str | None = None, baud: int = 115200) -> PilRun:
+def run_pil(
+    prj: Project,
+    scn: Scenario,
+    target: str = "host",
+    timeout_s: float = 2.0,
+    model: str = "switching",
+    port: str | None = None,
+    baud: int = 115200,
+) -> PilRun:
     """Run ``scn`` with the controller on ``target`` over the link."""
     tr, elf = open_target(prj, target, port, baud)
     sess = link.Session(tr, timeout_s=timeout_s)

@@ -5,8 +5,10 @@ any pyserial URL such as ``socket://127.0.0.1:4000``; a TCP serial server should
 writes at once, e.g. QEMU's ``-serial tcp:...,server=on,nodelay=on``, or every answer waits
 for a delayed acknowledgement).
 """
+
 from __future__ import annotations
 
+import contextlib
 import os
 import select
 import socket
@@ -43,10 +45,8 @@ class PipeTransport:
         return data
 
     def close(self) -> None:
-        try:
+        with contextlib.suppress(OSError):
             self.proc.stdin.close()
-        except OSError:
-            pass
         stop_process(self.proc)
 
 
@@ -60,9 +60,13 @@ class SerialTransport:
         try:
             self.ser = serial.serial_for_url(port, baudrate=baud, timeout=0.0, write_timeout=2.0)
         except (serial.SerialException, ValueError) as exc:
-            raise link.LinkError(f"cannot open serial port {port!r} at {baud} baud: {exc}") from None
+            raise link.LinkError(
+                f"cannot open serial port {port!r} at {baud} baud: {exc}"
+            ) from None
         self.ser.reset_input_buffer()
-        sock = getattr(self.ser, "_socket", None)  # a socket:// port: one frame per request, send it now
+        sock = getattr(
+            self.ser, "_socket", None
+        )  # a socket:// port: one frame per request, send it now
         if sock is not None:
             sock.setsockopt(socket.IPPROTO_TCP, socket.TCP_NODELAY, 1)
         self.port, self.baud, self.proc = port, baud, proc
@@ -84,7 +88,9 @@ class SerialTransport:
             first = self.ser.read(1)  # waits up to the timeout for the first byte
             if not first:
                 if self.proc is not None and self.proc.poll() is not None:
-                    raise link.LinkError(f"the target process exited with status {self.proc.returncode}")
+                    raise link.LinkError(
+                        f"the target process exited with status {self.proc.returncode}"
+                    )
                 return b""
             return first + self.ser.read(self.ser.in_waiting)
         except serial.SerialException as exc:

@@ -1,0 +1,155 @@
+"""Layout of the kernels' arrays: the per-lane state columns (``lane``), the parameter
+vector (``par``), the record fields (``out``), the switching period's workspace rows (``ws``)
+and a few codes shared with the harness-side ``plant.batch``.  Chosen for speed (measured by
+``pfcrig bench``)."""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+
+from design.contract import Gate
+
+SQRT2 = math.sqrt(2.0)
+TWO_PI = 2.0 * math.pi
+
+# columns of the per-lane float state (``lane`` array, shape (n, LANE_ROWS): a lane's numbers
+# side by side)
+(
+    L_I,
+    L_VC,
+    L_BYPASSED,
+    L_CONNECTED,
+    L_THETA,
+    L_VRMS,
+    L_FREQ,
+    L_DC,
+    L_DIP_END,
+    L_DIP_LEVEL,
+    L_POWER,
+    L_CP,
+    L_GAIN0,
+    L_GAIN1,
+    L_GAIN2,
+    L_OFF0,
+    L_OFF1,
+    L_OFF2,
+    L_NOISE0,
+    L_NOISE1,
+    L_NOISE2,
+    L_S0,
+    L_C0,
+) = range(23)
+LANE_ROWS = 23  # L_S0, L_C0: sin and cos of L_THETA, carried along by rotation
+
+# entries of the parameter vector (``par``)
+(
+    P_LT,
+    P_C,
+    P_ESR,
+    P_RTOT,
+    P_RINRUSH,
+    P_TDEAD,
+    P_T,
+    P_COUNTS,
+    P_RSRC,
+    P_LSRC,
+    P_CLOSE,
+    P_OPEN,
+    P_VOUT,
+    P_CONNECT,
+    P_UVLO,
+    P_FULL,
+    P_VAC_CPV,
+    P_VAC_OFF,
+    P_IL_CPA,
+    P_IL_OFF,
+    P_VBUS_CPV,
+) = range(21)  # CPV/CPA: counts per V/A
+PAR_ROWS = 21
+
+# plant records per period (columns of ``out``, shape (n, len(FIELDS))), in this order
+FIELDS = (
+    "vs_V",
+    "vterm_V",
+    "i_avg_A",
+    "i_max_A",
+    "i_min_A",
+    "i_sample_A",
+    "vbus_V",
+    "vbus_sample_V",
+    "e_in_J",
+    "e_out_J",
+    "e_loss_J",
+)
+(R_VS, R_VTERM, R_IAVG, R_IMAX, R_IMIN, R_ISAMPLE, R_VBUS, R_VBSAMPLE, R_EIN, R_EOUT, R_ELOSS) = (
+    range(len(FIELDS))
+)
+
+# gate bits of the controller contract, as plain ints (compile-time constants of the kernels)
+GATE_FAST_LO, GATE_FAST_HI, GATE_SLOW_LO, GATE_SLOW_HI = (int(g) for g in Gate)
+MODEL_SWITCHING, MODEL_AVERAGED = 0, 1
+# step plans: plans[relay open (0/1), kind, 0 pieces / 1 order]; kinds:
+PLAN_HALF, PLAN_DEAD, PLAN_PERIOD = 0, 1, 2
+
+
+# -- one period of every lane ----------------------------------------------------------------
+# rows of the workspace ``ws`` (shape (WS_ROWS, >= n)): per-lane numbers of the present period, a
+# row
+# per quantity so that the solver's loops run over lanes; see ``workspace`` for its row length
+(
+    W_G,
+    W_ICP,
+    W_K,
+    W_A22,
+    W_B2,
+    W_RPATH,
+    W_SLOW,
+    W_SCALE,
+    W_I,
+    W_VC,
+    W_X1,
+    W_X2,
+    W_M,
+    W_MPREV,
+    W_A11,
+    W_A12,
+    W_A21,
+    W_B1,
+    W_V1,
+    W_V2,
+    W_Y1,
+    W_Y2,
+    W_P11,
+    W_P12,
+    W_P21,
+    W_P22,
+    W_H,
+    W_Q,
+    W_Q2,
+    W_EIN,
+    W_VB,
+    W_IMAX,
+    W_IMIN,
+    W_ISTART,
+    W_IS,
+    W_VBS,
+    W_VSH,
+    W_DT,
+    W_VS,
+    W_MP,
+    W_MN,
+) = (*range(37), 37, 44, 51, 58)  # the last four: 7 rows each
+WS_ROWS = 65
+THIRD = 1.0 / 3.0
+
+
+def workspace(n: int) -> np.ndarray:
+    """Scratch space for ``step_lanes``: rows of a length whose byte stride is an odd number
+    of cache lines, so that the same lane's entries in the many rows do not all fall into the
+    same few cache sets (a power-of-two stride made every store a conflict miss)."""
+    cols = 8 * ((n + 7) // 8)
+    if (cols // 8) % 2 == 0:
+        cols += 8
+    return np.zeros((WS_ROWS, cols))
