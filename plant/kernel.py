@@ -138,77 +138,72 @@ def _load_terms(par, lane, j, vc):
     return G, Icp
 
 
-@jit_inline
-def _bounds(seg, t1, b2_, half, t2, b4, T, qa_low, qa_high):
-    """(start, end, fast-leg midpoint code) of sub-interval ``seg`` of the period."""
-    if seg == 0:
-        return 0.0, t1, qa_low
-    if seg == 1:
-        return t1, min(b2_, half), -1
-    if seg == 2:
-        return min(b2_, half), half, qa_high
-    if seg == 3:
-        return half, max(b2_, half), -1
-    if seg == 4:
-        return max(b2_, half), t2, qa_high
-    if seg == 5:
-        return t2, b4, -1
-    return b4, T, qa_low
-
-
-@jit_inline
-def _subintervals(par, lane, harm, j, scale, cmp_, gate, ws):
-    """Center-aligned PWM: the fast low switch on for dl T/2 at each end, the high switch in
-    the middle, the timer's dead time at each edge; T/2 (the ADC sample) is a boundary.  Each
-    sub-interval's duration, source voltage at its midpoint and midpoint differences."""
-    T = par[P_T]
-    half = 0.5 * T
-    dl = min(max(float(cmp_) / par[P_COUNTS], 0.0), 1.0)
-    td = par[P_TDEAD] if (dl > 0.0 and dl < 1.0) else 0.0
-    t1 = dl * half
-    t2 = T - t1
-    b2_ = min(t1 + td, t2)
-    b4 = min(t2 + td, T)
-    g = int(gate)
-    s_lo = (g & GATE_SLOW_LO) != 0
-    s_hi = (g & GATE_SLOW_HI) != 0
-    qb = 0 if (s_lo and not s_hi) else (1 if (s_hi and not s_lo) else -1)
-    qa_low = 0 if (g & GATE_FAST_LO) != 0 else -1
-    qa_high = 1 if (g & GATE_FAST_HI) != 0 else -1
-    s0, c0 = lane[j, L_S0], lane[j, L_C0]
-    for seg in range(7):
-        a, b, qa = _bounds(seg, t1, b2_, half, t2, b4, T, qa_low, qa_high)
-        dt = max(b - a, 0.0)
-        m_pos, m_neg = _m_pair(qa, qb)
-        ws[W_DT + seg, j] = dt
-        ws[W_VS + seg, j] = (
-            source_at(lane, harm, j, scale, a + 0.5 * dt, s0, c0) if dt > 0.0 else 0.0
-        )
-        ws[W_MP + seg, j], ws[W_MN + seg, j] = m_pos, m_neg
-    ws[W_VSH, j] = source_at(lane, harm, j, scale, half, s0, c0)
-
-
 @jit
 def _period_setup(par, lane, harm, t, compare, gates, ws, switching):
     """Per lane: dip, inrush relay, load terms and what stays fixed over the period; for the
     switching model also each sub-interval's duration, source voltage at its midpoint and
     midpoint difference ``m`` for positive and negative current."""
     n = lane.shape[0]
-    Lt, C, rc = par[P_LT], par[P_C], par[P_ESR]
+    T, Lt, C, rc = par[P_T], par[P_LT], par[P_C], par[P_ESR]
+    half = 0.5 * T
     for j in range(n):
         scale = lane[j, L_DIP_LEVEL] if t < lane[j, L_DIP_END] else 1.0
         vc = lane[j, L_VC]
         relay_open = _relay_open(par, lane, j, vc)
         r_path = par[P_RTOT] + (par[P_RINRUSH] if relay_open else 0.0)
         G, Icp = _load_terms(par, lane, j, vc)
-        _, _, kk, _, _, a22, b2, _, _ = circuit(Lt, C, rc, r_path, G, Icp)
-        ws[W_G, j], ws[W_ICP, j], ws[W_K, j] = G, Icp, kk
-        ws[W_A22, j], ws[W_B2, j], ws[W_RPATH, j] = a22, b2, r_path
+        inv_L, inv_C, kk, _, _, a22, b2, _, _ = circuit(Lt, C, rc, r_path, G, Icp)
+        ws[W_G, j], ws[W_ICP, j], ws[W_K, j], ws[W_A22, j], ws[W_B2, j], ws[W_RPATH, j] = (
+            G,
+            Icp,
+            kk,
+            a22,
+            b2,
+            r_path,
+        )
         ws[W_SLOW, j] = 1.0 if relay_open else 0.0
         ws[W_I, j], ws[W_VC, j] = lane[j, L_I], vc
         ws[W_SCALE, j] = scale
-        if switching:
-            _subintervals(par, lane, harm, j, scale, compare[j], gates[j], ws)
+        if not switching:
+            continue
+        # center-aligned PWM: the fast low switch on for dl T/2 at each end, the high switch in
+        # the middle, the timer's dead time at each edge; T/2 (the ADC sample) is a boundary
+        dl = min(max(float(compare[j]) / par[P_COUNTS], 0.0), 1.0)
+        td = par[P_TDEAD] if (dl > 0.0 and dl < 1.0) else 0.0
+        t1 = dl * half
+        t2 = T - t1
+        b2_ = min(t1 + td, t2)
+        b4 = min(t2 + td, T)
+        g = int(gates[j])
+        s_lo = (g & GATE_SLOW_LO) != 0
+        s_hi = (g & GATE_SLOW_HI) != 0
+        qb = 0 if (s_lo and not s_hi) else (1 if (s_hi and not s_lo) else -1)
+        qa_low = 0 if (g & GATE_FAST_LO) != 0 else -1
+        qa_high = 1 if (g & GATE_FAST_HI) != 0 else -1
+        s0, c0 = lane[j, L_S0], lane[j, L_C0]
+        for seg in range(7):
+            if seg == 0:
+                a, b, qa = 0.0, t1, qa_low
+            elif seg == 1:
+                a, b, qa = t1, min(b2_, half), -1
+            elif seg == 2:
+                a, b, qa = min(b2_, half), half, qa_high
+            elif seg == 3:
+                a, b, qa = half, max(b2_, half), -1
+            elif seg == 4:
+                a, b, qa = max(b2_, half), t2, qa_high
+            elif seg == 5:
+                a, b, qa = t2, b4, -1
+            else:
+                a, b, qa = b4, T, qa_low
+            dt = max(b - a, 0.0)
+            m_pos, m_neg = _m_pair(qa, qb)
+            ws[W_DT + seg, j] = dt
+            ws[W_VS + seg, j] = (
+                source_at(lane, harm, j, scale, a + 0.5 * dt, s0, c0) if dt > 0.0 else 0.0
+            )
+            ws[W_MP + seg, j], ws[W_MN + seg, j] = m_pos, m_neg
+        ws[W_VSH, j] = source_at(lane, harm, j, scale, half, s0, c0)
 
 
 @jit

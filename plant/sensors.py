@@ -17,7 +17,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from . import kernel as K
+from . import adc as K
 from . import layout as LY
 
 

@@ -60,7 +60,5 @@ def test_antiwindup_clamps_and_recovers(demo_built, kp, ki, lo, hi, amp, n_sat):
     # u = -kp amp + x with x <= hi, i.e. strictly below hi.
     assert u[n_sat] < hi
     # a PI without anti-windup would have integrated n_sat amp ki_ts above the clamp and
-    # stayed saturated for about n_sat steps; check we do not behave like that
-    naive_x = n_sat * amp * ki
-    if naive_x > 2 * (hi - lo):
-        assert u[n_sat + 1] < hi
+    # stayed saturated for about n_sat steps after the reversal; ours leaves at once
+    assert u[n_sat + 1] < hi
