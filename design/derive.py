@@ -9,18 +9,18 @@ import math
 from dataclasses import asdict, dataclass
 
 from .config import Config, ConfigError
-
-# default rules (fractions of the named quantity)
-OC_TRIP_OF_PEAK = 1.5  # over-current trip: of the sized peak inductor current
-OV_TRIP_OF_VOUT = 1.1  # over-voltage trip: of vout
-HYST_OF_VPK_MIN = 0.04  # polarity hysteresis: of the lowest line peak
-BLANK_OF_VPK_MIN = 0.08  # zero-crossing blanking: of the lowest line peak
-BROWNOUT_OFF_OF_VMIN = 0.85  # brown-out stop: of vin_rms_min
-BROWNOUT_ON_OF_VMIN = 0.92  # brown-out restart: of vin_rms_min
-RANGE_MARGIN = 1.25  # ADC full scale: of the largest value the channel must read
-CURRENT_BW_DIVISOR = 15.0  # current-loop crossover: fsw over this
-MIN_PERIOD_COUNTS = 100  # timer counts per PWM period at least (duty resolution 1 %)
-MAX_PERIOD_COUNTS = 65535  # the compare is 16 bits
+from .rules import (
+    BLANK_OF_VPK_MIN,
+    BROWNOUT_OFF_OF_VMIN,
+    BROWNOUT_ON_OF_VMIN,
+    CURRENT_BW_DIVISOR,
+    HYST_OF_VPK_MIN,
+    MAX_PERIOD_COUNTS,
+    MIN_PERIOD_COUNTS,
+    OC_TRIP_OF_PEAK,
+    OV_TRIP_OF_VOUT,
+    RANGE_MARGIN,
+)
 
 
 @dataclass(frozen=True)

@@ -1,0 +1,298 @@
+"""Constants of the control: the voltage loop, the current reference and loop, the PWM, the
+supervisor and protection (rows of ``design.constants``)."""
+
+from __future__ import annotations
+
+import math
+
+from .project import Project
+from .rules import (
+    DIODE_MARGIN_OF_VOUT,
+    IREF_MAX_OF_OC,
+    IREF_MAX_OF_PEAK,
+    LINE_LOSS_RESET_S,
+    PCMD_MAX_OF_RATED,
+    PRECHARGE_OF_PEAK,
+    RETRY_CLEAR_S,
+    VBUS_GUARD_OF_SPAN,
+    Add,
+    u32,
+)
+from .tuning import BUS_BLOCKS
+
+
+def vloop(add: Add, prj: Project) -> None:
+    s, c, r, v = prj.config.spec, prj.config.control, prj.resolved, prj.tuning.voltage
+    fsw, vb, pb = s.fsw, r.vbus_range_V, r.vbus_range_V * r.il_range_A
+    shift = BUS_BLOCKS.bit_length() - 1
+    step = s.vout / (c.soft_start_time * fsw)
+    add(
+        "BUS_BLOCKS",
+        BUS_BLOCKS,
+        "u",
+        "blocks",
+        "blocks in the sliding half-cycle bus average",
+        "design: power of two",
+    )
+    add(
+        "BUS_BLOCK_SHIFT",
+        shift,
+        "u",
+        "bits",
+        "block length = half period >> shift",
+        "log2(BUS_BLOCKS)",
+    )
+    add(
+        "BUS_BLOCK_NOMINAL",
+        max(1, round(fsw / (2.0 * s.line_freq)) >> shift),
+        "u",
+        "periods",
+        "block length before the first measured half",
+        "fsw/(2 line_freq)/BUS_BLOCKS",
+    )
+    add("VOUT_V", s.vout, "f", "V", "bus reference", "[spec] vout", (vb, 31))
+    add(
+        "VREF_STEP_V",
+        step,
+        "f",
+        "V/period",
+        "soft-start reference slope",
+        "vout/([control] soft_start_time x fsw)",
+        (vb, 31),
+    )
+    add(
+        "RAMP_FF_W_PER_V",
+        r.capacitance_F * (s.vout / c.soft_start_time) / s.efficiency,
+        "f",
+        "W/V",
+        "ramp feedforward: capacitor charging power per volt of reference",
+        f"C x vout/soft_start_time / efficiency, C = {r.capacitance_F:.6g} F",
+        (pb / vb, 15),
+    )
+    add(
+        "RAMP_LAG_V",
+        step * fsw / (2.0 * s.line_freq) / 2.0,
+        "f",
+        "V",
+        "lag of the half-cycle bus mean behind the ramp",
+        "VREF_STEP_V x half a half-period of samples",
+        (vb, 15),
+    )
+    add(
+        "VKP",
+        v.kp,
+        "f",
+        "W/V",
+        "voltage PI proportional gain",
+        f"tuning: {v.target_crossover_Hz:g} Hz, {v.target_phase_margin_deg:g} deg",
+        (pb / vb, 15),
+    )
+    add(
+        "VKI_TS",
+        v.ki_ts,
+        "f",
+        "W/V",
+        "voltage PI integral gain x block period (backward Euler)",
+        f"tuning: Ki = {v.ki:.6g} W/(V s), T = {v.ts_s:.6g} s",
+        (pb / vb, 31),
+    )
+    add(
+        "PCMD_MAX_W",
+        PCMD_MAX_OF_RATED * s.power / s.efficiency,
+        "f",
+        "W",
+        "largest input power command",
+        f"{PCMD_MAX_OF_RATED:g} x [spec] power/efficiency",
+        (pb, 15),
+    )
+
+
+def iloop(add: Add, prj: Project) -> None:
+    s, r, i = prj.config.spec, prj.resolved, prj.tuning.current
+    vb, ib = r.vbus_range_V, r.il_range_A
+    iref_max = min(IREF_MAX_OF_PEAK * prj.sizing.iline_peak_A, IREF_MAX_OF_OC * r.oc_trip_A)
+    add(
+        "IREF_MAX_A",
+        iref_max,
+        "f",
+        "A",
+        "largest current reference",
+        f"min({IREF_MAX_OF_PEAK:g} x sized peak line current, {IREF_MAX_OF_OC:g} x oc_trip)",
+        (ib, 15),
+    )
+    add(
+        "VBUS_GUARD_V",
+        s.vout + VBUS_GUARD_OF_SPAN * (r.ov_trip_V - s.vout),
+        "f",
+        "V",
+        "bus above which the current reference is 0",
+        f"vout + {VBUS_GUARD_OF_SPAN:g} (ov_trip - vout)",
+        (vb, 15),
+    )
+    add(
+        "IKP",
+        i.kp,
+        "f",
+        "1/A",
+        "current PI proportional gain",
+        f"tuning: {i.target_crossover_Hz:.6g} Hz, {i.target_phase_margin_deg:g} deg",
+        (1.0 / ib, 15),
+    )
+    add(
+        "IKI_TS",
+        i.ki_ts,
+        "f",
+        "1/A",
+        "current PI integral gain x PWM period (backward Euler)",
+        f"tuning: Ki = {i.ki:.6g} 1/(A s)",
+        (1.0 / ib, 31),
+    )
+    add(
+        "INV_VBUS_MIN",
+        1.0 / r.vbus_range_V,
+        "f",
+        "1/V",
+        "smallest 1/v_bus estimate",
+        "1/[sensing] vbus_range",
+        (1.0 / vb, 15),
+    )
+    add(
+        "INV_VBUS_MAX",
+        1.0 / (0.5 * math.sqrt(2.0) * r.brownout_off_rms_V),
+        "f",
+        "1/V",
+        "largest 1/v_bus estimate",
+        "1/(half the brown-out line peak)",
+        (1.0 / vb, 15),
+    )
+
+
+def pwm(add: Add, prj: Project) -> None:
+    c = prj.config.control
+    ramp = c.zc_ramp_periods
+    add(
+        "PWM_PERIOD_COUNTS",
+        prj.resolved.pwm_period_counts,
+        "u",
+        "counts",
+        "timer counts per PWM period",
+        "[control] pwm_timer_clock/[spec] fsw",
+    )
+    add(
+        "DUTY_MAX",
+        c.duty_max,
+        "f",
+        "1",
+        "largest main-switch duty",
+        "[control] duty_max",
+        (1.0, 15),
+    )
+    add(
+        "ZC_RAMP_PERIODS",
+        ramp,
+        "u",
+        "periods",
+        "main-switch duty ramp after a zero crossing",
+        "[control] zc_ramp_periods",
+    )
+    add(
+        "RAMP_STEP",
+        c.duty_max / ramp if ramp else c.duty_max,
+        "f",
+        "1/period",
+        "duty-limit increase per period of the ramp",
+        "duty_max/zc_ramp_periods",
+        (1.0, 15),
+    )
+    add(
+        "SYNC_DELAY_PERIODS",
+        c.sync_delay_periods,
+        "u",
+        "periods",
+        "synchronous switch enabled this long after the ramp",
+        "[control] sync_delay_periods",
+    )
+
+
+def protection(add: Add, prj: Project) -> None:
+    s, pr, r = prj.config.spec, prj.config.protection, prj.resolved
+    fsw, vb = s.fsw, r.vbus_range_V
+    add(
+        "OV_TRIP_V",
+        r.ov_trip_V,
+        "f",
+        "V",
+        "bus over-voltage trip",
+        "[protection] ov_trip",
+        (vb, 15),
+    )
+    add(
+        "OC_TRIP_A",
+        r.oc_trip_A,
+        "f",
+        "A",
+        "inductor over-current trip",
+        "[protection] oc_trip",
+        (r.il_range_A, 15),
+    )
+    add(
+        "DIODE_MARGIN_V",
+        DIODE_MARGIN_OF_VOUT * s.vout,
+        "f",
+        "V",
+        "|v_line| within this of the bus counts as at or above it: over-current there is the "
+        "line rectified through the body diodes (recorded, not tripped on)",
+        f"rule: {100 * DIODE_MARGIN_OF_VOUT:g} % of [spec] vout",
+        (vb, 15),
+    )
+    add(
+        "PRECHARGE_K",
+        2.0 * PRECHARGE_OF_PEAK**2,
+        "f",
+        "1",
+        f"bus counts as precharged when vbus^2 >= K x ms ({100 * PRECHARGE_OF_PEAK:g} % of the "
+        "line "
+        "peak)",
+        f"rule: {PRECHARGE_OF_PEAK:g} x line peak",
+        (1.0, 15),
+    )
+    add(
+        "LINE_LOSS_PERIODS",
+        max(1, round(pr.line_loss_time * fsw)),
+        "u",
+        "periods",
+        "|v| below blanking this long = line loss",
+        "[protection] line_loss_time x fsw",
+    )
+    add(
+        "LINE_LOSS_RESET_PERIODS",
+        u32(LINE_LOSS_RESET_S * fsw),
+        "u",
+        "periods",
+        "outage after which the start is afresh",
+        f"rule: {LINE_LOSS_RESET_S:g} s",
+    )
+    add(
+        "RETRY_LIMIT",
+        pr.retry_limit,
+        "u",
+        "trips",
+        "trips before the fault latches",
+        "[protection] retry_limit",
+    )
+    add(
+        "RETRY_DELAY_PERIODS",
+        u32(round(pr.retry_delay * fsw)),
+        "u",
+        "periods",
+        "wait after a trip",
+        "[protection] retry_delay x fsw",
+    )
+    add(
+        "RETRY_CLEAR_PERIODS",
+        u32(RETRY_CLEAR_S * fsw),
+        "u",
+        "periods",
+        "clean running that clears the trip count",
+        f"rule: {RETRY_CLEAR_S:g} s",
+    )

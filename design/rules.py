@@ -1,0 +1,46 @@
+"""The rules of the firmware's derived constants: each number written once, with what it is a
+fraction of (or its unit), for ``design.constants`` and the config header's origins."""
+
+from __future__ import annotations
+
+from collections.abc import Callable
+
+# default rules of derived settings (design.derive; fractions of the named quantity)
+OC_TRIP_OF_PEAK = 1.5  # over-current trip: of the sized peak inductor current
+OV_TRIP_OF_VOUT = 1.1  # over-voltage trip: of vout
+HYST_OF_VPK_MIN = 0.04  # polarity hysteresis: of the lowest line peak
+BLANK_OF_VPK_MIN = 0.08  # zero-crossing blanking: of the lowest line peak
+BROWNOUT_OFF_OF_VMIN = 0.85  # brown-out stop: of vin_rms_min
+BROWNOUT_ON_OF_VMIN = 0.92  # brown-out restart: of vin_rms_min
+RANGE_MARGIN = 1.25  # ADC full scale: of the largest value the channel must read
+CURRENT_BW_DIVISOR = 15.0  # current-loop crossover: fsw over this
+MIN_PERIOD_COUNTS = 100  # timer counts per PWM period at least (duty resolution 1 %)
+MAX_PERIOD_COUNTS = 65535  # the compare is 16 bits
+
+# rules of the firmware's constants (design.const_signal, design.const_control; fractions
+# of the named quantity unless a unit is given)
+RAIL_MARGIN_COUNTS = 2  # a code this close to either end counts as railed
+STUCK_OF_HALF = 1.5  # a frozen line code for this many of the longest half periods is stuck
+HALF_MIN_FREQ_MARGIN = 1.25  # shortest plausible half: at freq_max times this
+HALF_MAX_FREQ_MARGIN = 0.8  # longest plausible half: at freq_min times this
+FREQ_TOL = 0.01  # the frequency estimate is good to 0.5 %; the band edges get twice that
+MS_FLOOR_OF_BROWNOUT = 0.5  # floor of the rms before 1/Vrms^2: of the brown-out stop level
+RMS_RISE_MARGIN = 1.15  # a sample this far above the latched peak raises the rms at once
+PCMD_MAX_OF_RATED = 1.3  # largest power command: of rated input power
+IREF_MAX_OF_PEAK = 1.25  # largest current reference: of the sized peak line current ...
+IREF_MAX_OF_OC = 0.85  # ... and of the over-current trip, the smaller of the two
+VBUS_GUARD_OF_SPAN = 0.6  # reference zeroed above vout + this x (ov_trip - vout)
+DIODE_MARGIN_OF_VOUT = 0.02  # |v| within this of the bus: the line rectified by the diodes
+PRECHARGE_OF_PEAK = 0.85  # bus precharged at this fraction of the line peak
+LINE_LOSS_RESET_S = 0.5  # an outage longer than this (s) starts afresh
+RETRY_CLEAR_S = 0.5  # clean running that clears the trip count (s)
+
+
+Add = Callable[..., None]
+
+
+def u32(x: float) -> int:
+    v = int(x)
+    if v < 0 or v > 0xFFFFFFFF:
+        raise ValueError(f"constant {x} does not fit an unsigned 32-bit value")
+    return v
