@@ -22,19 +22,23 @@ from .layout import (
     P_T,
     P_TDEAD,
     PLAN_PERIOD,
+    R_EESR,
     R_EIN,
     R_ELOSS,
     R_EOUT,
+    R_I2,
     R_IAVG,
+    R_IEND,
     R_IMAX,
     R_IMIN,
     R_ISAMPLE,
     R_VBSAMPLE,
     R_VBUS,
+    R_VC,
     R_VS,
     R_VTERM,
 )
-from .solver import circuit, segment, vbus_of
+from .solver import circuit, segment
 from .source import source_at
 
 
@@ -63,11 +67,11 @@ def period_averaged(par, plans, lane, harm, j, scale, compare, gates, G, Icp, r_
     vs = source_at(lane, harm, j, scale, T / 2.0, lane[j, L_S0], lane[j, L_C0])
     i0, vc0 = lane[j, L_I], lane[j, L_VC]
     cc = circuit(Lt, C, rc, r_path, G, Icp)
-    i1, vc1, m = segment(
+    i1, vc1, m, q, q2, qm, _, qb = segment(
         i0, vc0, T, m_pos, m_neg, vs, cc, plans[relay, PLAN_PERIOD, 0], plans[relay, PLAN_PERIOD, 1]
     )
-    vb = (vbus_of(m, i0, vc0, G, Icp, rc) + vbus_of(m, i1, vc1, G, Icp, rc)) / 2.0
-    iavg = (i0 + i1) / 2.0
+    vb = qb / T
+    iavg = q / T
     out[R_VS] = vs
     out[R_VTERM] = vs - par[P_RSRC] * iavg - par[P_LSRC] * (i1 - i0) / T
     out[R_IAVG] = iavg
@@ -76,7 +80,12 @@ def period_averaged(par, plans, lane, harm, j, scale, compare, gates, G, Icp, r_
     out[R_ISAMPLE] = iavg
     out[R_VBUS] = vb
     out[R_VBSAMPLE] = vb
-    out[R_EIN] = T * vs * iavg
+    out[R_EIN] = vs * q
     out[R_EOUT] = T * (G * vb**2 + Icp * vb)
-    out[R_ELOSS] = r_path * (T * (i0 * i0 + i0 * i1 + i1 * i1) / 3.0)
+    out[R_ELOSS] = r_path * q2
+    out[R_I2] = q2
+    # capacitor current m i - i_load; |m| is the fraction of the period the bus sees the current
+    i_load = G * vb + Icp
+    out[R_EESR] = rc * (abs(m) * q2 - 2.0 * i_load * qm + i_load * i_load * T)
+    out[R_VC], out[R_IEND] = vc1, i1
     return i1, vc1

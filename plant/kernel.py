@@ -48,19 +48,22 @@ from .layout import (
     P_VOUT,
     PLAN_DEAD,
     PLAN_HALF,
+    R_EESR,
     R_EIN,
     R_ELOSS,
     R_EOUT,
+    R_I2,
     R_IAVG,
+    R_IEND,
     R_IMAX,
     R_IMIN,
     R_ISAMPLE,
     R_VBSAMPLE,
     R_VBUS,
+    R_VC,
     R_VS,
     R_VTERM,
     SQRT2,
-    THIRD,
     W_A11,
     W_A12,
     W_A21,
@@ -88,6 +91,8 @@ from .layout import (
     W_P22,
     W_Q,
     W_Q2,
+    W_QM,
+    W_QM2,
     W_RPATH,
     W_SCALE,
     W_SLOW,
@@ -103,7 +108,7 @@ from .layout import (
     W_Y1,
     W_Y2,
 )
-from .solver import INV, INV_FACT, _m_pair, bus_k, circuit, conduction, segment
+from .solver import INV, INV_FACT, _m_pair, bus_k, circuit, conduction, piece_integrals, segment
 from .source import advance_phase, source_at
 
 
@@ -226,6 +231,7 @@ def _solve_segment(par, plans, ws, n, seg, kind, pieces, order):
     V1, V2, Y1, Y2, H = ws[W_V1], ws[W_V2], ws[W_Y1], ws[W_Y2], ws[W_H]
     P11, P12, P21, P22 = ws[W_P11], ws[W_P12], ws[W_P21], ws[W_P22]
     Q, Q2, EIN, VB, IMAX, IMIN = ws[W_Q], ws[W_Q2], ws[W_EIN], ws[W_VB], ws[W_IMAX], ws[W_IMIN]
+    QM, QM2 = ws[W_QM], ws[W_QM2]
     DT, VS, MP, MN = ws[W_DT + seg], ws[W_VS + seg], ws[W_MP + seg], ws[W_MN + seg]
     # matrices for conduction in the current's direction (forced: switches both ways), and
     # the first term of the series
@@ -259,29 +265,49 @@ def _solve_segment(par, plans, ws, n, seg, kind, pieces, order):
             X1[j] += H[j] * Y1[j]
             X2[j] += H[j] * Y2[j]
     # lanes the common step does not cover are done again, alone and exactly; then each
-    # sub-interval's share of the period's integrals (current near-linear inside it)
+    # sub-interval's share of the period's integrals, piece by piece (``piece_integrals``)
     for j in range(n):
         dt = DT[j]
         i0, vc0, i1, vc1 = IND[j], VC[j], X1[j], X2[j]
         m = M[j]
         forced = MP[j] == MN[j]
-        if dt > 0.0 and (
+        redo = dt > 0.0 and (
             SLOW[j] != 0.0
             or (not forced and (i0 == 0.0 or (i0 > 0.0 and i1 < 0.0) or (i0 < 0.0 and i1 > 0.0)))
-        ):
+        )
+        if redo:
             relay = 1 if SLOW[j] != 0.0 else 0
             cc = (inv_L, inv_C, K_[j], rc, RPATH[j], A22[j], B2[j], G[j], ICP[j])
-            i1, vc1, m = segment(
+            i1, vc1, m, q, q2, qm, qm2, qb = segment(
                 i0, vc0, dt, MP[j], MN[j], VS[j], cc, plans[relay, kind, 0], plans[relay, kind, 1]
             )
-        if not dt > 0.0:
-            m = MPREV[j]
-        Q[j] += dt * (i0 + i1) * 0.5
-        Q2[j] += dt * (i0 * i0 + i0 * i1 + i1 * i1) * THIRD
-        EIN[j] += dt * VS[j] * (i0 + i1) * 0.5
-        VB[j] += (
-            dt * (bus_k(m, i0, vc0, ICP[j], rc, K_[j]) + bus_k(m, i1, vc1, ICP[j], rc, K_[j])) * 0.5
-        )
+        else:
+            if not dt > 0.0:
+                m = MPREV[j]
+            q, q2, qb = piece_integrals(
+                A11[j],
+                A12[j],
+                A21[j],
+                A22[j],
+                B1[j],
+                B2[j],
+                i0,
+                vc0,
+                i1,
+                vc1,
+                dt,
+                m,
+                K_[j],
+                rc,
+                ICP[j],
+            )
+            qm, qm2 = m * q, m * m * q2
+        Q[j] += q
+        Q2[j] += q2
+        QM[j] += qm  # the bus capacitor sees m i: its ESR loss follows from these two
+        QM2[j] += qm2
+        EIN[j] += VS[j] * q
+        VB[j] += qb
         IMAX[j] = max(IMAX[j], i1)
         IMIN[j] = min(IMIN[j], i1)
         IND[j], VC[j], MPREV[j] = i1, vc1, m
@@ -299,7 +325,7 @@ def _switching_period(par, plans, ws, n):
     Q, Q2, EIN, VB, IMAX, IMIN = ws[W_Q], ws[W_Q2], ws[W_EIN], ws[W_VB], ws[W_IMAX], ws[W_IMIN]
     for j in range(n):
         ws[W_ISTART, j] = IND[j]
-        Q[j] = Q2[j] = EIN[j] = VB[j] = 0.0
+        Q[j] = Q2[j] = EIN[j] = VB[j] = ws[W_QM, j] = ws[W_QM2, j] = 0.0
         IMAX[j] = IMIN[j] = IND[j]
         MPREV[j] = 0.0
     for seg in range(7):
@@ -353,6 +379,14 @@ def step_lanes(par, plans, lane, harm, seed, k, t, model, compare, gates, codes,
             out[j, R_EIN] = ws[W_EIN, j]
             out[j, R_EOUT] = T * (G * vbus_avg * vbus_avg + Icp * vbus_avg)
             out[j, R_ELOSS] = ws[W_RPATH, j] * ws[W_Q2, j]
+            out[j, R_I2] = ws[W_Q2, j]
+            # capacitor current m i - i_load with the load current of the period average:
+            # ESR x (int m^2 i^2 - 2 i_load int m i + i_load^2 T)
+            i_load = G * vbus_avg + Icp
+            out[j, R_EESR] = par[P_ESR] * (
+                ws[W_QM2, j] - 2.0 * i_load * ws[W_QM, j] + i_load * i_load * T
+            )
+            out[j, R_VC], out[j, R_IEND] = ws[W_VC, j], ws[W_I, j]
             lane[j, L_I], lane[j, L_VC] = ws[W_I, j], ws[W_VC, j]
     else:
         for j in range(n):

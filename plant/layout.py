@@ -82,10 +82,28 @@ FIELDS = (
     "e_in_J",
     "e_out_J",
     "e_loss_J",
+    "i2_A2s",
+    "e_esr_J",
+    "vc_V",
+    "i_end_A",
 )
-(R_VS, R_VTERM, R_IAVG, R_IMAX, R_IMIN, R_ISAMPLE, R_VBUS, R_VBSAMPLE, R_EIN, R_EOUT, R_ELOSS) = (
-    range(len(FIELDS))
-)
+(
+    R_VS,
+    R_VTERM,
+    R_IAVG,
+    R_IMAX,
+    R_IMIN,
+    R_ISAMPLE,
+    R_VBUS,
+    R_VBSAMPLE,
+    R_EIN,
+    R_EOUT,
+    R_ELOSS,
+    R_I2,
+    R_EESR,
+    R_VC,
+    R_IEND,
+) = range(len(FIELDS))
 
 # gate bits of the controller contract, as plain ints (compile-time constants of the kernels)
 GATE_FAST_LO, GATE_FAST_HI, GATE_SLOW_LO, GATE_SLOW_HI = (int(g) for g in Gate)
@@ -95,9 +113,8 @@ PLAN_HALF, PLAN_DEAD, PLAN_PERIOD = 0, 1, 2
 
 
 # -- one period of every lane ----------------------------------------------------------------
-# rows of the workspace ``ws`` (shape (WS_ROWS, >= n)): per-lane numbers of the present period, a
-# row
-# per quantity so that the solver's loops run over lanes; see ``workspace`` for its row length
+# rows of the workspace ``ws`` (shape (WS_ROWS, >= n)): per-lane numbers of the present period,
+# a row per quantity so that the solver's loops run over lanes; see ``workspace`` for its row length
 (
     W_G,
     W_ICP,
@@ -136,13 +153,16 @@ PLAN_HALF, PLAN_DEAD, PLAN_PERIOD = 0, 1, 2
     W_IS,
     W_VBS,
     W_VSH,
+    W_QM,
+    W_QM2,
     W_DT,
     W_VS,
     W_MP,
     W_MN,
-) = (*range(37), 37, 44, 51, 58)  # the last four: 7 rows each
-WS_ROWS = 65
+) = (*range(39), 39, 46, 53, 60)  # the last four: 7 rows each
+WS_ROWS = 67
 THIRD = 1.0 / 3.0
+TWELFTH = 1.0 / 12.0
 
 
 def workspace(n: int) -> np.ndarray:

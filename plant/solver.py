@@ -70,17 +70,34 @@ def circuit(Lt, C, rc, r_path, G, Icp):
     return inv_L, inv_C, k, rc, r_path, -G * k * inv_C, -k * Icp * inv_C, G, Icp
 
 
+@jit_inline
+def piece_integrals(a11, a12, a21, a22, b1, b2, i0, vc0, i1, vc1, t, m, k, rc, Icp):
+    """(int i dt, int i^2 dt, int v_bus dt) over one linear piece of length ``t`` from
+    (i0, vc0) to (i1, vc1): the trapezoid with the end-point derivative correction
+    (Euler-Maclaurin, ``t^2/12 (f'(0) - f'(t))``, exact to the cubic term), the derivatives from
+    ``x' = A x + b`` itself."""
+    c = t * t * (1.0 / 12.0)
+    di0 = a11 * i0 + a12 * vc0 + b1
+    di1 = a11 * i1 + a12 * vc1 + b1
+    q = t * (i0 + i1) * 0.5 + c * (di0 - di1)
+    q2 = t * (i0 * i0 + i1 * i1) * 0.5 + 2.0 * c * (i0 * di0 - i1 * di1)
+    qv = t * (vc0 + vc1) * 0.5 + c * ((a21 * i0 + a22 * vc0 + b2) - (a21 * i1 + a22 * vc1 + b2))
+    return q, q2, k * (qv + rc * (m * q - Icp * t))
+
+
 @jit
 def segment(i, vc, dt, m_pos, m_neg, vs, cc, pieces, order):
     """Advance one lane by ``dt`` s; ``m_pos``/``m_neg`` apply while the current is
     positive/negative (equal where switches conduct both ways); ``cc`` from ``circuit``.
     A diode current that reaches zero stays there (discontinuous conduction) until a path
     is forward-biased again; its zero time is found by Newton on the exact solution.
-    Returns (i, vc, m used)."""
+    Returns (i, vc, m used, int i dt, int i^2 dt, int m i dt, int m^2 i^2 dt, int v_bus dt),
+    the integrals taken piece by piece (``piece_integrals``)."""
     inv_L, inv_C, k, rc, r_path, a22, b2, G, Icp = cc
     forced = m_pos == m_neg
     remaining = dt
     m_used = 0.0
+    sq = sq2 = sqm = sqm2 = sqb = 0.0
     for _ in range(3):
         if not remaining > 0.0:
             break
@@ -102,8 +119,13 @@ def segment(i, vc, dt, m_pos, m_neg, vs, cc, pieces, order):
         t = remaining
         i1, vc1 = advance(a11, a12, a21, a22, b1, b2, i, vc, t, pieces, order)
         m_used = m
-        cross = (not forced) and (not zero) and ((i > 0.0 and i1 < 0.0) or (i < 0.0 and i1 > 0.0))
+        flips = (i > 0.0 and i1 < 0.0) or (i < 0.0 and i1 > 0.0)
+        cross = (not forced) and (not zero) and flips
         if not cross:
+            q, q2, qb = piece_integrals(
+                a11, a12, a21, a22, b1, b2, i, vc, i1, vc1, t, m, k, rc, Icp
+            )
+            sq, sq2, sqm, sqm2, sqb = sq + q, sq2 + q2, sqm + m * q, sqm2 + m * m * q2, sqb + qb
             i, vc = i1, vc1
             break
         # diode current reaches zero inside the step: when (chord, then two Newton steps)
@@ -114,9 +136,11 @@ def segment(i, vc, dt, m_pos, m_neg, vs, cc, pieces, order):
             if di != 0.0:
                 tz = min(max(tz - iz / di, 0.0), t)
         iz, vz = advance(a11, a12, a21, a22, b1, b2, i, vc, tz, pieces, order)
+        q, q2, qb = piece_integrals(a11, a12, a21, a22, b1, b2, i, vc, iz, vz, tz, m, k, rc, Icp)
+        sq, sq2, sqm, sqm2, sqb = sq + q, sq2 + q2, sqm + m * q, sqm2 + m * m * q2, sqb + qb
         i, vc = 0.0, vz
         remaining = max(remaining - tz, 0.0)
-    return i, vc, m_used
+    return i, vc, m_used, sq, sq2, sqm, sqm2, sqb
 
 
 @jit_inline

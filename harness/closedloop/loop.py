@@ -33,14 +33,7 @@ PWM_DTYPE = np.dtype([(f.name, f.dtype) for f in OUTPUT_FIELDS])
 N_PROBES = len(PROBES)
 RECORDED = (
     "t_s",
-    "vs_V",
-    "vterm_V",
-    "i_avg_A",
-    "i_max_A",
-    "i_min_A",
-    "i_sample_A",
-    "vbus_V",
-    "vbus_sample_V",
+    *PLANT_FIELDS,
     "compare",
     "gates",
     "mode",
@@ -49,9 +42,6 @@ RECORDED = (
     "iref_A",
     "vref_V",
     "pcmd_W",
-    "e_in_J",
-    "e_out_J",
-    "e_loss_J",
     "shoot_through",
 )
 

@@ -24,7 +24,8 @@ def write_plots(res: RunResult, rep: dict, out_dir: str | Path, k: int = 0) -> l
     t = d["t_s"]
     paths = []
 
-    w0, w1 = rep["window_s"]
+    # the last three cycles of the steady window, or of the run when there is none
+    w1 = rep["window_s"][1] if rep["window_s"] else float(t[-1])
     sel = (t >= w1 - 3.0 / res.scenarios[k].freq_Hz) & (t < w1)
     fig, ax = plt.subplots(figsize=(10, 4))
     ax.plot(t[sel] * 1e3, d["vs_V"][sel], color="tab:blue", lw=1, label="line voltage")
@@ -48,7 +49,9 @@ def write_plots(res: RunResult, rep: dict, out_dir: str | Path, k: int = 0) -> l
         label="line current (period average)",
     )
     ax2.set_ylabel("current (A)", color="tab:red")
-    ax.set_title(f"line voltage and current: PF {rep['pf']:.4f}, THD {100 * rep['thd_i']:.2f} %")
+    title = (f"line voltage and current: PF {rep['pf']:.4f}, THD {100 * rep['thd_i']:.2f} %"
+             if rep["steady"] else f"line voltage and current (not steady: {rep['steady_reason']})")
+    ax.set_title(title, fontsize=9)
     fig.legend(loc="upper right", fontsize=8)
     fig.tight_layout()
     paths.append(out / "line.png")
@@ -75,21 +78,32 @@ def write_plots(res: RunResult, rep: dict, out_dir: str | Path, k: int = 0) -> l
     fig.savefig(paths[-1], dpi=110)
     plt.close(fig)
 
+    if rep["steady"]:
+        paths.append(_harmonics_plot(rep, out / "harmonics.png"))
+    return paths
+
+
+def _harmonics_plot(rep: dict, path: Path) -> Path:
+    """Harmonic groups against the Class A limits, with the margin to each (in scope only)."""
+    import matplotlib.pyplot as plt
+
     h = np.arange(2, metrics.H_MAX + 1)
-    lim = [metrics.class_a_limit_A(int(x)) for x in h]
+    lim = np.array([metrics.class_a_limit_A(int(x)) for x in h])
     fig, ax = plt.subplots(figsize=(10, 4))
-    ax.bar(h, rep["harmonics_A"][1:], color="tab:red", label="measured (A rms)")
-    ax.step(h, lim, where="mid", color="k", lw=1, label="IEC 61000-3-2 Class A limit")
+    ax.bar(h, rep["harmonics_A"][1:], color="tab:red", label="measured group (A rms)")
+    if rep["class_a_applicable"]:
+        ax.step(h, lim, where="mid", color="k", lw=1, label="IEC 61000-3-2 Class A limit")
+        worst = rep["class_a_margins_pct"][str(rep["class_a_worst_h"])]
+        verdict = ("pass" if rep["class_a_pass"] else "FAIL") + f", least margin {worst:.0f} % " \
+            f"at h{rep['class_a_worst_h']} (simulated: not a compliance result)"
+    else:
+        verdict = f"not applicable: {rep['class_a_reason']}"
     ax.set_yscale("log")
     ax.set_xlabel("harmonic order")
     ax.set_ylabel("A rms")
-    ax.set_title(
-        "current harmonics over the IEC 61000-4-7 window: Class A "
-        + ("pass" if rep["class_a_pass"] else "FAIL")
-    )
+    ax.set_title(f"current harmonics (IEC 61000-4-7 groups): Class A {verdict}", fontsize=9)
     ax.legend(fontsize=8)
     fig.tight_layout()
-    paths.append(out / "harmonics.png")
-    fig.savefig(paths[-1], dpi=110)
+    fig.savefig(path, dpi=110)
     plt.close(fig)
-    return paths
+    return path

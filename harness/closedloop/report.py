@@ -1,21 +1,39 @@
-"""Reports of a closed-loop run: JSON figures, terminal summary, CSV, PNG plots."""
+"""Reports of a closed-loop run: the JSON figures (keys documented in the README), the
+terminal summary and the CSV of per-period waveforms."""
 
 from __future__ import annotations
 
 import csv
+import hashlib
 import math
 from pathlib import Path
 
 import numpy as np
 
+from codegen.render import VERSION, render
 from design.contract import Fault, Mode
+from design.project import Project
 from design.sizing import boost_ripple_pp
 
 from . import metrics
 from .loop import RunResult
+from .power import power_balance
+from .windows import SETTLE_BAND, Window, event_windows, steady_window
 
 MODE_NAMES = [m.name.lower() for m in Mode]
-FAULT_NAMES = [f.name.lower() for f in Fault]
+DCM_WARN_FRACTION = 0.30  # averaged model: warn above this share of gated periods in DCM (README)
+CSV_COLUMNS = ["t_s", "vs_V", "vterm_V", "i_avg_A", "i_max_A", "i_min_A", "vbus_V", "vc_V",
+               "i_end_A", "duty", "iref_A", "vref_V", "pcmd_W", "compare", "gates", "mode",
+               "faults", "e_in_J", "e_out_J", "e_loss_J", "e_esr_J", "i2_A2s"]
+STEADY_KEYS = ("pf", "thd_i", "thd_total", "dc_A", "displacement_factor", "harmonics_A",
+               "i_rms_A", "v_rms_V", "class_a_applicable", "class_a_reason", "class_a_pass",
+               "class_a_worst_h", "class_a_worst_ratio", "class_a_margins_pct", "vbus_mean_V",
+               "vbus_ripple_pp_V", "vbus_min_V", "vbus_max_V", "il_peak_A",
+               "il_ripple_at_peak_A", "il_ripple_formula_A", "vbus_ripple_formula_V",
+               "zc_spike_A", "zc_spike_of_rated", "p_in_W", "p_source_W", "p_out_W",
+               "efficiency", "losses_W", "losses_not_modelled", "stored_change_W",
+               "balance_residual_W")
+_DIGESTS: dict[str, str] = {}
 
 
 def mode_name(code: int) -> str:
@@ -27,156 +45,180 @@ def fault_names(bits: int) -> list[str]:
     return [f.name.lower() for f in Fault if bits & f]
 
 
+def firmware_digest(prj: Project) -> str:
+    """SHA-256 (16 hex digits) of the generated controller sources."""
+    key = prj.config.digest() + prj.config.control.number_format
+    if key not in _DIGESTS:
+        files = render(prj)
+        h = hashlib.sha256()
+        for name in sorted(files):
+            h.update(name.encode() + b"\0" + files[name].encode() + b"\0")
+        _DIGESTS[key] = h.hexdigest()[:16]
+    return _DIGESTS[key]
+
+
+def provenance(res: RunResult, k: int) -> dict:
+    prj, scn = res.project, res.scenarios[k]
+    return {"config_path": prj.config.source, "config_digest": prj.config.digest(),
+            "scenario": scn.name, "scenario_path": scn.path or "default", "model": res.model,
+            "pfcrig_version": VERSION, "firmware_digest": firmware_digest(prj)}
+
+
+def _steady_figures(d: dict, prj: Project, win: Window) -> dict:
+    fs, sl = prj.config.spec.fsw, win.slice(prj.config.spec.fsw)
+    vs, i = d["vs_V"][sl], d["i_avg_A"][sl]
+    pq = metrics.power_quality(vs, i, fs, win.freq_Hz, win.cycles)
+    out = {k: pq[k] for k in ("pf", "thd_i", "thd_total", "dc_A", "displacement_factor",
+                              "harmonics_A", "i_rms_A", "v_rms_V")}
+    out.update(metrics.class_a(pq["harmonics_A"], pq["v_rms_V"], pq["i_rms_A"]))
+    bus = metrics.bus_figures(d["vbus_V"][sl])
+    out.update(bus)
+    pw = power_balance(d, prj, sl)
+    out.update(pw)
+    near_peak = np.abs(vs) >= 0.995 * np.max(np.abs(vs))
+    v_pk = float(np.mean(np.abs(vs[near_peak])))
+    il = np.maximum(np.abs(d["i_max_A"][sl]), np.abs(d["i_min_A"][sl]))
+    out["il_peak_A"] = float(il.max())
+    out["il_ripple_at_peak_A"] = float(np.mean((d["i_max_A"][sl] - d["i_min_A"][sl])[near_peak]))
+    vo, C = bus["vbus_mean_V"], prj.resolved.capacitance_F
+    out["il_ripple_formula_A"] = (boost_ripple_pp(v_pk, vo, prj.resolved.inductance_H, fs)
+                                  if v_pk < vo else None)
+    out["vbus_ripple_formula_V"] = pw["p_out_W"] / (2 * math.pi * win.freq_Hz * C * vo)
+    out["zc_spike_A"], out["zc_spike_of_rated"] = metrics.zero_crossing_distortion(
+        vs, i, fs, win.freq_Hz, prj.sizing.iline_peak_A)
+    return out
+
+
+def _events(d: dict, res: RunResult, k: int, smooth: np.ndarray, il_abs: np.ndarray) -> list:
+    scn, t, vout = res.scenarios[k], d["t_s"], res.project.config.spec.vout
+    duration = float(t[-1] + 1.0 / res.project.config.spec.fsw)
+    out = []
+    for ev, (a, b) in zip(scn.events, event_windows(scn, duration), strict=True):
+        info = {"t_s": ev.t_s, "kind": ev.kind, **dict(ev.values), "window_s": [a, b],
+                "band": SETTLE_BAND}
+        sel = (t >= a) & (t < b)
+        if sel.any():
+            info.update(metrics.step_response(t, smooth, a, vout, SETTLE_BAND, b))
+            info["vbus_min_V"] = float(d["vbus_V"][sel].min())
+            info["vbus_max_V"] = float(d["vbus_V"][sel].max())
+            info["il_peak_A"] = float(il_abs[sel].max())
+        out.append(info)
+    return out
+
+
+def dcm_fraction(d: dict, prj: Project) -> float:
+    """Share of the gated periods whose average current is below half the CCM ripple
+    v(1 - v/Vo)/(L fsw) there: discontinuous conduction (or, with the synchronous switch,
+    current reversal within the period), by the boost CCM/DCM boundary of Erickson &
+    Maksimovic, ch. 5 (the period average against half the ripple)."""
+    gated = d["gates"] != 0
+    if not gated.any():
+        return 0.0
+    v, vo = np.abs(d["vterm_V"]), np.maximum(d["vbus_V"], 1.0)
+    ripple = v * np.clip(1.0 - v / vo, 0.0, 1.0) / (prj.resolved.inductance_H * prj.config.spec.fsw)
+    dcm = gated & (np.abs(d["i_avg_A"]) < 0.5 * ripple)
+    return float(np.sum(dcm) / np.sum(gated))
+
+
+def _warnings(d: dict, res: RunResult, dcm: float) -> list[str]:
+    out = []
+    if res.model == "averaged" and dcm > DCM_WARN_FRACTION:
+        out.append(f"averaged model: {100 * dcm:.0f} % of the switching periods are in "
+                   f"discontinuous conduction (more than {100 * DCM_WARN_FRACTION:.0f} %); its "
+                   "light-load and zero-crossing figures are rough there: use the switching model")
+    return out
+
+
 def lane_report(res: RunResult, k: int = 0) -> dict:
-    """Figures of lane ``k``; steady-state figures over the last IEC 61000-4-7 window."""
-    prj = res.project
+    """Every figure of lane ``k``: steady-state figures over the steady window (``None`` when
+    there is none, with the reason), each event over its own window, the whole run."""
+    prj, scn, d = res.project, res.scenarios[k], res.lane(k)
     spec = prj.config.spec
-    scn = res.scenarios[k]
-    d = res.lane(k)
-    fs = spec.fsw
     t = d["t_s"]
-    f_line = scn.freq_Hz
-    for ev in scn.events:
-        if ev.kind == "freq":
-            f_line = ev.get("hz")
-    w = metrics.window_slice(t, f_line)
-    pq = metrics.power_quality(d["vs_V"][w], d["i_avg_A"][w], fs, f_line)
-    bus = metrics.bus_figures(d["vbus_V"][w])
-    e_out = float(np.sum(d["e_out_J"][w]))
-    e_loss = float(np.sum(d["e_loss_J"][w]))
-    p_out = e_out / (len(t[w]) / fs)
-    # inductor ripple at the line peak, against v(1 - v/Vo)/(L fsw)
-    vs_w = d["vs_V"][w]
-    near_peak = np.abs(vs_w) >= 0.995 * np.max(np.abs(vs_w))
-    rip = (d["i_max_A"][w] - d["i_min_A"][w])[near_peak]
-    v_pk = float(np.mean(np.abs(vs_w[near_peak])))
-    rip_formula = boost_ripple_pp(v_pk, bus["vbus_mean_V"], prj.resolved.inductance_H, fs)
-    c_bus = prj.resolved.capacitance_F
-    bus_formula = (
-        p_out / (2 * math.pi * f_line * c_bus * bus["vbus_mean_V"])
-        if bus["vbus_mean_V"] > 0
-        else math.nan
-    )
-    modes = d["mode"].astype(int)
-    faults_seen = int(np.bitwise_or.reduce(d["faults"].astype(int)))
+    win = steady_window(t, d["vs_V"], d["mode"].astype(int), d["vbus_V"], scn, spec.vout,
+                        spec.fsw)
+    rep: dict = {"run": provenance(res, k), "scenario": scn.name, "model": res.model,
+                 "steady": win.steady, "steady_reason": win.reason,
+                 "window_s": [win.start_s, win.end_s] if win.steady else None,
+                 "vbus_ref_V": spec.vout}
+    rep.update(_steady_figures(d, prj, win) if win.steady else dict.fromkeys(STEADY_KEYS))
+    smooth = metrics.half_cycle_mean(d["vbus_V"], spec.fsw, win.freq_Hz)
     il_abs = np.maximum(np.abs(d["i_max_A"]), np.abs(d["i_min_A"]))
-    rep = {
-        "scenario": scn.name,
-        "model": res.model,
-        **{
-            k2: pq[k2]
-            for k2 in (
-                "pf",
-                "thd_i",
-                "thd_i_h40",
-                "displacement_factor",
-                "harmonics_A",
-                "class_a_pass",
-                "class_a_worst_h",
-                "class_a_worst_ratio",
-                "i_rms_A",
-                "v_rms_V",
-                "p_in_W",
-            )
-        },
-        **bus,
-        "vbus_ref_V": spec.vout,
-        "il_peak_A": float(il_abs[w].max()),
-        "efficiency": e_out / (e_out + e_loss) if e_out > 0 else math.nan,
-        "p_out_W": p_out,
-        "il_ripple_at_peak_A": float(np.mean(rip)) if len(rip) else math.nan,
-        "il_ripple_formula_A": rip_formula,
-        "vbus_ripple_formula_V": bus_formula,
-        "zc_spike_ratio": metrics.zero_crossing_spike(
-            d["vs_V"][w], d["i_avg_A"][w], 2.0 * prj.resolved.zc_blank_V, pq["harmonics_A"][0]
-        ),
-        "window_s": [float(t[w][0]), float(t[w][-1] + 1.0 / fs)],
-        "whole_run": {
-            "duration_s": float(t[-1] + 1.0 / fs),
-            "vbus_min_V": float(d["vbus_V"].min()),
-            "vbus_max_V": float(d["vbus_V"].max()),
-            "il_peak_A": float(il_abs.max()),
-            "final_mode": mode_name(int(modes[-1])),
-            "modes_seen": sorted({mode_name(int(m)) for m in np.unique(modes)}),
-            "faults_seen": fault_names(faults_seen),
-            "shoot_through_periods": int(np.sum(d["shoot_through"])),
-        },
-        "events": [],
+    modes = d["mode"].astype(int)
+    dcm = dcm_fraction(d, prj)
+    rep["warnings"] = _warnings(d, res, dcm)
+    rep["whole_run"] = {
+        "duration_s": float(t[-1] + 1.0 / spec.fsw),
+        "vbus_min_V": float(d["vbus_V"].min()),
+        "vbus_max_V": float(d["vbus_V"].max()),
+        "il_peak_A": float(il_abs.max()),
+        "final_mode": mode_name(int(modes[-1])),
+        "modes_seen": sorted({mode_name(int(m)) for m in np.unique(modes)}),
+        "faults_seen": fault_names(int(np.bitwise_or.reduce(d["faults"].astype(int)))),
+        "shoot_through_periods": int(np.sum(d["shoot_through"])),
+        "dcm_fraction": dcm,
     }
-    smooth = metrics.half_cycle_mean(d["vbus_V"], fs, scn.freq_Hz)
-    for ev in scn.events:
-        info = {"t_s": ev.t_s, "kind": ev.kind, **dict(ev.values)}
-        after = t >= ev.t_s
-        if after.any():
-            # over/undershoot and settling of the half-cycle mean bus (ripple removed)
-            info.update(metrics.step_response(t, smooth, ev.t_s, spec.vout))
-            info["vbus_min_after_V"] = float(d["vbus_V"][after].min())
-            info["vbus_max_after_V"] = float(d["vbus_V"][after].max())
-            info["il_peak_after_A"] = float(il_abs[after].max())
-        rep["events"].append(info)
+    rep["events"] = _events(d, res, k, smooth, il_abs)
     return rep
 
 
-def summary_text(rep: dict) -> str:
-    ok = (
-        "pass"
-        if rep["class_a_pass"]
-        else f"FAIL (h{rep['class_a_worst_h']} at {rep['class_a_worst_ratio']:.2f} x limit)"
-    )
-    wr = rep["whole_run"]
-    lines = [
-        f"scenario {rep['scenario']} ({rep['model']} model), window "
-        f"{rep['window_s'][0]:.3f}..{rep['window_s'][1]:.3f} s",
-        f"  PF {rep['pf']:.4f}   THD(i) {100 * rep['thd_i']:.2f} %  (h<=40: "
-        f"{100 * rep['thd_i_h40']:.2f} %)   "
-        f"displacement {rep['displacement_factor']:.4f}   Class A {ok}",
-        f"  line {rep['v_rms_V']:.1f} V rms, {rep['i_rms_A']:.2f} A rms, {rep['p_in_W']:.0f} W in, "
-        f"{rep['p_out_W']:.0f} W out, efficiency {100 * rep['efficiency']:.2f} % (conduction "
-        "losses only)",
+def _fmt(x, spec: str, scale: float = 1.0) -> str:
+    return "n/a" if x is None else format(x * scale, spec)
+
+
+def _steady_lines(rep: dict) -> list[str]:
+    if not rep["steady"]:
+        return [f"  not steady: {rep['steady_reason']}"]
+    if rep["class_a_applicable"]:
+        verdict = "pass" if rep["class_a_pass"] else (
+            f"FAIL (h{rep['class_a_worst_h']} at {rep['class_a_worst_ratio']:.2f} x limit)")
+        ca = f"Class A {verdict} (simulated: not a compliance result)"
+    else:
+        ca = f"Class A not applicable: {rep['class_a_reason']}"
+    losses = ", ".join(f"{k} {v:.2f}" for k, v in rep["losses_W"].items())
+    return [
+        f"  PF {rep['pf']:.4f}   THD(i) {100 * rep['thd_i']:.2f} % (IEC 61000-4-7 groups, "
+        f"h 2..40; total {100 * rep['thd_total']:.2f} %)   DC {rep['dc_A']:.3f} A   "
+        f"displacement {rep['displacement_factor']:.4f}",
+        f"  {ca}",
+        f"  line {rep['v_rms_V']:.1f} V rms, {rep['i_rms_A']:.2f} A rms; at the stage's terminals "
+        f"{rep['p_in_W']:.1f} W in, {rep['p_out_W']:.1f} W out, efficiency "
+        f"{_fmt(rep['efficiency'], '.2f', 100)} % (losses W: {losses}; not modelled: "
+        f"{', '.join(rep['losses_not_modelled'])})",
         f"  bus mean {rep['vbus_mean_V']:.2f} V (ref {rep['vbus_ref_V']:.0f}), ripple "
-        f"{rep['vbus_ripple_pp_V']:.2f} V pp "
-        f"(formula {rep['vbus_ripple_formula_V']:.2f}), min {rep['vbus_min_V']:.1f}, max "
+        f"{rep['vbus_ripple_pp_V']:.2f} V pp (P/(2 pi f C Vo): "
+        f"{rep['vbus_ripple_formula_V']:.2f}), min {rep['vbus_min_V']:.1f}, max "
         f"{rep['vbus_max_V']:.1f} V",
         f"  inductor peak {rep['il_peak_A']:.2f} A, ripple at line peak "
-        f"{rep['il_ripple_at_peak_A']:.2f} A pp "
-        f"(formula {rep['il_ripple_formula_A']:.2f}), zero-crossing spike "
-        f"{100 * rep['zc_spike_ratio']:.1f} % of peak",
-        f"  whole run: bus {wr['vbus_min_V']:.1f}..{wr['vbus_max_V']:.1f} V, current peak "
-        f"{wr['il_peak_A']:.2f} A, "
-        f"final mode {wr['final_mode']}, faults seen: {', '.join(wr['faults_seen']) or 'none'}",
+        f"{rep['il_ripple_at_peak_A']:.2f} A pp (v(1-v/Vo)/(L fsw): "
+        f"{_fmt(rep['il_ripple_formula_A'], '.2f')}), zero-crossing distortion "
+        f"{rep['zc_spike_A']:.2f} A = {100 * rep['zc_spike_of_rated']:.1f} % of rated peak",
     ]
+
+
+def summary_text(rep: dict) -> str:
+    wr = rep["whole_run"]
+    win = rep["window_s"]
+    head = f"scenario {rep['scenario']} ({rep['model']} model)"
+    head += f", window {win[0]:.3f}..{win[1]:.3f} s" if win else ""
+    lines = [head, *_steady_lines(rep)]
+    lines.append(f"  whole run: bus {wr['vbus_min_V']:.1f}..{wr['vbus_max_V']:.1f} V, current peak "
+                 f"{wr['il_peak_A']:.2f} A, final mode {wr['final_mode']}, faults seen: "
+                 f"{', '.join(wr['faults_seen']) or 'none'}, shoot-through periods "
+                 f"{wr['shoot_through_periods']}")
     for ev in rep["events"]:
-        extra = {k: v for k, v in ev.items() if k not in ("t_s", "kind")}
-        lines.append(
-            f"  event {ev['kind']} at {ev['t_s']:.3f} s: "
-            + ", ".join(
-                f"{k} {v:.4g}" if isinstance(v, float) else f"{k} {v}" for k, v in extra.items()
-            )
-        )
+        extra = {k: v for k, v in ev.items() if k not in ("t_s", "kind", "window_s", "band")}
+        lines.append(f"  event {ev['kind']} at {ev['t_s']:.3f} s (to {ev['window_s'][1]:.3f} s): "
+                     + ", ".join(f"{k} {v:.4g}" if isinstance(v, float) else f"{k} {v}"
+                                 for k, v in extra.items()))
+    lines += [f"  warning: {w}" for w in rep["warnings"]]
     return "\n".join(lines)
 
 
 def write_csv(res: RunResult, path: str | Path, k: int = 0) -> None:
-    cols = [
-        "t_s",
-        "vs_V",
-        "vterm_V",
-        "i_avg_A",
-        "i_max_A",
-        "i_min_A",
-        "vbus_V",
-        "duty",
-        "iref_A",
-        "vref_V",
-        "pcmd_W",
-        "compare",
-        "gates",
-        "mode",
-        "faults",
-    ]
     d = res.lane(k)
     with open(path, "w", newline="") as fh:
         wr = csv.writer(fh)
-        wr.writerow(cols)
-        for row in zip(*(d[c] for c in cols), strict=True):
-            wr.writerow([f"{x:.6g}" for x in row])
+        wr.writerow(CSV_COLUMNS)
+        for row in zip(*(d[c] for c in CSV_COLUMNS), strict=True):
+            wr.writerow([f"{x:.10g}" for x in row])

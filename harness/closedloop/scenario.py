@@ -28,7 +28,7 @@ from __future__ import annotations
 
 import math
 import tomllib
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from pathlib import Path
 
 from design.config import ConfigError
@@ -68,6 +68,7 @@ class Scenario:
     offset_counts: tuple[float, float, float] = (0.0, 0.0, 0.0)
     seed: int = 0
     name: str = "scenario"
+    path: str = field(default="", compare=False)  # the file it was read from ("": made in code)
 
 
 def _num(src, where, v, lo, hi):
@@ -160,6 +161,7 @@ def from_dict(d: dict, src: str = "<scenario>") -> Scenario:
         ),
         seed=int(_num(src, "[sensors] seed", sens.get("seed", 0), 0, 2**63)),
         name=str(d.get("name", Path(src).stem)),
+        path=src if src != "<scenario>" else "",
     )
 
 
