@@ -8,7 +8,7 @@ from pathlib import Path
 from design.project import load_project
 
 from .output import clean, dump_json
-from .tables import format_table
+from .tables import eng, format_table
 
 
 def register(sub: argparse._SubParsersAction) -> None:
@@ -38,7 +38,7 @@ def design(args: argparse.Namespace) -> int:
     print(
         format_table(
             ["quantity", "value", "unit", "formula", "source"],
-            [(k, f"{v:.4g}", u, f, src) for k, v, u, f, src in prj.sizing.rows()],
+            [(k, *eng(v, u), f, src) for k, v, u, f, src in prj.sizing.rows()],
         )
     )
     print(
@@ -83,12 +83,19 @@ def design(args: argparse.Namespace) -> int:
     print("\nDerived settings")
     print(
         format_table(
-            ["setting", "value"], [(k, f"{v:.4g}") for k, v in prj.resolved.as_dict().items()]
+            ["setting", "value", "unit"],
+            [(k, *eng(v, _unit_of(k))) for k, v in prj.resolved.as_dict().items()],
         )
     )
     if args.plot:
         print("\nwrote " + ", ".join(doc["plots"]))
     return 0
+
+
+def _unit_of(name: str) -> str:
+    """The unit a ``Resolved`` field's name ends with (``inductance_H`` -> H)."""
+    tail = name.rsplit("_", 1)[-1]
+    return {"H": "H", "F": "F", "Hz": "Hz", "V": "V", "A": "A", "counts": "counts"}.get(tail, "")
 
 
 def bode_plots(tun, out_dir: str) -> list[Path]:
