@@ -139,6 +139,14 @@ def test_cli_run_writes_json_csv_plots(tmp_path, demo_project):
     pf, thd = independent_pf_thd(cols["vs_V"][w], cols["i_avg_A"][w], 50.0)
     assert rep["pf"] == pytest.approx(pf, abs=1e-6)
     assert rep["thd_i"] == pytest.approx(thd, abs=1e-6)
+    # DC and the zero-crossing distortion: the fundamental fitted here by least squares
+    v, i = cols["vs_V"][w], cols["i_avg_A"][w]
+    assert rep["dc_A"] == pytest.approx(float(np.mean(i)), abs=1e-6)
+    tt = cols["t_s"][w]
+    basis = np.column_stack([np.sin(2 * np.pi * 50.0 * tt), np.cos(2 * np.pi * 50.0 * tt)])
+    fund = basis @ np.linalg.lstsq(basis, i, rcond=None)[0]
+    near = np.abs(v) < 0.25 * np.abs(v).max()
+    assert rep["zc_spike_A"] == pytest.approx(float(np.max(np.abs(i - fund)[near])), rel=0.02)
     # power at the terminals and the energy balance from the CSV's per-period energies: the
     # source's energy less the source impedance's share, the load's energy, the stored energy
     # of C (from the capacitor voltage without the ESR drop) and of L

@@ -89,3 +89,31 @@ def test_energy_balance_closes_through_a_dip(demo_project):
     total = sum(rep["losses_W"].values())
     assert abs(rep["balance_residual_W"]) <= 0.005 * total
     assert rep["efficiency"] == rep["p_out_W"] / rep["p_in_W"]
+
+
+@pytest.mark.slow
+def test_a_frequency_step_is_not_inside_the_window(demo_project):
+    """50 -> 52 Hz at 0.3 s: the window is of the new frequency and after the step, so no
+    leakage (a window spanning the step read about 10 % THD where the stage makes ~1-2 %)."""
+    scn = Scenario(duration_s=0.9, vrms_V=230.0, freq_Hz=50.0, load_power_W=1500.0,
+                   events=(Event(0.3, "freq", (("hz", 52.0),)),))
+    rep = report_of(demo_project, scn)
+    assert rep["steady"], rep["steady_reason"]
+    assert rep["window_s"][0] > 0.3
+    assert (rep["window_s"][1] - rep["window_s"][0]) == pytest.approx(10 / 52.0, rel=1e-3)
+    assert rep["thd_i"] < 0.03
+
+
+@pytest.mark.slow
+def test_brown_out_events_each_have_their_own_response(demo_project):
+    """Line down to 60 V at 0.3 s (a brown-out: the stage stops) and back at 0.5 s: the
+    first event's undershoot is the sag, the second's window starts at the return."""
+    scn = Scenario(duration_s=1.1, vrms_V=230.0, freq_Hz=50.0, load_power_W=750.0,
+                   events=(Event(0.3, "vrms", (("vrms", 60.0),)),
+                           Event(0.5, "vrms", (("vrms", 230.0),))))
+    rep = report_of(demo_project, scn)
+    first, second = rep["events"]
+    assert first["window_s"] == [0.3, 0.5] and second["window_s"][0] == 0.5
+    assert first["undershoot_V"] > 50.0
+    assert second["vbus_min_V"] >= first["vbus_min_V"]
+    assert "brownout" in rep["whole_run"]["modes_seen"]

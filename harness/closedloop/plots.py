@@ -90,9 +90,12 @@ def _harmonics_plot(rep: dict, path: Path) -> Path:
     h = np.arange(2, metrics.H_MAX + 1)
     lim = np.array([metrics.class_a_limit_A(int(x)) for x in h])
     fig, ax = plt.subplots(figsize=(10, 4))
-    ax.bar(h, rep["harmonics_A"][1:], color="tab:red", label="measured group (A rms)")
+    ax.bar(h, rep["harmonics_A"][1:], color="tab:red", label="measured group (A rms); bar label: margin to the limit (%)")
     if rep["class_a_applicable"]:
         ax.step(h, lim, where="mid", color="k", lw=1, label="IEC 61000-3-2 Class A limit")
+        for hh, g in zip(h, rep["harmonics_A"][1:], strict=True):  # margin to each limit, %
+            ax.annotate(f"{rep['class_a_margins_pct'][str(hh)]:.0f}", (hh, max(g, 1e-4)),
+                        ha="center", va="bottom", fontsize=5, rotation=90)
         worst = rep["class_a_margins_pct"][str(rep["class_a_worst_h"])]
         verdict = ("pass" if rep["class_a_pass"] else "FAIL") + f", least margin {worst:.0f} % " \
             f"at h{rep['class_a_worst_h']} (simulated: not a compliance result)"
