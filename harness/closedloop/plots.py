@@ -49,8 +49,11 @@ def write_plots(res: RunResult, rep: dict, out_dir: str | Path, k: int = 0) -> l
         label="line current (period average)",
     )
     ax2.set_ylabel("current (A)", color="tab:red")
-    title = (f"line voltage and current: PF {rep['pf']:.4f}, THD {100 * rep['thd_i']:.2f} %"
-             if rep["steady"] else f"line voltage and current (not steady: {rep['steady_reason']})")
+    title = (
+        f"line voltage and current: PF {rep['pf']:.4f}, THD {100 * rep['thd_i']:.2f} %"
+        if rep["steady"]
+        else f"line voltage and current (not steady: {rep['steady_reason']})"
+    )
     ax.set_title(title, fontsize=9)
     fig.legend(loc="upper right", fontsize=8)
     fig.tight_layout()
@@ -90,15 +93,28 @@ def _harmonics_plot(rep: dict, path: Path) -> Path:
     h = np.arange(2, metrics.H_MAX + 1)
     lim = np.array([metrics.class_a_limit_A(int(x)) for x in h])
     fig, ax = plt.subplots(figsize=(10, 4))
-    ax.bar(h, rep["harmonics_A"][1:], color="tab:red", label="measured group (A rms); bar label: margin to the limit (%)")
+    ax.bar(
+        h,
+        rep["harmonics_A"][1:],
+        color="tab:red",
+        label="measured group (A rms); bar label: margin to the limit (%)",
+    )
     if rep["class_a_applicable"]:
         ax.step(h, lim, where="mid", color="k", lw=1, label="IEC 61000-3-2 Class A limit")
         for hh, g in zip(h, rep["harmonics_A"][1:], strict=True):  # margin to each limit, %
-            ax.annotate(f"{rep['class_a_margins_pct'][str(hh)]:.0f}", (hh, max(g, 1e-4)),
-                        ha="center", va="bottom", fontsize=5, rotation=90)
+            ax.annotate(
+                f"{rep['class_a_margins_pct'][str(hh)]:.0f}",
+                (hh, max(g, 1e-4)),
+                ha="center",
+                va="bottom",
+                fontsize=5,
+                rotation=90,
+            )
         worst = rep["class_a_margins_pct"][str(rep["class_a_worst_h"])]
-        verdict = ("pass" if rep["class_a_pass"] else "FAIL") + f", least margin {worst:.0f} % " \
+        verdict = (
+            ("pass" if rep["class_a_pass"] else "FAIL") + f", least margin {worst:.0f} % "
             f"at h{rep['class_a_worst_h']} (simulated: not a compliance result)"
+        )
     else:
         verdict = f"not applicable: {rep['class_a_reason']}"
     ax.set_yscale("log")
