@@ -3,13 +3,13 @@
 from __future__ import annotations
 
 from itertools import groupby
-from pathlib import Path
 from typing import Any
 
 import jinja2
 
 from c_templates import TEMPLATE_DIR
 from design import contract
+from design.config import ConfigError
 from design.constants import build_constants
 from design.project import Project
 
@@ -74,7 +74,6 @@ def _context(prj: Project, **extra: Any) -> dict[str, Any]:
         p=p,
         P=P,
         version=VERSION,
-        source_name=Path(cfg.source).name,
         digest=cfg.digest(),
         number_format=cfg.control.number_format,
         vout=cfg.spec.vout,
@@ -103,8 +102,14 @@ def render(prj: Project, loader: jinja2.BaseLoader | None = None) -> dict[str, s
     consts = build_constants(prj)
     p = prj.config.control.prefix
     fmt = prj.config.control.number_format
-    lits = {k.name: c_literal(k, fmt) for k in consts}
-    base = _context(prj)
+    try:
+        lits = {k.name: c_literal(k, fmt) for k in consts}
+    except ValueError as exc:  # a constant the number format cannot hold
+        raise ConfigError(
+            f'{prj.config.source}: [control] number_format = "{fmt}": {exc}; '
+            'change the key it comes from, or use "float32"'
+        ) from None
+    base = _context(prj, cv={k.name: k.value for k in consts})
     env = environment(loader)
     files: dict[str, str] = {}
     groups = [(g, list(items)) for g, items in groupby(consts, key=lambda k: k.group)]
@@ -151,14 +156,3 @@ def render_link(prj: Project, host_main: bool = False, port: str | None = None) 
             ("link_mps2_an386.ld.j2", f"{p}_mps2_an386.ld"),
         ]
     return {out: env.get_template(t).render(**base, file=out) for t, out in names}
-
-
-def write(files: dict[str, str], out_dir: str | Path) -> list[Path]:
-    out = Path(out_dir)
-    out.mkdir(parents=True, exist_ok=True)
-    paths = []
-    for name in sorted(files):
-        path = out / name
-        path.write_bytes(files[name].encode("utf-8"))
-        paths.append(path)
-    return paths

@@ -12,6 +12,7 @@ import difflib
 import hashlib
 import json
 import math
+import re
 import tomllib
 from dataclasses import dataclass
 from pathlib import Path
@@ -200,10 +201,12 @@ def _check_protection(src: str, s: dict[str, Any], pr: dict[str, Any]) -> None:
 
 def _check_control(src: str, s: dict[str, Any], c: dict[str, Any]) -> None:
     prefix = c["prefix"]
-    if not prefix.isidentifier() or not prefix.isascii() or prefix != prefix.lower():
+    reserved = "__" in prefix or prefix.startswith("cffi")
+    if not re.fullmatch(r"[a-z][a-z0-9_]{0,15}", prefix) or reserved:
         raise ConfigError(
-            f"{where(src, 'control', 'prefix')} = {prefix!r}: must be a lower-case "
-            "ASCII C identifier"
+            f"{where(src, 'control', 'prefix')} = {prefix!r}: must be a lower-case C identifier "
+            "of 1..16 characters that starts with a letter, without '__' (names C reserves) "
+            "and not starting with 'cffi' (the binding's own names)"
         )
     if c["current_bandwidth"] is not None and c["current_bandwidth"] > s["fsw"] / 5.0:
         raise ConfigError(
@@ -228,15 +231,31 @@ def _check_sensing(src: str, se: dict[str, Any]) -> None:
             )
 
 
-def load(path: str | Path) -> Config:
-    """Read and validate a TOML config file."""
+MAX_FILE_B = 1 << 20  # a config or scenario file is at most 1 MiB
+
+
+def read_toml(path: str | Path) -> dict[str, Any]:
+    """A TOML file's tables; any problem reading or parsing it is a ConfigError naming it."""
     path = Path(path)
     try:
-        text = path.read_text(encoding="utf-8")
+        with open(path, "rb") as fh:
+            raw = fh.read(MAX_FILE_B + 1)
     except OSError as exc:
         raise ConfigError(f"{path}: cannot read ({exc.strerror})") from None
+    if len(raw) > MAX_FILE_B:
+        raise ConfigError(f"{path}: larger than {MAX_FILE_B >> 10} KiB: not a pfcrig file")
     try:
-        data = tomllib.loads(text)
+        text = raw.decode("utf-8")
+    except UnicodeDecodeError as exc:
+        raise ConfigError(f"{path}: not UTF-8 text (byte {exc.start})") from None
+    try:
+        return tomllib.loads(text)
     except tomllib.TOMLDecodeError as exc:
         raise ConfigError(f"{path}: not valid TOML ({exc})") from None
-    return from_dict(data, str(path))
+    except RecursionError:
+        raise ConfigError(f"{path}: nested too deeply to be a pfcrig file") from None
+
+
+def load(path: str | Path) -> Config:
+    """Read and validate a TOML config file."""
+    return from_dict(read_toml(path), str(Path(path)))

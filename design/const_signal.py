@@ -138,8 +138,6 @@ def polarity(add: Add, prj: Project) -> None:
     fsw, vb = prj.config.spec.fsw, r.vbus_range_V
     half_min = math.floor(fsw / (2.0 * pr.freq_max * HALF_MIN_FREQ_MARGIN))
     half_max = math.ceil(fsw / (2.0 * pr.freq_min * HALF_MAX_FREQ_MARGIN))
-    if half_max > 65535:
-        raise ValueError("fsw/line frequency ratio too large for 16-bit half-period counters")
     tol = f"{100 * FREQ_TOL:g} % (twice the estimate's error bound)"
     add(
         "ZC_HYST_V",

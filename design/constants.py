@@ -12,8 +12,9 @@ from dataclasses import dataclass
 
 from . import const_control as cc
 from . import const_signal as cs
+from .config import ConfigError, where
 from .project import Project
-from .rules import Add
+from .rules import COUNTER_LIMITS, Add
 
 
 @dataclass(frozen=True)
@@ -66,4 +67,22 @@ def build_constants(prj: Project) -> list[Const]:
             out.append(Const(name, value, kind, unit, doc, origin, group, q[0], q[1]))
 
         rows(add, prj)
+    _check_counters(prj, out)
     return out
+
+
+def _check_counters(prj: Project, consts: list[Const]) -> None:
+    """Every count the firmware keeps in a C counter must fit it: refused, naming the key."""
+    fsw = prj.config.spec.fsw
+    for k in consts:
+        if k.name not in COUNTER_LIMITS:
+            continue
+        lo, hi, (table, key), counter = COUNTER_LIMITS[k.name]
+        if lo <= k.value <= hi:
+            continue
+        value = getattr(getattr(prj.config, table), key)
+        raise ConfigError(
+            f"{where(prj.config.source, table, key)} = {value:g}: gives {k.name} = {k.value:g} "
+            f"{k.unit} ({k.origin}) at fsw = {fsw:g} Hz; the firmware's {counter} holds "
+            f"{lo}..{hi}: change [{table}] {key}"
+        )

@@ -142,6 +142,12 @@ def _check(cfg: Config, r: Resolved) -> None:
             raise ConfigError(
                 f"{src}: [{table}] {key} = {val:g} {unit}: must exceed {what} = {need:.4g} {unit}"
             )
+    period = 1.0 / cfg.spec.fsw
+    if 2.0 * cfg.plant.dead_time >= period:
+        raise ConfigError(
+            f"{src}: [plant] dead_time = {cfg.plant.dead_time:g} s: two dead times (one at each "
+            f"edge) must fit in the PWM period 1/fsw = {period:.4g} s: allowed < {period / 2:.4g} s"
+        )
     if r.pwm_period_counts < MIN_PERIOD_COUNTS:
         raise ConfigError(
             f"{src}: [control] pwm_timer_clock = {cfg.control.pwm_timer_clock:g} Hz: gives "

@@ -44,3 +44,14 @@ def u32(x: float) -> int:
     if v < 0 or v > 0xFFFFFFFF:
         raise ValueError(f"constant {x} does not fit an unsigned 32-bit value")
     return v
+
+
+# C counters the firmware keeps each period count in: constant -> (smallest, largest allowed,
+# the config key it comes from, the counter)
+COUNTER_LIMITS = {
+    "LINE_LOSS_PERIODS": (1, 65535, ("protection", "line_loss_time"), "uint16_t low_cnt"),
+    "RETRY_DELAY_PERIODS": (1, 0xFFFFFFFF, ("protection", "retry_delay"), "uint32_t timer"),
+    "HALF_MAX_PERIODS": (1, 65535, ("spec", "fsw"), "uint16_t since_zc"),
+    "STUCK_PERIODS": (1, 65535, ("spec", "fsw"), "uint16_t stuck_cnt"),
+    "BUS_BLOCK_NOMINAL": (1, 65535, ("spec", "fsw"), "uint16_t blen"),
+}

@@ -1,7 +1,9 @@
 """The config's tables as typed frozen dataclasses: every key with its type, unit, doc,
 default and allowed range, written once (the loader, ``pfcrig init`` and the docs read it).
 
-Units are SI (V, A, W, Hz, H, F, s, ohm); fractions are plain numbers (0.2 = 20 %).  A key
+Units are SI (V, A, W, Hz, H, F, s, ohm); fractions are plain numbers (0.2 = 20 %).  The ranges
+of the ratings are the tool's scope: single-phase lines of 40..300 V rms, buses of 100..1000 V,
+10 W..100 kW, switching at 5 kHz..1 MHz.  A key
 whose default is ``None`` (and that is not required) is derived from the sizing by
 ``design.derive``.
 """
@@ -91,14 +93,20 @@ def keys_of(cls: type) -> dict[str, Key]:
 class SpecTable:
     """``[spec]``: the ratings of the stage."""
 
-    vin_rms_min: float = pos("V", "lowest line voltage at full power (rms)", required=True)
-    vin_rms_max: float = pos("V", "highest line voltage (rms)", required=True)
-    vin_rms_nominal: float = pos("V", "nominal line voltage (rms)", required=True)
+    vin_rms_min: float = key(
+        "V", "lowest line voltage at full power (rms)", required=True, lo=40.0, hi=300.0
+    )
+    vin_rms_max: float = key("V", "highest line voltage (rms)", required=True, lo=40.0, hi=300.0)
+    vin_rms_nominal: float = key(
+        "V", "nominal line voltage (rms)", required=True, lo=40.0, hi=300.0
+    )
     line_freq: float = key("Hz", "nominal line frequency", required=True, lo=45.0, hi=66.0)
-    vout: float = pos("V", "regulated bus voltage", required=True)
-    power: float = pos("W", "rated output power delivered to the bus", required=True)
+    vout: float = key("V", "regulated bus voltage", required=True, lo=100.0, hi=1000.0)
+    power: float = key(
+        "W", "rated output power delivered to the bus", required=True, lo=10.0, hi=100e3
+    )
     efficiency: float = fraction("expected efficiency at full power", 0.96)
-    fsw: float = pos("Hz", "switching frequency of the fast leg", required=True)
+    fsw: float = key("Hz", "switching frequency of the fast leg", required=True, lo=5e3, hi=1e6)
     ripple_current: float = fraction(
         "inductor ripple pk-pk as a fraction of the peak line current at vin_rms_min, full power",
         0.3,
@@ -111,7 +119,7 @@ class SpecTable:
         "s", "time the bus must carry full power after the line is lost", 0.0, lo=0.0, hi=1.0
     )
     vout_min_holdup: float = pos(
-        "V", "lowest bus voltage at the end of hold-up (default 0.75 vout)", None
+        "V", "lowest bus voltage at the end of hold-up (default 0.75 vout)", None, hi=1000.0
     )
 
 
@@ -119,23 +127,28 @@ class SpecTable:
 class PlantTable:
     """``[plant]``: power-stage parts the simulation uses (and the sizing may override)."""
 
-    inductance: float | None = pos("H", "boost inductance (default: from sizing)")
-    capacitance: float | None = pos("F", "bus capacitance (default: from sizing)")
-    inductor_dcr: float = nonneg("ohm", "inductor winding resistance", 0.03)
-    capacitor_esr: float = nonneg("ohm", "bus capacitor equivalent series resistance", 0.05)
-    rds_on_fast: float = nonneg("ohm", "on-resistance of each fast-leg switch", 0.04)
-    rds_on_slow: float = nonneg(
-        "ohm", "on-resistance of each slow-leg switch (or diode slope resistance)", 0.02
+    inductance: float | None = pos("H", "boost inductance (default: from sizing)", hi=1.0)
+    capacitance: float | None = pos("F", "bus capacitance (default: from sizing)", hi=1.0)
+    inductor_dcr: float = nonneg("ohm", "inductor winding resistance", 0.03, hi=10.0)
+    capacitor_esr: float = nonneg(
+        "ohm", "bus capacitor equivalent series resistance", 0.05, hi=10.0
     )
-    dead_time: float = nonneg("s", "dead time the timer inserts at each fast-leg edge", 100e-9)
+    rds_on_fast: float = nonneg("ohm", "on-resistance of each fast-leg switch", 0.04, hi=10.0)
+    rds_on_slow: float = nonneg(
+        "ohm", "on-resistance of each slow-leg switch (or diode slope resistance)", 0.02, hi=10.0
+    )
+    dead_time: float = nonneg(
+        "s", "dead time the timer inserts at each fast-leg edge", 100e-9, hi=10e-6
+    )
     slow_leg: str = key("", "slow-leg devices", "mosfet", choices=("mosfet", "diode"))
-    source_resistance: float = nonneg("ohm", "grid source resistance", 0.05)
-    source_inductance: float = nonneg("H", "grid source inductance", 20e-6)
+    source_resistance: float = nonneg("ohm", "grid source resistance", 0.05, hi=10.0)
+    source_inductance: float = nonneg("H", "grid source inductance", 20e-6, hi=0.01)
     inrush_resistance: float = nonneg(
         "ohm",
         "inrush limiter in series with the line, bypassed by a relay once the bus is "
         "charged (0: none)",
         10.0,
+        hi=1000.0,
     )
 
 
@@ -147,11 +160,11 @@ class ControlTable:
         "", "number format of the generated C", "float32", choices=("float32", "q15")
     )
     prefix: str = key("", "C symbol prefix (lower-case C identifier)", "pfc")
-    current_bandwidth: float | None = pos("Hz", "current-loop crossover (default fsw/15)")
+    current_bandwidth: float | None = pos("Hz", "current-loop crossover (default fsw/15)", hi=1e6)
     current_phase_margin_deg: float = key(
         "deg", "current-loop phase margin", 45.0, lo=20.0, hi=85.0
     )
-    voltage_bandwidth: float = pos("Hz", "voltage-loop crossover", 10.0)
+    voltage_bandwidth: float = pos("Hz", "voltage-loop crossover", 10.0, hi=100.0)
     voltage_phase_margin_deg: float = key(
         "deg", "voltage-loop phase margin", 45.0, lo=20.0, hi=85.0
     )
@@ -162,15 +175,19 @@ class ControlTable:
         lo=0.0,
         hi=4.0,
     )
-    soft_start_time: float = pos("s", "bus reference ramp from the precharged value to vout", 0.1)
+    soft_start_time: float = pos(
+        "s", "bus reference ramp from the precharged value to vout", 0.1, hi=10.0
+    )
     zc_hysteresis: float | None = pos(
-        "V", "polarity comparator hysteresis half-band (default 4 % of the lowest line peak)"
+        "V",
+        "polarity comparator hysteresis half-band (default 4 % of the lowest line peak)",
+        hi=100.0,
     )
     zc_debounce_periods: int = key(
         "periods", "consecutive samples beyond the band before the polarity changes", 2, lo=1, hi=64
     )
     zc_blank_voltage: float | None = pos(
-        "V", "|v| below which neither leg switches (default 8 % of the lowest line peak)"
+        "V", "|v| below which neither leg switches (default 8 % of the lowest line peak)", hi=200.0
     )
     zc_ramp_periods: int = key(
         "periods",
@@ -187,30 +204,32 @@ class ControlTable:
         hi=1000,
     )
     duty_max: float = key("1", "largest main-switch duty", 0.98, lo=0.5, hi=1.0, hi_open=True)
-    pwm_timer_clock: float = pos("Hz", "PWM timer count frequency", 120e6)
+    pwm_timer_clock: float = pos("Hz", "PWM timer count frequency", 120e6, hi=1e10)
 
 
 @dataclass(frozen=True, kw_only=True)
 class ProtectionTable:
     """``[protection]``: trips, brown-out and line-loss rules, retries."""
 
-    ov_trip: float | None = pos("V", "bus over-voltage trip (default 1.1 vout)")
-    oc_trip: float | None = pos("A", "inductor over-current trip (default 1.5 x sized peak)")
+    ov_trip: float | None = pos("V", "bus over-voltage trip (default 1.1 vout)", hi=2000.0)
+    oc_trip: float | None = pos(
+        "A", "inductor over-current trip (default 1.5 x sized peak)", hi=10000.0
+    )
     brownout_off_rms: float | None = pos(
-        "V", "line rms below which the stage stops (default 0.85 vin_rms_min)"
+        "V", "line rms below which the stage stops (default 0.85 vin_rms_min)", hi=300.0
     )
     brownout_on_rms: float | None = pos(
-        "V", "line rms above which the stage may start (default 0.92 vin_rms_min)"
+        "V", "line rms above which the stage may start (default 0.92 vin_rms_min)", hi=300.0
     )
     line_loss_time: float = pos(
-        "s", "time with |v| under the blanking voltage that counts as line loss", 3e-3
+        "s", "time with |v| under the blanking voltage that counts as line loss", 3e-3, hi=1.0
     )
     freq_min: float = key("Hz", "lowest accepted line frequency", 45.0, lo=40.0, hi=70.0)
     freq_max: float = key("Hz", "highest accepted line frequency", 66.0, lo=40.0, hi=70.0)
     retry_limit: int = key(
         "trips", "over-voltage/over-current trips before the fault latches", 3, lo=1, hi=100
     )
-    retry_delay: float = pos("s", "wait after a trip before restarting", 0.02)
+    retry_delay: float = pos("s", "wait after a trip before restarting", 0.02, hi=10.0)
 
 
 @dataclass(frozen=True, kw_only=True)
@@ -219,17 +238,22 @@ class SensingTable:
 
     adc_bits: int = key("bit", "ADC resolution", 12, lo=8, hi=16)
     vac_range: float | None = pos(
-        "V", "line voltage at the top of the bipolar ADC range (default 1.25 x highest line peak)"
+        "V",
+        "line voltage at the top of the bipolar ADC range (default 1.25 x highest line peak)",
+        hi=10000.0,
     )
     il_range: float | None = pos(
         "A",
         "inductor current at the top of the bipolar ADC range (default 1.25 x over-current trip)",
+        hi=100000.0,
     )
     vbus_range: float | None = pos(
-        "V", "bus voltage at ADC full scale (default 1.25 x over-voltage trip)"
+        "V", "bus voltage at ADC full scale (default 1.25 x over-voltage trip)", hi=10000.0
     )
-    vac_offset: float | None = nonneg("counts", "ADC count for 0 V line (default mid-scale)")
-    il_offset: float | None = nonneg("counts", "ADC count for 0 A (default mid-scale)")
+    vac_offset: float | None = nonneg(
+        "counts", "ADC count for 0 V line (default mid-scale)", hi=65535.0
+    )
+    il_offset: float | None = nonneg("counts", "ADC count for 0 A (default mid-scale)", hi=65535.0)
     rail_periods: int = key(
         "periods", "consecutive samples at a rail before a sensor fault", 4, lo=1, hi=1000
     )

@@ -133,6 +133,19 @@ def tune(
     line_freq_Hz: float | None = None,
 ) -> Tuning:
     """Gains for both loops; ``line_freq_Hz`` (default: the spec's) sets the voltage-loop update."""
+    try:
+        return _tune(cfg, inductance_H, capacitance_F, current_bandwidth_Hz, line_freq_Hz)
+    except ConfigError as exc:  # name the file too
+        raise ConfigError(f"{cfg.source}: {exc}") from None
+
+
+def _tune(
+    cfg: Config,
+    inductance_H: float,
+    capacitance_F: float,
+    current_bandwidth_Hz: float,
+    line_freq_Hz: float | None,
+) -> Tuning:
     s, c = cfg.spec, cfg.control
     ts = 1.0 / s.fsw
     fl = s.line_freq if line_freq_Hz is None else line_freq_Hz

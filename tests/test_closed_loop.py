@@ -36,8 +36,10 @@ def independent_pf_thd(v, i, f_line, fs=FSW):
     half = cycles // 2
     weights = np.ones(2 * half + 1)
     weights[0] = weights[-1] = 0.5
-    g = [np.sqrt(np.dot(weights, power[h * cycles - half : h * cycles + half + 1]))
-         for h in range(1, 41)]
+    g = [
+        np.sqrt(np.dot(weights, power[h * cycles - half : h * cycles + half + 1]))
+        for h in range(1, 41)
+    ]
     pf = np.mean(v * i) / (np.sqrt(np.mean(v**2)) * np.sqrt(np.mean(i**2)))
     return float(pf), float(np.sqrt(np.sum(np.square(g[1:]))) / g[0])
 
@@ -124,8 +126,22 @@ def test_averaged_model_tracks_switching_model(high_line, demo_project):
 def test_cli_run_writes_json_csv_plots(tmp_path, demo_project):
     out = tmp_path / "r.json"
     r = subprocess.run(
-        [sys.executable, "-m", "harness.cli", "run", str(DEMO), "--duration", "0.5", "--json",
-         str(out), "--csv", str(tmp_path / "w.csv"), "--plot", str(tmp_path / "p"), "--quiet"],
+        [
+            sys.executable,
+            "-m",
+            "harness.cli",
+            "run",
+            str(DEMO),
+            "--duration",
+            "0.5",
+            "--json",
+            str(out),
+            "--csv",
+            str(tmp_path / "w.csv"),
+            "--plot",
+            str(tmp_path / "p"),
+            "--quiet",
+        ],
         capture_output=True,
         text=True,
     )
@@ -156,11 +172,16 @@ def test_cli_run_writes_json_csv_plots(tmp_path, demo_project):
     tw = len(idx) / FSW
     i2 = cols["i2_A2s"][w].sum()
     ia, ib = cols["i_end_A"][k0 - 1], cols["i_end_A"][k1]
-    p_in = (cols["e_in_J"][w].sum() - pl.source_resistance * i2
-            - 0.5 * pl.source_inductance * (ib**2 - ia**2)) / tw
+    p_in = (
+        cols["e_in_J"][w].sum()
+        - pl.source_resistance * i2
+        - 0.5 * pl.source_inductance * (ib**2 - ia**2)
+    ) / tw
     p_out = cols["e_out_J"][w].sum() / tw
-    stored = (0.5 * res.capacitance_F * (cols["vc_V"][k1] ** 2 - cols["vc_V"][k0 - 1] ** 2)
-              + 0.5 * res.inductance_H * (ib**2 - ia**2)) / tw
+    stored = (
+        0.5 * res.capacitance_F * (cols["vc_V"][k1] ** 2 - cols["vc_V"][k0 - 1] ** 2)
+        + 0.5 * res.inductance_H * (ib**2 - ia**2)
+    ) / tw
     assert rep["p_in_W"] == pytest.approx(p_in, rel=1e-6)
     assert rep["p_out_W"] == pytest.approx(p_out, rel=1e-6)
     assert rep["efficiency"] == rep["p_out_W"] / rep["p_in_W"]

@@ -97,8 +97,12 @@ def test_class_a_pass_and_fail():
 
 @pytest.mark.parametrize(
     "v_rms,i_rms,why",
-    [(120.0, 5.0, "outside 220..240 V"), (90.0, 17.2, "outside 220..240 V"),
-     (230.0, 29.0, "exceeds 16 A"), (264.0, 4.0, "outside 220..240 V")],
+    [
+        (120.0, 5.0, "outside 220..240 V"),
+        (90.0, 17.2, "outside 220..240 V"),
+        (230.0, 29.0, "exceeds 16 A"),
+        (264.0, 4.0, "outside 220..240 V"),
+    ],
 )
 def test_class_a_out_of_scope(v_rms, i_rms, why):
     """IEC 61000-3-2 covers equipment up to 16 A per phase; its Class A limits are given for
@@ -112,8 +116,11 @@ def test_groups_take_the_neighbouring_interharmonics():
     belongs to the h3 group; one 25 Hz above it (the group edge) counts half to each side."""
     f = 50.0
     t, _ = grid_and(f)
-    i = math.sqrt(2) * (np.sin(2 * np.pi * f * t) + 0.3 * np.sin(2 * np.pi * 155.0 * t)
-                        + 0.2 * np.sin(2 * np.pi * 175.0 * t))
+    i = math.sqrt(2) * (
+        np.sin(2 * np.pi * f * t)
+        + 0.3 * np.sin(2 * np.pi * 155.0 * t)
+        + 0.2 * np.sin(2 * np.pi * 175.0 * t)
+    )
     g = metrics.harmonic_groups(i, 10)
     assert g[0] == pytest.approx(1.0, rel=1e-9)
     assert g[2] == pytest.approx(math.sqrt(0.3**2 + 0.2**2 / 2), rel=1e-9)

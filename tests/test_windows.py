@@ -33,15 +33,22 @@ def synthetic(duration, f, t_run, events, settle_s):
 
 
 event_st = st.one_of(
-    st.builds(lambda t, c: Event(t, "dip", (("residual", 0.0), ("cycles", c))),
-              st.floats(0.0, 1.4), st.sampled_from([0.5, 1.0, 10.0, 25.0])),
+    st.builds(
+        lambda t, c: Event(t, "dip", (("residual", 0.0), ("cycles", c))),
+        st.floats(0.0, 1.4),
+        st.sampled_from([0.5, 1.0, 10.0, 25.0]),
+    ),
     st.builds(lambda t: Event(t, "load", (("power", 100.0),)), st.floats(0.0, 1.4)),
 )
 
 
 @settings(max_examples=60, deadline=None)
-@given(f=st.sampled_from([50.0, 60.0]), t_run=st.floats(0.05, 0.6),
-       events=st.lists(event_st, max_size=3), settle=st.floats(0.0, 0.2))
+@given(
+    f=st.sampled_from([50.0, 60.0]),
+    t_run=st.floats(0.05, 0.6),
+    events=st.lists(event_st, max_size=3),
+    settle=st.floats(0.0, 0.2),
+)
 def test_window_never_spans_an_event(f, t_run, events, settle):
     duration = 1.5
     events = sorted(events, key=lambda e: e.t_s)
@@ -50,8 +57,9 @@ def test_window_never_spans_an_event(f, t_run, events, settle):
     w = steady_window(t, vs, mode, vbus, scn, VOUT, FS)
     cycles = 10 if f < 55 else 12
     # the half-cycle mean lags the sag's end by half a cycle, so settling is at least that
-    busy = [(e.t_s, e.t_s + (e.get("cycles") / f if e.kind == "dip" else 0.0) + settle)
-            for e in events]
+    busy = [
+        (e.t_s, e.t_s + (e.get("cycles") / f if e.kind == "dip" else 0.0) + settle) for e in events
+    ]
     latest_start = (math.floor(duration * f - 1e-9) - cycles) / f  # the last whole window
     if w.steady:
         assert w.start_s >= t_run - 1 / FS
@@ -68,9 +76,12 @@ def test_window_never_spans_an_event(f, t_run, events, settle):
 
 
 def test_events_end_at_the_next_event_or_the_run_end():
-    scn = Scenario(duration_s=1.0, vrms_V=230.0, freq_Hz=50.0,
-                   events=(Event(0.4, "load", (("power", 1.0),)),
-                           Event(0.65, "load", (("power", 2.0),))))
+    scn = Scenario(
+        duration_s=1.0,
+        vrms_V=230.0,
+        freq_Hz=50.0,
+        events=(Event(0.4, "load", (("power", 1.0),)), Event(0.65, "load", (("power", 2.0),))),
+    )
     assert event_windows(scn, 1.0) == [(0.4, 0.65), (0.65, 1.0)]
 
 

@@ -12,6 +12,7 @@ from dataclasses import asdict, dataclass, field, replace
 from pathlib import Path
 from typing import Any
 
+from codegen.files import atomic_path
 from design.project import Project, from_config
 from harness.closedloop.loop import RunResult, run
 from harness.closedloop.scenario import Scenario, dumps
@@ -176,7 +177,8 @@ def campaign(
             text = f"# pfcrig fuzz: invariant '{inv}' failed: {v.failed[inv]}\n" + dumps(
                 c.to_scenario(prj, path.stem)
             )
-            path.write_text(text)
+            with atomic_path(path) as tmp:
+                tmp.write_text(text)
             saved.append(path)
             log(f"  saved {path}")
     return CampaignResult(verdicts, time.perf_counter() - t0, saved, shrunk)

@@ -191,8 +191,10 @@ def zc_spike(ln: Lane) -> str | None:
     dev_A, frac = metrics.zero_crossing_distortion(vs, i, fs, f, ln.prj.sizing.iline_peak_A)
     ln.figures["zc_spike_A"], ln.figures["zc_spike_of_rated"] = dev_A, frac
     if frac > ZC_LIMIT_OF_RATED:
-        return (f"zero-crossing distortion {dev_A:.2f} A = {100 * frac:.1f} % of the rated peak "
-                f"line current (bound {100 * ZC_LIMIT_OF_RATED:g} %)")
+        return (
+            f"zero-crossing distortion {dev_A:.2f} A = {100 * frac:.1f} % of the rated peak "
+            f"line current (bound {100 * ZC_LIMIT_OF_RATED:g} %)"
+        )
     return None
 
 

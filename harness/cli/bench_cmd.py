@@ -9,6 +9,7 @@ from importlib import resources
 from design.project import load_project
 from harness.closedloop.bench import bench
 
+from . import checks
 from .output import write_json
 from .tables import format_table
 
@@ -18,7 +19,12 @@ def register(sub: argparse._SubParsersAction) -> None:
         "bench", help="measure the step cost, real-time factors and batch throughput here"
     )
     q.add_argument("--config", help="config to measure (default: the shipped example)")
-    q.add_argument("--sizes", default="1,16,256,1024", help="batch sizes (default 1,16,256,1024)")
+    q.add_argument(
+        "--sizes",
+        type=checks.sizes,
+        default=(1, 16, 256, 1024),
+        help="batch sizes, each 1..4096 (default 1,16,256,1024)",
+    )
     q.add_argument("--json", metavar="OUT")
     q.set_defaults(func=bench_cmd)
 
@@ -26,7 +32,8 @@ def register(sub: argparse._SubParsersAction) -> None:
 def bench_cmd(args: argparse.Namespace) -> int:
     cfg = args.config or str(resources.files("harness").joinpath("data/universal_1k5.toml"))
     prj = load_project(cfg)
-    sizes = tuple(int(x) for x in args.sizes.split(","))
+    checks.output_file(args.json, "--json")
+    sizes = args.sizes
     out = bench(prj, sizes=sizes, log=lambda m: print(m, file=sys.stderr))
     out["config"] = cfg
     t, b256 = out["targets"], out["batch"].get("256", {}).get("scenario_s_per_s")

@@ -5,8 +5,10 @@ from __future__ import annotations
 import argparse
 from pathlib import Path
 
+from codegen.files import atomic_path
 from design.project import load_project
 
+from . import checks
 from .output import clean, dump_json
 from .tables import eng, format_table
 
@@ -20,6 +22,7 @@ def register(sub: argparse._SubParsersAction) -> None:
 
 
 def design(args: argparse.Namespace) -> int:
+    checks.output_dir(args.plot, "--plot")
     prj = load_project(args.config)
     tun = prj.tuning
     doc = {
@@ -129,6 +132,7 @@ def bode_plots(tun, out_dir: str) -> list[Path]:
         )
         fig.tight_layout()
         paths.append(out / f"bode_{kind}.png")
-        fig.savefig(paths[-1], dpi=110)
+        with atomic_path(paths[-1]) as tmp:
+            fig.savefig(tmp, dpi=110, format="png")
         plt.close(fig)
     return paths

@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import argparse
+import os
 import sys
 from dataclasses import asdict
 from pathlib import Path
@@ -11,6 +12,7 @@ from design.project import load_project
 from harness.campaigns import fuzz
 from harness.campaigns.invariants import BOUNDS, INVARIANTS
 
+from . import checks
 from .output import write_json
 from .tables import format_table
 
@@ -19,16 +21,30 @@ def register(sub: argparse._SubParsersAction) -> None:
     q = sub.add_parser("fuzz", help="property-based fault campaign in closed loop")
     q.add_argument("config")
     q.add_argument(
-        "--examples", type=int, default=200, metavar="N", help="cases to draw (default 200)"
+        "--examples",
+        type=checks.number(int, 1, 1_000_000),
+        default=200,
+        metavar="N",
+        help="cases to draw (default 200)",
     )
-    q.add_argument("--seed", type=int, default=0, metavar="S")
-    q.add_argument("--workers", type=int, default=2, metavar="K", help="processes (default 2)")
+    q.add_argument("--seed", type=checks.number(int, 0, 2**32 - 1), default=0, metavar="S")
     q.add_argument(
-        "--batch", type=int, default=128, metavar="B", help="cases per lockstep batch (default 128)"
+        "--workers",
+        type=checks.workers,
+        default=min(2, os.cpu_count() or 1),
+        metavar="K",
+        help="processes, at most this machine's cores (default 2)",
+    )
+    q.add_argument(
+        "--batch",
+        type=checks.number(int, 1, 4096),
+        default=128,
+        metavar="B",
+        help="cases per lockstep batch (default 128)",
     )
     q.add_argument(
         "--max-event-cycles",
-        type=float,
+        type=checks.number(float, 0.5, 300.0),
         default=12.0,
         metavar="C",
         help="cap on dip/interruption length in line cycles (IEC 61000-4-11 goes to 250/300)",
@@ -45,6 +61,8 @@ def register(sub: argparse._SubParsersAction) -> None:
 
 
 def fuzz_cmd(args: argparse.Namespace) -> int:
+    checks.output_dir(args.out, "--out")
+    checks.output_file(args.json, "--json")
     prj = load_project(args.config)
     out_dir = Path(args.out)
     res = fuzz.campaign(

@@ -6,9 +6,11 @@ import argparse
 import sys
 
 from codegen import target
-from codegen.render import render, render_link, write
+from codegen.files import write_folder
+from codegen.render import render, render_link
 from design.project import Project, load_project
 
+from . import checks
 from .tables import format_table
 
 
@@ -33,12 +35,13 @@ def register(sub: argparse._SubParsersAction) -> None:
 
 
 def generate(args: argparse.Namespace) -> int:
+    checks.output_dir(args.output, "-o")
     prj = load_project(args.config)
     files = render(prj)
     extra = {}
     if args.with_link:
         extra = render_link(prj)
-    paths = write({**files, **extra}, args.output)
+    paths = write_folder({**files, **extra}, args.output)
     print(f"wrote {len(paths)} files to {args.output} (config digest {prj.config.digest()})")
     if extra:
         p = prj.config.control.prefix

@@ -9,9 +9,12 @@ from importlib import resources
 from pathlib import Path
 from typing import Any
 
+from codegen.files import atomic_path
 from design.config import ConfigError, load
 from design.project import from_config
 from design.schema import SCHEMA
+
+from . import checks
 
 HEADER = """# pfcrig config: 1.5 kW universal-input totem-pole PFC front end (demo scenario).
 # Units are SI (V, A, W, Hz, H, F, s, ohm); fractions are plain numbers (0.3 = 30 %).
@@ -81,12 +84,14 @@ def example_text() -> str:
 
 
 def init(args: argparse.Namespace) -> int:
+    checks.output_dir(args.dir, "init folder")
     out = Path(args.dir)
     target = out / "pfcrig.toml"
     if target.exists() and not args.force:
         raise ConfigError(f"{target}: exists already (use --force to overwrite)")
     out.mkdir(parents=True, exist_ok=True)
-    target.write_text(example_text(), encoding="utf-8")
+    with atomic_path(target) as tmp:
+        tmp.write_text(example_text(), encoding="utf-8")
     print(f"wrote {target}")
     print(f"next: pfcrig design {target}")
     return 0

@@ -10,6 +10,7 @@ from design.config import ConfigError
 from harness.targets.link import LinkError
 
 from . import bench_cmd, design_cmd, fuzz_cmd, generate_cmd, init_cmd, pil_cmd, run_cmd
+from .checks import UsageError
 
 CAUTION = (
     "CAUTION: a PFC bus (~400 V DC) is lethal. pfcrig output is reference material, to be "
@@ -26,6 +27,11 @@ def build_parser() -> argparse.ArgumentParser:
         "closed loop.",
         epilog=CAUTION,
     )
+    p.add_argument(
+        "--debug",
+        action="store_true",
+        help="show the traceback of an internal error (please report it)",
+    )
     sub = p.add_subparsers(dest="command", required=True, metavar="COMMAND")
     for module in COMMANDS:
         module.register(sub)
@@ -37,7 +43,7 @@ def main(argv: list[str] | None = None) -> int:
     args = parser.parse_args(argv)
     try:
         return int(args.func(args) or 0)
-    except ConfigError as exc:
+    except (ConfigError, UsageError) as exc:
         print(f"pfcrig: error: {exc}", file=sys.stderr)
         return 2
     except BuildError as exc:
@@ -52,3 +58,15 @@ def main(argv: list[str] | None = None) -> int:
     except KeyboardInterrupt:
         print("pfcrig: interrupted", file=sys.stderr)
         return 130
+    except OSError as exc:  # a file or folder the command could not use
+        print(f"pfcrig: error: {exc}", file=sys.stderr)
+        return 1
+    except Exception as exc:  # a defect of pfcrig: one line, the traceback with --debug
+        if args.debug:
+            raise
+        print(
+            f"pfcrig: internal error: {type(exc).__name__}: {exc} (please report this; "
+            "run again with --debug for the traceback)",
+            file=sys.stderr,
+        )
+        return 1

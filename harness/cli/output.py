@@ -9,9 +9,13 @@ import sys
 from dataclasses import replace
 from typing import IO, Any
 
+from codegen.files import atomic_path
 from design.project import Project
+from harness.closedloop.loop import RECORD_BYTES_PER_PERIOD
 from harness.closedloop.scenario import Scenario, default_for
 from harness.closedloop.scenario import load as load_scenario
+
+from .checks import UsageError, run_length
 
 
 def dump_json(obj: Any, fh: IO[str] | None = None) -> None:
@@ -22,7 +26,7 @@ def dump_json(obj: Any, fh: IO[str] | None = None) -> None:
 
 def write_json(path: str, doc: Any) -> None:
     """Write a report as JSON (non-finite floats as null) and say so."""
-    with open(path, "w") as fh:
+    with atomic_path(path) as tmp, open(tmp, "w") as fh:
         dump_json(clean(doc), fh)
     print(f"wrote {path}")
 
@@ -34,7 +38,14 @@ def scenario_of(args: Any, prj: Project, default_duration_s: float) -> Scenario:
         if args.scenario
         else default_for(prj.config.spec, default_duration_s)
     )
-    return replace(scn, duration_s=args.duration) if args.duration else scn
+    scn = replace(scn, duration_s=args.duration) if args.duration is not None else scn
+    late = [ev.t_s for ev in scn.events if ev.t_s >= scn.duration_s]
+    if late:
+        raise UsageError(
+            f"--duration {scn.duration_s:g} s ends before the scenario's event at {late[0]:g} s"
+        )
+    run_length(scn.duration_s, prj.config.spec.fsw, 1, RECORD_BYTES_PER_PERIOD)
+    return scn
 
 
 def _jsonable(x: Any) -> Any:

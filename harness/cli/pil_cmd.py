@@ -10,6 +10,7 @@ from harness.closedloop import report
 from harness.closedloop.loop import run
 from harness.targets.pil import FLOAT32_INSN_LIMIT, TARGETS, compare_outputs, run_pil
 
+from . import checks
 from .output import scenario_of, write_json
 
 PIL_DEFAULT_S = 0.5  # s: start-up (~0.22 s) and one IEC 61000-4-7 window fit (README)
@@ -37,15 +38,19 @@ def register(sub: argparse._SubParsersAction) -> None:
     )
     q.add_argument(
         "--baud",
-        type=int,
+        type=checks.number(int, 50, 20_000_000),
         default=115200,
         metavar="N",
         help="serial bit rate (default 115200, 8N1)",
     )
     q.add_argument("--scenario", metavar="FILE")
-    q.add_argument("--duration", type=float, metavar="S")
+    q.add_argument("--duration", type=checks.number(float, 0.0, lo_open=True), metavar="S")
     q.add_argument(
-        "--timeout", type=float, default=2.0, metavar="S", help="answer timeout per frame (s)"
+        "--timeout",
+        type=checks.number(float, 0.0, 600.0, lo_open=True),
+        default=2.0,
+        metavar="S",
+        help="answer timeout per frame (s)",
     )
     q.add_argument(
         "--json", metavar="OUT", help="write the report (partial if the target stops answering)"
@@ -54,6 +59,7 @@ def register(sub: argparse._SubParsersAction) -> None:
 
 
 def pil_cmd(args: argparse.Namespace) -> int:
+    checks.output_file(args.json, "--json")
     if args.target == "serial" and not args.port:
         print(
             "pfcrig pil: --target serial needs --port (a device such as /dev/ttyUSB0, or a "

@@ -8,6 +8,7 @@ from design.project import load_project
 from harness.closedloop import plots, report
 from harness.closedloop.loop import run
 
+from . import checks
 from .output import scenario_of, write_json
 
 
@@ -20,7 +21,12 @@ def register(sub: argparse._SubParsersAction) -> None:
         "--scenario", metavar="FILE", help="scenario TOML (default: nominal line, full load, 0.6 s)"
     )
     q.add_argument("--model", choices=["switching", "averaged"], default="switching")
-    q.add_argument("--duration", type=float, metavar="S", help="override the scenario duration (s)")
+    q.add_argument(
+        "--duration",
+        type=checks.number(float, 0.0, lo_open=True),
+        metavar="S",
+        help="override the scenario duration (s)",
+    )
     q.add_argument("--json", metavar="OUT", help="write the report as JSON")
     q.add_argument("--csv", metavar="FILE", help="write the per-period waveforms as CSV")
     q.add_argument("--plot", metavar="DIR", help="write PNG plots")
@@ -29,6 +35,9 @@ def register(sub: argparse._SubParsersAction) -> None:
 
 
 def run_cmd(args: argparse.Namespace) -> int:
+    checks.output_file(args.json, "--json")
+    checks.output_file(args.csv, "--csv")
+    checks.output_dir(args.plot, "--plot")
     prj = load_project(args.config)
     scn = scenario_of(args, prj, 0.6)
     res = run(prj, [scn], model=args.model, progress=not args.quiet)
@@ -39,7 +48,8 @@ def run_cmd(args: argparse.Namespace) -> int:
     if args.json:
         write_json(args.json, rep)
     if args.csv:
-        report.write_csv(res, args.csv)
+        with checks.atomic_path(args.csv) as tmp:
+            report.write_csv(res, tmp)
         print(f"wrote {args.csv}")
     if args.plot:
         paths = plots.write_plots(res, rep, args.plot)

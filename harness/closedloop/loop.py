@@ -31,6 +31,8 @@ from .scenario import Scenario
 
 PWM_DTYPE = np.dtype([(f.name, f.dtype) for f in OUTPUT_FIELDS])
 N_PROBES = len(PROBES)
+# bytes of records one lane keeps per period (plant figures, outputs, internals)
+RECORD_BYTES_PER_PERIOD = 8 * len(PLANT_FIELDS) + PWM_DTYPE.itemsize + 4 * N_PROBES
 RECORDED = (
     "t_s",
     *PLANT_FIELDS,

@@ -75,8 +75,9 @@ def harmonic_groups(x: np.ndarray, cycles: int, h_max: int = H_MAX) -> np.ndarra
     return out
 
 
-def power_quality(v: np.ndarray, i: np.ndarray, fs_Hz: float, f_line_Hz: float,
-                  cycles: int | None = None) -> dict:
+def power_quality(
+    v: np.ndarray, i: np.ndarray, fs_Hz: float, f_line_Hz: float, cycles: int | None = None
+) -> dict:
     """PF, displacement factor, THD (groups and total), DC and harmonic groups of current
     ``i`` (A) against voltage ``v`` (V) over a window of ``cycles`` whole line cycles."""
     v, i = np.asarray(v, dtype=float), np.asarray(i, dtype=float)
@@ -109,14 +110,24 @@ def class_a(groups_A: list[float], v_rms_V: float, i_rms_A: float) -> dict:
     lo, hi = CLASS_A_LINE_V
     reason = ""
     if not lo <= v_rms_V <= hi:
-        reason = (f"line {v_rms_V:.1f} V rms is outside {lo:g}..{hi:g} V (the Class A limits "
-                  "are defined at 230 V)")
+        reason = (
+            f"line {v_rms_V:.1f} V rms is outside {lo:g}..{hi:g} V (the Class A limits "
+            "are defined at 230 V)"
+        )
     elif i_rms_A > CLASS_A_MAX_INPUT_A:
-        reason = (f"input {i_rms_A:.2f} A rms exceeds {CLASS_A_MAX_INPUT_A:g} A per phase "
-                  "(outside IEC 61000-3-2; IEC 61000-3-12 covers it)")
+        reason = (
+            f"input {i_rms_A:.2f} A rms exceeds {CLASS_A_MAX_INPUT_A:g} A per phase "
+            "(outside IEC 61000-3-2; IEC 61000-3-12 covers it)"
+        )
     if reason:
-        return {"class_a_applicable": False, "class_a_reason": reason, "class_a_pass": None,
-                "class_a_worst_h": None, "class_a_worst_ratio": None, "class_a_margins_pct": None}
+        return {
+            "class_a_applicable": False,
+            "class_a_reason": reason,
+            "class_a_pass": None,
+            "class_a_worst_h": None,
+            "class_a_worst_ratio": None,
+            "class_a_margins_pct": None,
+        }
     limits = np.array([class_a_limit_A(h) for h in range(2, H_MAX + 1)])
     ratio = np.asarray(groups_A[1:]) / limits
     return {
@@ -125,13 +136,16 @@ def class_a(groups_A: list[float], v_rms_V: float, i_rms_A: float) -> dict:
         "class_a_pass": bool(np.all(ratio <= 1.0)),
         "class_a_worst_h": int(np.argmax(ratio) + 2),
         "class_a_worst_ratio": float(np.max(ratio)),
-        "class_a_margins_pct": {str(h): float(100.0 * (1.0 - r))
-                                for h, r in zip(range(2, H_MAX + 1), ratio, strict=True)},
+        "class_a_margins_pct": {
+            str(h): float(100.0 * (1.0 - r))
+            for h, r in zip(range(2, H_MAX + 1), ratio, strict=True)
+        },
     }
 
 
-def zero_crossing_distortion(v: np.ndarray, i: np.ndarray, fs_Hz: float, f_line_Hz: float,
-                             rated_peak_A: float) -> tuple[float, float]:
+def zero_crossing_distortion(
+    v: np.ndarray, i: np.ndarray, fs_Hz: float, f_line_Hz: float, rated_peak_A: float
+) -> tuple[float, float]:
     """(A, fraction of ``rated_peak_A``): the largest deviation of the period-average line
     current from the window's fundamental component where |v| is below
     ``ZC_REGION_OF_PEAK`` of the line peak (the blanking, the duty ramp and the
@@ -167,8 +181,14 @@ def half_cycle_mean(x: np.ndarray, fs_Hz: float, f_line_Hz: float) -> np.ndarray
     return (c[k] - c[lo]) / (k - lo)
 
 
-def step_response(t_s: np.ndarray, v: np.ndarray, t_step: float, ref: float,
-                  band: float = 0.02, t_end: float = math.inf) -> dict:
+def step_response(
+    t_s: np.ndarray,
+    v: np.ndarray,
+    t_step: float,
+    ref: float,
+    band: float = 0.02,
+    t_end: float = math.inf,
+) -> dict:
     """Over/undershoot (V) of ``v`` against ``ref`` and settling time (s, into +-band x ref
     for good) between ``t_step`` and ``t_end``; ``settled`` False when it is still outside
     the band at ``t_end``."""
@@ -183,6 +203,9 @@ def step_response(t_s: np.ndarray, v: np.ndarray, t_step: float, ref: float,
         settle = math.inf
     else:
         settle = float(tt[np.nonzero(out)[0][-1] + 1] - t_step)
-    return {"overshoot_V": float(max(vv.max() - ref, 0.0)),
-            "undershoot_V": float(max(ref - vv.min(), 0.0)),
-            "settling_s": settle, "settled": bool(math.isfinite(settle))}
+    return {
+        "overshoot_V": float(max(vv.max() - ref, 0.0)),
+        "undershoot_V": float(max(ref - vv.min(), 0.0)),
+        "settling_s": settle,
+        "settled": bool(math.isfinite(settle)),
+    }

@@ -45,8 +45,9 @@ def power_balance(d: dict[str, np.ndarray], prj: Project, sl: slice) -> dict:
         "capacitor": float(np.sum(d["e_esr_J"][sl])) / tw,
         "inrush": max(float(np.sum(d["e_loss_J"][sl])) - r_series * i2, 0.0) / tw,
     }
-    stored = (0.5 * r.capacitance_F * (vc_b**2 - vc_a**2)
-              + 0.5 * r.inductance_H * (i_b**2 - i_a**2)) / tw
+    stored = (
+        0.5 * r.capacitance_F * (vc_b**2 - vc_a**2) + 0.5 * r.inductance_H * (i_b**2 - i_a**2)
+    ) / tw
     p_in, p_out = e_term / tw, float(np.sum(d["e_out_J"][sl])) / tw
     return {
         "p_in_W": p_in,

@@ -22,17 +22,64 @@ from .windows import SETTLE_BAND, Window, event_windows, steady_window
 
 MODE_NAMES = [m.name.lower() for m in Mode]
 DCM_WARN_FRACTION = 0.30  # averaged model: warn above this share of gated periods in DCM (README)
-CSV_COLUMNS = ["t_s", "vs_V", "vterm_V", "i_avg_A", "i_max_A", "i_min_A", "vbus_V", "vc_V",
-               "i_end_A", "duty", "iref_A", "vref_V", "pcmd_W", "compare", "gates", "mode",
-               "faults", "e_in_J", "e_out_J", "e_loss_J", "e_esr_J", "i2_A2s"]
-STEADY_KEYS = ("pf", "thd_i", "thd_total", "dc_A", "displacement_factor", "harmonics_A",
-               "i_rms_A", "v_rms_V", "class_a_applicable", "class_a_reason", "class_a_pass",
-               "class_a_worst_h", "class_a_worst_ratio", "class_a_margins_pct", "vbus_mean_V",
-               "vbus_ripple_pp_V", "vbus_min_V", "vbus_max_V", "il_peak_A",
-               "il_ripple_at_peak_A", "il_ripple_formula_A", "vbus_ripple_formula_V",
-               "zc_spike_A", "zc_spike_of_rated", "p_in_W", "p_source_W", "p_out_W",
-               "efficiency", "losses_W", "losses_not_modelled", "stored_change_W",
-               "balance_residual_W")
+CSV_COLUMNS = [
+    "t_s",
+    "vs_V",
+    "vterm_V",
+    "i_avg_A",
+    "i_max_A",
+    "i_min_A",
+    "vbus_V",
+    "vc_V",
+    "i_end_A",
+    "duty",
+    "iref_A",
+    "vref_V",
+    "pcmd_W",
+    "compare",
+    "gates",
+    "mode",
+    "faults",
+    "e_in_J",
+    "e_out_J",
+    "e_loss_J",
+    "e_esr_J",
+    "i2_A2s",
+]
+STEADY_KEYS = (
+    "pf",
+    "thd_i",
+    "thd_total",
+    "dc_A",
+    "displacement_factor",
+    "harmonics_A",
+    "i_rms_A",
+    "v_rms_V",
+    "class_a_applicable",
+    "class_a_reason",
+    "class_a_pass",
+    "class_a_worst_h",
+    "class_a_worst_ratio",
+    "class_a_margins_pct",
+    "vbus_mean_V",
+    "vbus_ripple_pp_V",
+    "vbus_min_V",
+    "vbus_max_V",
+    "il_peak_A",
+    "il_ripple_at_peak_A",
+    "il_ripple_formula_A",
+    "vbus_ripple_formula_V",
+    "zc_spike_A",
+    "zc_spike_of_rated",
+    "p_in_W",
+    "p_source_W",
+    "p_out_W",
+    "efficiency",
+    "losses_W",
+    "losses_not_modelled",
+    "stored_change_W",
+    "balance_residual_W",
+)
 _DIGESTS: dict[str, str] = {}
 
 
@@ -59,17 +106,34 @@ def firmware_digest(prj: Project) -> str:
 
 def provenance(res: RunResult, k: int) -> dict:
     prj, scn = res.project, res.scenarios[k]
-    return {"config_path": prj.config.source, "config_digest": prj.config.digest(),
-            "scenario": scn.name, "scenario_path": scn.path or "default", "model": res.model,
-            "pfcrig_version": VERSION, "firmware_digest": firmware_digest(prj)}
+    return {
+        "config_path": prj.config.source,
+        "config_digest": prj.config.digest(),
+        "scenario": scn.name,
+        "scenario_path": scn.path or "default",
+        "model": res.model,
+        "pfcrig_version": VERSION,
+        "firmware_digest": firmware_digest(prj),
+    }
 
 
 def _steady_figures(d: dict, prj: Project, win: Window) -> dict:
     fs, sl = prj.config.spec.fsw, win.slice(prj.config.spec.fsw)
     vs, i = d["vs_V"][sl], d["i_avg_A"][sl]
     pq = metrics.power_quality(vs, i, fs, win.freq_Hz, win.cycles)
-    out = {k: pq[k] for k in ("pf", "thd_i", "thd_total", "dc_A", "displacement_factor",
-                              "harmonics_A", "i_rms_A", "v_rms_V")}
+    out = {
+        k: pq[k]
+        for k in (
+            "pf",
+            "thd_i",
+            "thd_total",
+            "dc_A",
+            "displacement_factor",
+            "harmonics_A",
+            "i_rms_A",
+            "v_rms_V",
+        )
+    }
     out.update(metrics.class_a(pq["harmonics_A"], pq["v_rms_V"], pq["i_rms_A"]))
     bus = metrics.bus_figures(d["vbus_V"][sl])
     out.update(bus)
@@ -81,11 +145,13 @@ def _steady_figures(d: dict, prj: Project, win: Window) -> dict:
     out["il_peak_A"] = float(il.max())
     out["il_ripple_at_peak_A"] = float(np.mean((d["i_max_A"][sl] - d["i_min_A"][sl])[near_peak]))
     vo, C = bus["vbus_mean_V"], prj.resolved.capacitance_F
-    out["il_ripple_formula_A"] = (boost_ripple_pp(v_pk, vo, prj.resolved.inductance_H, fs)
-                                  if v_pk < vo else None)
+    out["il_ripple_formula_A"] = (
+        boost_ripple_pp(v_pk, vo, prj.resolved.inductance_H, fs) if v_pk < vo else None
+    )
     out["vbus_ripple_formula_V"] = pw["p_out_W"] / (2 * math.pi * win.freq_Hz * C * vo)
     out["zc_spike_A"], out["zc_spike_of_rated"] = metrics.zero_crossing_distortion(
-        vs, i, fs, win.freq_Hz, prj.sizing.iline_peak_A)
+        vs, i, fs, win.freq_Hz, prj.sizing.iline_peak_A
+    )
     return out
 
 
@@ -94,8 +160,13 @@ def _events(d: dict, res: RunResult, k: int, smooth: np.ndarray, il_abs: np.ndar
     duration = float(t[-1] + 1.0 / res.project.config.spec.fsw)
     out = []
     for ev, (a, b) in zip(scn.events, event_windows(scn, duration), strict=True):
-        info = {"t_s": ev.t_s, "kind": ev.kind, **dict(ev.values), "window_s": [a, b],
-                "band": SETTLE_BAND}
+        info = {
+            "t_s": ev.t_s,
+            "kind": ev.kind,
+            **dict(ev.values),
+            "window_s": [a, b],
+            "band": SETTLE_BAND,
+        }
         sel = (t >= a) & (t < b)
         if sel.any():
             info.update(metrics.step_response(t, smooth, a, vout, SETTLE_BAND, b))
@@ -123,9 +194,11 @@ def dcm_fraction(d: dict, prj: Project) -> float:
 def _warnings(d: dict, res: RunResult, dcm: float) -> list[str]:
     out = []
     if res.model == "averaged" and dcm > DCM_WARN_FRACTION:
-        out.append(f"averaged model: {100 * dcm:.0f} % of the switching periods are in "
-                   f"discontinuous conduction (more than {100 * DCM_WARN_FRACTION:.0f} %); its "
-                   "light-load and zero-crossing figures are rough there: use the switching model")
+        out.append(
+            f"averaged model: {100 * dcm:.0f} % of the switching periods are in "
+            f"discontinuous conduction (more than {100 * DCM_WARN_FRACTION:.0f} %); its "
+            "light-load and zero-crossing figures are rough there: use the switching model"
+        )
     return out
 
 
@@ -135,12 +208,16 @@ def lane_report(res: RunResult, k: int = 0) -> dict:
     prj, scn, d = res.project, res.scenarios[k], res.lane(k)
     spec = prj.config.spec
     t = d["t_s"]
-    win = steady_window(t, d["vs_V"], d["mode"].astype(int), d["vbus_V"], scn, spec.vout,
-                        spec.fsw)
-    rep: dict = {"run": provenance(res, k), "scenario": scn.name, "model": res.model,
-                 "steady": win.steady, "steady_reason": win.reason,
-                 "window_s": [win.start_s, win.end_s] if win.steady else None,
-                 "vbus_ref_V": spec.vout}
+    win = steady_window(t, d["vs_V"], d["mode"].astype(int), d["vbus_V"], scn, spec.vout, spec.fsw)
+    rep: dict = {
+        "run": provenance(res, k),
+        "scenario": scn.name,
+        "model": res.model,
+        "steady": win.steady,
+        "steady_reason": win.reason,
+        "window_s": [win.start_s, win.end_s] if win.steady else None,
+        "vbus_ref_V": spec.vout,
+    }
     rep.update(_steady_figures(d, prj, win) if win.steady else dict.fromkeys(STEADY_KEYS))
     smooth = metrics.half_cycle_mean(d["vbus_V"], spec.fsw, win.freq_Hz)
     il_abs = np.maximum(np.abs(d["i_max_A"]), np.abs(d["i_min_A"]))
@@ -170,8 +247,11 @@ def _steady_lines(rep: dict) -> list[str]:
     if not rep["steady"]:
         return [f"  not steady: {rep['steady_reason']}"]
     if rep["class_a_applicable"]:
-        verdict = "pass" if rep["class_a_pass"] else (
-            f"FAIL (h{rep['class_a_worst_h']} at {rep['class_a_worst_ratio']:.2f} x limit)")
+        verdict = (
+            "pass"
+            if rep["class_a_pass"]
+            else (f"FAIL (h{rep['class_a_worst_h']} at {rep['class_a_worst_ratio']:.2f} x limit)")
+        )
         ca = f"Class A {verdict} (simulated: not a compliance result)"
     else:
         ca = f"Class A not applicable: {rep['class_a_reason']}"
@@ -202,15 +282,20 @@ def summary_text(rep: dict) -> str:
     head = f"scenario {rep['scenario']} ({rep['model']} model)"
     head += f", window {win[0]:.3f}..{win[1]:.3f} s" if win else ""
     lines = [head, *_steady_lines(rep)]
-    lines.append(f"  whole run: bus {wr['vbus_min_V']:.1f}..{wr['vbus_max_V']:.1f} V, current peak "
-                 f"{wr['il_peak_A']:.2f} A, final mode {wr['final_mode']}, faults seen: "
-                 f"{', '.join(wr['faults_seen']) or 'none'}, shoot-through periods "
-                 f"{wr['shoot_through_periods']}")
+    lines.append(
+        f"  whole run: bus {wr['vbus_min_V']:.1f}..{wr['vbus_max_V']:.1f} V, current peak "
+        f"{wr['il_peak_A']:.2f} A, final mode {wr['final_mode']}, faults seen: "
+        f"{', '.join(wr['faults_seen']) or 'none'}, shoot-through periods "
+        f"{wr['shoot_through_periods']}"
+    )
     for ev in rep["events"]:
         extra = {k: v for k, v in ev.items() if k not in ("t_s", "kind", "window_s", "band")}
-        lines.append(f"  event {ev['kind']} at {ev['t_s']:.3f} s (to {ev['window_s'][1]:.3f} s): "
-                     + ", ".join(f"{k} {v:.4g}" if isinstance(v, float) else f"{k} {v}"
-                                 for k, v in extra.items()))
+        lines.append(
+            f"  event {ev['kind']} at {ev['t_s']:.3f} s (to {ev['window_s'][1]:.3f} s): "
+            + ", ".join(
+                f"{k} {v:.4g}" if isinstance(v, float) else f"{k} {v}" for k, v in extra.items()
+            )
+        )
     lines += [f"  warning: {w}" for w in rep["warnings"]]
     return "\n".join(lines)
 

@@ -27,11 +27,10 @@ cycles = 1.0
 from __future__ import annotations
 
 import math
-import tomllib
 from dataclasses import dataclass, field
 from pathlib import Path
 
-from design.config import ConfigError
+from design.config import ConfigError, read_toml
 
 EVENT_KEYS = {
     "dip": {"residual": (0.0, 1.0), "cycles": (0.0, 10000.0)},
@@ -95,40 +94,60 @@ def _triple(src, where, v, lo, hi):
     return tuple(_num(src, where, x, lo, hi) for x in v)
 
 
+def _table(src: str, d: dict, name: str) -> dict:
+    v = d.get(name, {})
+    if not isinstance(v, dict):
+        raise ConfigError(f"{src}: {name} = {v!r}: expected a table [{name}]")
+    return v
+
+
+def _list(src: str, where: str, v: object) -> list:
+    if not isinstance(v, list):
+        raise ConfigError(f"{src}: {where} = {v!r}: expected a list")
+    return v
+
+
+def _whole(src: str, where: str, v: object, lo: float, hi: float) -> int:
+    x = _num(src, where, v, lo, hi)
+    if not x.is_integer():
+        raise ConfigError(f"{src}: {where} = {v!r}: expected a whole number")
+    return int(x)
+
+
 def from_dict(d: dict, src: str = "<scenario>") -> Scenario:
+    if not isinstance(d, dict):
+        raise ConfigError(f"{src}: expected TOML tables")
     _known(src, "the scenario", d, ["duration", "grid", "load", "sensors", "event", "name"])
-    grid = d.get("grid", {})
-    load = d.get("load", {})
-    sens = d.get("sensors", {})
+    grid, load, sens = (_table(src, d, t) for t in ("grid", "load", "sensors"))
     _known(src, "[grid]", grid, ["vrms", "freq", "phase_deg", "harmonics", "dc"])
     _known(src, "[load]", load, ["kind", "power"])
     _known(src, "[sensors]", sens, ["noise_counts", "gain_error", "offset_counts", "seed"])
     if "duration" not in d:
         raise ConfigError(f"{src}: duration: missing (s)")
     kind = load.get("kind", "resistive")
-    if kind not in ("resistive", "constant_power"):
+    if not isinstance(kind, str) or kind not in ("resistive", "constant_power"):
         raise ConfigError(
             f"{src}: [load] kind = {kind!r}: allowed values are resistive, constant_power"
         )
     harm = []
-    for h in grid.get("harmonics", []):
+    for h in _list(src, "[grid] harmonics", grid.get("harmonics", [])):
         if not isinstance(h, list) or len(h) != 3:
             raise ConfigError(
                 f"{src}: [grid] harmonics entry {h!r}: expected [order, fraction, phase_deg]"
             )
         harm.append(
             (
-                int(_num(src, "[grid] harmonics order", h[0], 2, 50)),
+                _whole(src, "[grid] harmonics order", h[0], 2, 50),
                 _num(src, "[grid] harmonics fraction", h[1], 0.0, 0.5),
                 _num(src, "[grid] harmonics phase_deg", h[2], -360.0, 360.0),
             )
         )
     events = []
-    for n, e in enumerate(d.get("event", [])):
+    for n, e in enumerate(_list(src, "event", d.get("event", []))):
         where = f"[[event]] #{n + 1}"
         if not isinstance(e, dict) or "kind" not in e or "t" not in e:
             raise ConfigError(f"{src}: {where}: needs t (s) and kind")
-        if e["kind"] not in EVENT_KEYS:
+        if not isinstance(e["kind"], str) or e["kind"] not in EVENT_KEYS:
             raise ConfigError(
                 f"{src}: {where} kind = {e['kind']!r}: allowed values are {', '.join(EVENT_KEYS)}"
             )
@@ -140,8 +159,15 @@ def from_dict(d: dict, src: str = "<scenario>") -> Scenario:
                 raise ConfigError(f"{src}: {where} ({e['kind']}): {k} missing")
             vals.append((k, _num(src, f"{where} {k}", e[k], lo, hi)))
         events.append(Event(_num(src, f"{where} t", e["t"], 0.0, 1e4), e["kind"], tuple(vals)))
+    duration = _num(src, "duration", d["duration"], 1e-4, 1e4)
+    late = [ev for ev in events if ev.t_s >= duration]
+    if late:
+        raise ConfigError(
+            f"{src}: an event at t = {late[0].t_s:g} s: after the run's end "
+            f"(duration = {duration:g} s), it would never happen"
+        )
     return Scenario(
-        duration_s=_num(src, "duration", d["duration"], 1e-4, 1e4),
+        duration_s=duration,
         vrms_V=_num(src, "[grid] vrms", grid.get("vrms", 230.0), 0.0, 1000.0),
         freq_Hz=_num(src, "[grid] freq", grid.get("freq", 50.0), 1.0, 1000.0),
         phase_deg=_num(src, "[grid] phase_deg", grid.get("phase_deg", 0.0), -360.0, 360.0),
@@ -159,7 +185,7 @@ def from_dict(d: dict, src: str = "<scenario>") -> Scenario:
         offset_counts=_triple(
             src, "[sensors] offset_counts", sens.get("offset_counts", [0, 0, 0]), -65535.0, 65535.0
         ),
-        seed=int(_num(src, "[sensors] seed", sens.get("seed", 0), 0, 2**63)),
+        seed=_whole(src, "[sensors] seed", sens.get("seed", 0), 0, 2**63),
         name=str(d.get("name", Path(src).stem)),
         path=src if src != "<scenario>" else "",
     )
@@ -167,12 +193,7 @@ def from_dict(d: dict, src: str = "<scenario>") -> Scenario:
 
 def load(path: str | Path) -> Scenario:
     path = Path(path)
-    try:
-        data = tomllib.loads(path.read_text(encoding="utf-8"))
-    except OSError as exc:
-        raise ConfigError(f"{path}: cannot read ({exc.strerror})") from None
-    except tomllib.TOMLDecodeError as exc:
-        raise ConfigError(f"{path}: not valid TOML ({exc})") from None
+    data = read_toml(path)
     return from_dict(data, str(path))
 
 

@@ -72,8 +72,15 @@ def _settled_after(t: np.ndarray, smooth: np.ndarray, t0: float, vout: float) ->
     return float(t[last + 1]) if last + 1 < len(t) else math.inf
 
 
-def steady_window(t: np.ndarray, vs: np.ndarray, mode: np.ndarray, vbus: np.ndarray,
-                  scn: Scenario, vout_V: float, fs_Hz: float) -> Window:
+def steady_window(
+    t: np.ndarray,
+    vs: np.ndarray,
+    mode: np.ndarray,
+    vbus: np.ndarray,
+    scn: Scenario,
+    vout_V: float,
+    fs_Hz: float,
+) -> Window:
     """The steady window of a run (see the module docstring)."""
     f_end = final_frequency(scn)
     cycles = metrics.window_cycles(f_end)
@@ -84,20 +91,26 @@ def steady_window(t: np.ndarray, vs: np.ndarray, mode: np.ndarray, vbus: np.ndar
         return Window(math.nan, math.nan, False, reason, f_end, cycles)
 
     if duration < span:
-        return none(f"the run ({duration:.3f} s) is shorter than one IEC 61000-4-7 window "
-                    f"({cycles} cycles = {span:.3f} s)")
+        return none(
+            f"the run ({duration:.3f} s) is shorter than one IEC 61000-4-7 window "
+            f"({cycles} cycles = {span:.3f} s)"
+        )
     smooth = metrics.half_cycle_mean(vbus, fs_Hz, f_end)
     ok = (mode == Mode.RUN) & (np.abs(smooth - vout_V) <= SETTLE_BAND * vout_V)
     if not ok.any():
-        return none("the stage never reached regulation (mode run with the bus within "
-                    f"{100 * SETTLE_BAND:g} % of vout)")
+        return none(
+            "the stage never reached regulation (mode run with the bus within "
+            f"{100 * SETTLE_BAND:g} % of vout)"
+        )
     earliest = float(t[np.argmax(ok)])
     if scn.events:
         last = max(event_end_s(ev, f_end) for ev in scn.events)
         settled = _settled_after(t, smooth, last, vout_V)
         if not math.isfinite(settled):
-            return none(f"the bus had not settled within {100 * SETTLE_BAND:g} % of vout after "
-                        f"the last event (over at {last:.3f} s) by the end of the run")
+            return none(
+                f"the bus had not settled within {100 * SETTLE_BAND:g} % of vout after "
+                f"the last event (over at {last:.3f} s) by the end of the run"
+            )
         earliest = max(earliest, settled)
     zc = rising_crossings(t, vs)
     if len(zc) <= cycles:
@@ -105,8 +118,10 @@ def steady_window(t: np.ndarray, vs: np.ndarray, mode: np.ndarray, vbus: np.ndar
     start, end = float(zc[-cycles - 1]), float(zc[-1])
     f_meas = cycles / (end - start)
     if start < earliest:
-        return none(f"no {cycles}-cycle window fits between the settling at {earliest:.3f} s "
-                    f"and the last line zero crossing at {end:.3f} s")
+        return none(
+            f"no {cycles}-cycle window fits between the settling at {earliest:.3f} s "
+            f"and the last line zero crossing at {end:.3f} s"
+        )
     sel = (t >= start) & (t < end)
     if np.any(mode[sel] != Mode.RUN):
         return none("the supervisor left run inside the last window")

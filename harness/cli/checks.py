@@ -1,0 +1,131 @@
+"""Checks of the command line's arguments and output paths, done before any work starts,
+and atomic writes of every output file (a temporary file in the same folder, renamed into
+place: an interrupted write leaves the earlier file intact and no temporary behind)."""
+
+from __future__ import annotations
+
+import argparse
+import math
+import os
+from collections.abc import Callable
+from pathlib import Path
+
+from codegen.files import atomic_path
+
+__all__ = [
+    "atomic_path",
+    "number",
+    "output_dir",
+    "output_file",
+    "run_length",
+    "sizes",
+    "workers",
+    "UsageError",
+]
+
+MAX_RUN_S = 60.0  # longest simulated run a command takes (s)
+MEMORY_LIMIT_B = 8 << 30  # records of one run in memory at most (bytes)
+
+
+def number(
+    kind: type, lo: float | None = None, hi: float | None = None, lo_open: bool = False
+) -> Callable[[str], float]:
+    """An argparse type: a finite number of ``kind`` within [lo, hi] (``lo_open``: > lo)."""
+
+    def parse(text: str):
+        try:
+            value = kind(text)
+        except ValueError:
+            what = "a whole number" if kind is int else "a number"
+            raise argparse.ArgumentTypeError(f"{text!r} is not {what}") from None
+        if isinstance(value, float) and not math.isfinite(value):
+            raise argparse.ArgumentTypeError(f"{text!r} is not a finite number")
+        low_bad = lo is not None and (value <= lo if lo_open else value < lo)
+        if low_bad or (hi is not None and value > hi):
+            sign = ">" if lo_open else ">="
+            rng = " and ".join(
+                p
+                for p in (
+                    (f"{sign} {lo:g}" if lo is not None else ""),
+                    (f"<= {hi:g}" if hi is not None else ""),
+                )
+                if p
+            )
+            raise argparse.ArgumentTypeError(f"{text} is out of range: allowed {rng}")
+        return value
+
+    parse.__name__ = kind.__name__
+    return parse
+
+
+def sizes(text: str) -> tuple[int, ...]:
+    """A comma-separated list of batch sizes, each 1..4096."""
+    parse = number(int, 1, 4096)
+    parts = text.split(",")
+    if not all(p.strip() for p in parts):
+        raise argparse.ArgumentTypeError(f"{text!r}: empty entry in the list")
+    return tuple(int(parse(p.strip())) for p in parts)
+
+
+def workers(text: str) -> int:
+    """A worker count from 1 to the cores this machine has."""
+    cores = os.cpu_count() or 1
+    return int(number(int, 1, cores)(text))
+
+
+class UsageError(Exception):
+    """A bad argument found after parsing (exit 2, like argparse's own)."""
+
+
+def output_file(path: str | None, what: str) -> None:
+    """``path`` can be written as a file: not empty, not a folder, its folder exists and is
+    writable."""
+    if path is None:
+        return
+    p = Path(path)
+    if not path.strip():
+        raise UsageError(f"{what}: an empty path")
+    if p.is_dir():
+        raise UsageError(f"{what} {path}: is a folder, a file is needed")
+    parent = p.parent if str(p.parent) else Path(".")
+    if not parent.is_dir():
+        raise UsageError(f"{what} {path}: the folder {parent} does not exist")
+    if not os.access(parent, os.W_OK):
+        raise UsageError(f"{what} {path}: the folder {parent} is not writable")
+    if p.exists() and not os.access(p, os.W_OK):
+        raise UsageError(f"{what} {path}: exists and is not writable")
+
+
+def output_dir(path: str | None, what: str) -> None:
+    """``path`` can be used as an output folder: not empty, not a file, creatable."""
+    if path is None:
+        return
+    if not path.strip():
+        raise UsageError(f"{what}: an empty path")
+    p = Path(path)
+    if p.exists() and not p.is_dir():
+        raise UsageError(f"{what} {path}: is a file, a folder is needed")
+    probe = p
+    while not probe.exists():
+        probe = probe.parent
+    if not probe.is_dir() or not os.access(probe, os.W_OK):
+        raise UsageError(f"{what} {path}: {probe} is not a writable folder")
+
+
+def run_length(duration_s: float, fsw_Hz: float, lanes: int, bytes_per_period: int) -> None:
+    """Refuse a run that is not positive, shorter than one PWM period, longer than
+    ``MAX_RUN_S`` or whose records would not fit ``MEMORY_LIMIT_B``."""
+    if not math.isfinite(duration_s) or duration_s <= 0.0:
+        raise UsageError(f"duration {duration_s!r} s: must be a finite number > 0")
+    if duration_s * fsw_Hz < 1.0:
+        raise UsageError(
+            f"duration {duration_s:g} s: shorter than one PWM period ({1.0 / fsw_Hz:.3g} s)"
+        )
+    if duration_s > MAX_RUN_S:
+        raise UsageError(f"duration {duration_s:g} s: at most {MAX_RUN_S:g} s per run")
+    need = int(duration_s * fsw_Hz) * lanes * bytes_per_period
+    if need > MEMORY_LIMIT_B:
+        raise UsageError(
+            f"duration {duration_s:g} s: its records need {need / 2**30:.1f} GiB, "
+            f"more than the {MEMORY_LIMIT_B / 2**30:.0f} GiB allowed"
+        )
