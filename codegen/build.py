@@ -50,7 +50,46 @@ class BuildError(RuntimeError):
 
 
 def cache_root() -> Path:
-    return Path(os.environ.get("PFCRIG_CACHE", Path.home() / ".cache" / "pfcrig"))
+    """The per-user build cache (``$PFCRIG_CACHE`` or ``~/.cache/pfcrig``), created 0700;
+    refused when someone else owns it or others may write to it (what is in it is loaded and
+    run)."""
+    root = Path(os.environ.get("PFCRIG_CACHE", Path.home() / ".cache" / "pfcrig"))
+    try:
+        root.mkdir(parents=True, exist_ok=True, mode=0o700)
+        st = root.stat()
+    except OSError as exc:
+        raise BuildError(f"build cache {root}: cannot use it ({exc.strerror})") from None
+    if st.st_uid != os.getuid():
+        raise BuildError(f"build cache {root}: owned by another user; refusing to load from it")
+    if st.st_mode & 0o022:
+        raise BuildError(
+            f"build cache {root}: writable by group or others "
+            f"(mode {st.st_mode & 0o777:o}); chmod 700 it"
+        )
+    return root
+
+
+def file_digest(path: Path) -> str:
+    return hashlib.sha256(path.read_bytes()).hexdigest()
+
+
+def verified(path: Path | None) -> bool:
+    """True when ``path`` exists and still has the hash recorded beside it at build time."""
+    if path is None or not path.is_file():
+        return False
+    try:
+        return _sidecar(path).read_text().split() == [file_digest(path)]
+    except OSError:
+        return False
+
+
+def _sidecar(path: Path) -> Path:
+    """Where an artefact's build-time hash is kept: ``NAME.sha256`` beside it."""
+    return path.with_name(path.name + ".sha256")
+
+
+def record_digest(path: Path) -> None:
+    _sidecar(path).write_text(file_digest(path) + "\n")
 
 
 def _diagnostic(stderr: str, src_dir: Path) -> str:
@@ -165,48 +204,61 @@ def build(
         return _LOADED[modname]
     final = cache_root() / "build" / key
     so = next(iter(final.glob(f"{modname}*.so")), None) if final.is_dir() else None
-    if so is None:
-        cache_root().mkdir(parents=True, exist_ok=True)
-        tmp = Path(tempfile.mkdtemp(prefix="build-", dir=cache_root()))
+    for attempt in range(2):
+        if not verified(so):  # missing, changed or never recorded: build it (again)
+            shutil.rmtree(final, ignore_errors=True)
+            so = _compile_extension(allf, prefix, modname, cc, final)
         try:
-            src = tmp / "src"
-            src.mkdir()
-            for name, text in allf.items():
-                (src / name).write_text(text)
-            objs = compile_objects(src, tmp / "obj", cc=cc)
-            order = _header_order(allf, prefix)
-            headers = [allf[n] for n in order]
-            ffi = cffi.FFI()
-            macros = integer_macros(allf, prefix)
-            ffi.cdef(cdef_from_headers(headers, macros) + "\n" + _integer_macro_cdef(macros))
-            includes = (
-                "\n".join(f'#include "{n}"' for n in order) + f'\n#include "{prefix}_config.h"\n'
-            )
-            ffi.set_source(
-                modname,
-                includes,
-                include_dirs=[str(src)],
-                extra_objects=[str(o) for o in objs],
-                extra_compile_args=["-O2", "-w"],
-            )
-            out = Path(ffi.compile(tmpdir=str(tmp / "ext"), verbose=False))
-            stage = tmp / "final"
-            stage.mkdir()
-            shutil.move(str(out), stage / out.name)
-            for name in allf:
-                shutil.copy(src / name, stage / name)
-            final.parent.mkdir(parents=True, exist_ok=True)
-            try:
-                os.rename(stage, final)
-            except OSError:
-                if not final.is_dir():  # lost a race to another process: use its result
-                    raise
-            so = next(final.glob(f"{modname}*.so"))
-        finally:
-            shutil.rmtree(tmp, ignore_errors=True)
-    built = _import(so, modname)
+            built = _import(so, modname)
+            break
+        except ImportError as exc:
+            if attempt:
+                raise BuildError(f"the built extension {so} does not load: {exc}") from None
+            so = None
     _LOADED[modname] = built
     return built
+
+
+def _compile_extension(
+    allf: dict[str, str], prefix: str, modname: str, cc: str, final: Path
+) -> Path:
+    """Compile, link and move into ``final`` the cffi extension; its hash recorded beside it."""
+    tmp = Path(tempfile.mkdtemp(prefix="build-", dir=cache_root()))
+    try:
+        src = tmp / "src"
+        src.mkdir()
+        for name, text in allf.items():
+            (src / name).write_text(text)
+        objs = compile_objects(src, tmp / "obj", cc=cc)
+        order = _header_order(allf, prefix)
+        headers = [allf[n] for n in order]
+        ffi = cffi.FFI()
+        macros = integer_macros(allf, prefix)
+        ffi.cdef(cdef_from_headers(headers, macros) + "\n" + _integer_macro_cdef(macros))
+        includes = "\n".join(f'#include "{n}"' for n in order) + f'\n#include "{prefix}_config.h"\n'
+        ffi.set_source(
+            modname,
+            includes,
+            include_dirs=[str(src)],
+            extra_objects=[str(o) for o in objs],
+            extra_compile_args=["-O2", "-w"],
+        )
+        out = Path(ffi.compile(tmpdir=str(tmp / "ext"), verbose=False))
+        stage = tmp / "final"
+        stage.mkdir()
+        shutil.move(str(out), stage / out.name)
+        record_digest(stage / out.name)
+        for name in allf:
+            shutil.copy(src / name, stage / name)
+        final.parent.mkdir(parents=True, exist_ok=True)
+        try:
+            os.rename(stage, final)
+        except OSError:
+            if not final.is_dir():  # lost a race to another process: use its result
+                raise
+        return next(final.glob(f"{modname}*.so"))
+    finally:
+        shutil.rmtree(tmp, ignore_errors=True)
 
 
 def _header_order(files: dict[str, str], prefix: str) -> list[str]:

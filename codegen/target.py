@@ -21,7 +21,15 @@ from pathlib import Path
 
 from design.project import Project
 
-from .build import HOST_FLAGS, STRICT_FLAGS, BuildError, cache_root, compile_objects
+from .build import (
+    HOST_FLAGS,
+    STRICT_FLAGS,
+    BuildError,
+    cache_root,
+    compile_objects,
+    record_digest,
+    verified,
+)
 from .render import render, render_link
 
 TARGETS = {
@@ -194,7 +202,7 @@ def build_target(prj: Project, tb: TargetBuild) -> Path:
     h = hashlib.sha256("".join(files[k] for k in sorted(files)).encode())
     h.update(" ".join([tb.cc, *tb.flags, *tb.link_args]).encode())
     exe = cache_root() / "pil" / f"{p}_{h.hexdigest()[:16]}{tb.suffix}"
-    if exe.exists():
+    if verified(exe):  # a file there that pfcrig did not build (or that changed) is not run
         return exe
     exe.parent.mkdir(parents=True, exist_ok=True)
     with tempfile.TemporaryDirectory(dir=cache_root()) as tmp:
@@ -212,5 +220,7 @@ def build_target(prj: Project, tb: TargetBuild) -> Path:
         )
         if r.returncode:
             raise BuildError(f"link of the {tb.name} target failed:\n{r.stderr}")
+        record_digest(out)
+        os.replace(out.with_name(out.name + ".sha256"), exe.with_name(exe.name + ".sha256"))
         os.replace(out, exe)
     return exe

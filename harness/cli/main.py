@@ -3,7 +3,9 @@
 from __future__ import annotations
 
 import argparse
+import signal
 import sys
+import threading
 
 from codegen.build import BuildError
 from design.config import ConfigError
@@ -18,6 +20,10 @@ CAUTION = (
     "take precedence."
 )
 COMMANDS = (init_cmd, design_cmd, generate_cmd, run_cmd, fuzz_cmd, bench_cmd, pil_cmd)
+
+
+def _terminate(signum: int, frame: object) -> None:
+    raise KeyboardInterrupt
 
 
 def build_parser() -> argparse.ArgumentParser:
@@ -41,6 +47,9 @@ def build_parser() -> argparse.ArgumentParser:
 def main(argv: list[str] | None = None) -> int:
     parser = build_parser()
     args = parser.parse_args(argv)
+    # SIGTERM ends a command like Ctrl-C does: temporaries removed, earlier outputs intact
+    if threading.current_thread() is threading.main_thread():
+        signal.signal(signal.SIGTERM, _terminate)
     try:
         return int(args.func(args) or 0)
     except (ConfigError, UsageError) as exc:

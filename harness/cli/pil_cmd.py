@@ -8,6 +8,7 @@ import sys
 from design.project import load_project
 from harness.closedloop import report
 from harness.closedloop.loop import run
+from harness.targets.link import LinkError
 from harness.targets.pil import FLOAT32_INSN_LIMIT, TARGETS, compare_outputs, run_pil
 
 from . import checks
@@ -70,9 +71,23 @@ def pil_cmd(args: argparse.Namespace) -> int:
         return 2
     prj = load_project(args.config)
     scn = scenario_of(args, prj, PIL_DEFAULT_S)
-    pil = run_pil(
-        prj, scn, target=args.target, timeout_s=args.timeout, port=args.port, baud=args.baud
-    )
+    try:
+        pil = run_pil(
+            prj, scn, target=args.target, timeout_s=args.timeout, port=args.port, baud=args.baud
+        )
+    except (LinkError, TimeoutError) as exc:  # before any period ran: still a report
+        print(f"pfcrig pil: {exc}", file=sys.stderr)
+        if args.json:
+            write_json(
+                args.json,
+                {
+                    "target": args.target,
+                    "scenario": scn.name,
+                    "periods": 0,
+                    "aborted": f"before the first period: {exc}",
+                },
+            )
+        return 1
     res, stats, wall = pil.result, pil.link_stats, pil.wall_s
     doc = {
         "target": args.target,
@@ -112,6 +127,10 @@ def pil_cmd(args: argparse.Namespace) -> int:
                 f"{cmp_.first_difference or 'final controller state'}"
             )
             code = 1
+    if "after_run_error" in res.extras:
+        doc["after_run_error"] = res.extras["after_run_error"]
+        print(f"pfcrig pil: after the run: {res.extras['after_run_error']}", file=sys.stderr)
+        code = 1
     if pil.cost:
         c = pil.cost
         doc["cost_on_target"] = {

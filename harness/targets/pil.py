@@ -19,6 +19,7 @@ import numpy as np
 
 from codegen.build import BuildError
 from codegen.target import HOST_BUILD, QEMU_M4F_BUILD, build_target, image_size
+from design.contract import Fault, Gate, Mode
 from design.project import Project
 from harness.closedloop.loop import PWM_DTYPE, RunResult, run
 from harness.closedloop.scenario import Scenario
@@ -27,6 +28,8 @@ from . import link
 from .transports import PipeTransport, SerialTransport, stop_process
 
 TARGETS = ("host", "qemu-m4f", "serial")
+ALL_GATES = int(sum(Gate))
+ALL_FAULTS = int(sum(Fault))
 FLOAT32_INSN_LIMIT = 1000  # worst-case instructions per step on the Cortex-M4F (float32 target)
 
 
@@ -118,10 +121,24 @@ class RemoteControllers:
             )
         self.hello = hello
         session.reset()
+        self.period = 0
+        self.period_counts = prj.resolved.pwm_period_counts
         self._nan = np.full((1, 4), np.nan, dtype=np.float32)
 
     def step(self, codes: np.ndarray) -> np.ndarray:
         ((cmp_, gates, mode, faults),) = self.s.step(codes[:1])
+        self.period += 1
+        for field, value, ok in (
+            ("compare", cmp_, cmp_ <= self.period_counts),
+            ("gates", gates, gates & ~ALL_GATES == 0),
+            ("mode", mode, mode <= max(Mode)),
+            ("faults", faults, faults & ~ALL_FAULTS == 0),
+        ):
+            if not ok:
+                raise link.LinkError(
+                    f"target differs at period {self.period - 1}: {field} = "
+                    f"{value}, outside what the contract allows"
+                )
         return np.array([(cmp_, gates, mode, faults)], dtype=PWM_DTYPE)
 
     def internals(self) -> np.ndarray:
@@ -189,11 +206,14 @@ def run_pil(
     t0 = time.perf_counter()
     cost = None
     try:
-        ctl = RemoteControllers(sess, prj)
+        ctl = RemoteControllers(sess, prj)  # HELLO and RESET: a silent target raises here
         res = run(prj, [scn], model=model, progress=False, controllers=ctl)
         if "aborted" not in res.extras:
-            res.extras["final_states"] = [ctl.state()]
-            cost = sess.cost().instructions()
+            try:
+                res.extras["final_states"] = [ctl.state()]
+                cost = sess.cost().instructions()
+            except (link.LinkError, TimeoutError) as exc:  # the run stands; say what failed
+                res.extras["after_run_error"] = f"SNAPSHOT/COST: {exc}"
     finally:
         tr.close()
     image = image_size([elf]) if elf is not None else None
