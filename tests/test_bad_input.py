@@ -255,3 +255,96 @@ def test_command_line_fuzz(tmp_path, cmd, opts, content):
         args = ["design", cfg]  # a long measurement or campaign is not what this test is for
     code, err = cli(*args)
     assert code in (0, 1, 2, 130) and "Traceback" not in err, (args, code, err)
+
+
+SCALARS = st.one_of(
+    st.floats(allow_nan=True, allow_infinity=True),
+    st.integers(-(10**6), 10**6),
+    st.text(max_size=5),
+    st.booleans(),
+    st.lists(st.integers(0, 3), max_size=4),
+)
+
+
+def scenario_dicts():
+    """Scenario tables near and far from valid: known keys with any values, some of the
+    wrong type, events of every kind."""
+    event = st.fixed_dictionaries(
+        {
+            "t": st.one_of(st.floats(0.0, 0.009), SCALARS),
+            "kind": st.one_of(
+                st.sampled_from(["dip", "load", "freq", "phase_jump", "vrms"]), SCALARS
+            ),
+        },
+        optional={
+            "residual": SCALARS,
+            "cycles": SCALARS,
+            "power": SCALARS,
+            "hz": SCALARS,
+            "deg": SCALARS,
+            "vrms": SCALARS,
+        },
+    )
+    return st.fixed_dictionaries(
+        {"duration": st.one_of(st.floats(1e-4, 0.01), SCALARS)},
+        optional={
+            "grid": st.one_of(
+                st.fixed_dictionaries(
+                    {},
+                    optional={
+                        "vrms": st.one_of(st.floats(0, 300), SCALARS),
+                        "freq": SCALARS,
+                        "phase_deg": SCALARS,
+                        "dc": SCALARS,
+                        "harmonics": st.one_of(SCALARS, st.lists(st.lists(SCALARS, max_size=4))),
+                    },
+                ),
+                SCALARS,
+            ),
+            "load": st.one_of(
+                st.fixed_dictionaries(
+                    {},
+                    optional={
+                        "kind": st.one_of(
+                            st.sampled_from(["resistive", "constant_power"]), SCALARS
+                        ),
+                        "power": SCALARS,
+                    },
+                ),
+                SCALARS,
+            ),
+            "sensors": st.fixed_dictionaries(
+                {}, optional={"seed": SCALARS, "noise_counts": SCALARS}
+            ),
+            "event": st.one_of(st.lists(event, max_size=3), SCALARS),
+        },
+    )
+
+
+@settings(max_examples=60, deadline=None, suppress_health_check=[HealthCheck.too_slow])
+@given(d=scenario_dicts())
+def test_any_scenario_is_refused_clearly_or_runs(d):
+    """Scenario files across their schema: refused with a ConfigError naming the file, or
+    run (durations here are at most 10 ms)."""
+    from design.config import ConfigError
+    from design.project import load_project
+    from harness.closedloop.loop import run
+    from harness.closedloop.report import lane_report
+    from harness.closedloop.scenario import from_dict
+
+    try:
+        scn = from_dict(d, "s.toml")
+    except ConfigError as exc:
+        assert str(exc).startswith("s.toml"), str(exc)
+        return
+    if scn.duration_s > 0.01:  # the command line's limits decide about long runs
+        from harness.cli.checks import UsageError, run_length
+        from harness.closedloop.loop import RECORD_BYTES_PER_PERIOD
+
+        if scn.duration_s > 60.0:
+            with pytest.raises(UsageError):
+                run_length(scn.duration_s, 65000.0, 1, RECORD_BYTES_PER_PERIOD)
+        return
+    prj = load_project(DEMO)
+    rep = lane_report(run(prj, [scn], progress=False))
+    assert rep["steady"] is False  # 10 ms is never a steady window

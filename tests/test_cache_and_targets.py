@@ -39,8 +39,11 @@ def test_cache_refused_when_others_may_write_to_it(own_cache):
 
 
 def test_a_planted_or_damaged_extension_is_rebuilt_not_loaded(own_cache):
-    files = {"t_x.h": "int t_one(void);\n", "t_x.c": "int t_one(void) { return 1; }\n",
-             "t_config.h": "\n"}
+    files = {
+        "t_x.h": "int t_one(void);\n",
+        "t_x.c": "int t_one(void) { return 1; }\n",
+        "t_config.h": "\n",
+    }
     b = B.build(files, "t")
     assert b.lib.t_one() == 1
     so = b.path
@@ -76,8 +79,12 @@ class Liar:
         for f in frames:
             if f.ftype == link.HELLO:
                 fmt = 1 if self.prj.config.control.number_format == "q15" else 0
-                body = (bytes([1, fmt]) + (184).to_bytes(2, "little")
-                        + self.prj.config.digest().encode() + b"pfc")
+                body = (
+                    bytes([1, fmt])
+                    + (184).to_bytes(2, "little")
+                    + self.prj.config.digest().encode()
+                    + b"pfc"
+                )
                 self.out += link.encode(f.ftype | link.ACK, f.seq, body)
             elif f.ftype == link.RESET:
                 self.out += link.encode(f.ftype | link.ACK, f.seq)
@@ -100,8 +107,22 @@ def test_a_target_silent_at_hello_still_gets_its_report(tmp_path):
     master, slave = pty.openpty()  # a port nothing answers on
     try:
         out = tmp_path / "p.json"
-        code = main(["pil", str(DEMO), "--target", "serial", "--port", os.ttyname(slave),
-                     "--timeout", "0.2", "--duration", "0.01", "--json", str(out)])
+        code = main(
+            [
+                "pil",
+                str(DEMO),
+                "--target",
+                "serial",
+                "--port",
+                os.ttyname(slave),
+                "--timeout",
+                "0.2",
+                "--duration",
+                "0.01",
+                "--json",
+                str(out),
+            ]
+        )
     finally:
         os.close(master)
         os.close(slave)
