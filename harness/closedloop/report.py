@@ -46,7 +46,7 @@ CSV_COLUMNS = [
     "e_esr_J",
     "i2_A2s",
 ]
-STEADY_KEYS = (
+QUALITY_KEYS = (
     "pf",
     "thd_i",
     "thd_total",
@@ -55,6 +55,9 @@ STEADY_KEYS = (
     "harmonics_A",
     "i_rms_A",
     "v_rms_V",
+)
+STEADY_KEYS = (
+    *QUALITY_KEYS,
     "class_a_applicable",
     "class_a_reason",
     "class_a_pass",
@@ -121,19 +124,7 @@ def _steady_figures(d: dict, prj: Project, win: Window) -> dict:
     fs, sl = prj.config.spec.fsw, win.slice(prj.config.spec.fsw)
     vs, i = d["vs_V"][sl], d["i_avg_A"][sl]
     pq = metrics.power_quality(vs, i, fs, win.freq_Hz, win.cycles)
-    out = {
-        k: pq[k]
-        for k in (
-            "pf",
-            "thd_i",
-            "thd_total",
-            "dc_A",
-            "displacement_factor",
-            "harmonics_A",
-            "i_rms_A",
-            "v_rms_V",
-        )
-    }
+    out = {k: pq[k] for k in QUALITY_KEYS}
     out.update(metrics.class_a(pq["harmonics_A"], pq["v_rms_V"], pq["i_rms_A"]))
     bus = metrics.bus_figures(d["vbus_V"][sl])
     out.update(bus)
