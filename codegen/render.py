@@ -23,6 +23,7 @@ BLOCKS = [
     "pi",
     "sense",
     "polarity",
+    "plaus",
     "rms",
     "busavg",
     "vloop",

@@ -13,7 +13,7 @@ from .rules import (
     LINE_LOSS_RESET_S,
     PCMD_MAX_OF_RATED,
     PRECHARGE_OF_PEAK,
-    RETRY_CLEAR_S,
+    TRIP_DECAY_S,
     VBUS_GUARD_OF_SPAN,
     Add,
     u32,
@@ -241,7 +241,8 @@ def protection(add: Add, prj: Project) -> None:
         "f",
         "V",
         "|v_line| within this of the bus counts as at or above it: over-current there is the "
-        "line rectified through the body diodes (recorded, not tripped on)",
+        "line rectified through the body diodes (recorded, not tripped on, while the bus "
+        "reading is within BUS_LOW_MARGIN_V below the line)",
         f"rule: {100 * DIODE_MARGIN_OF_VOUT:g} % of [spec] vout",
         (vb, 15),
     )
@@ -289,10 +290,11 @@ def protection(add: Add, prj: Project) -> None:
         "[protection] retry_delay x fsw",
     )
     add(
-        "RETRY_CLEAR_PERIODS",
-        u32(RETRY_CLEAR_S * fsw),
+        "TRIP_DECAY_PERIODS",
+        u32(TRIP_DECAY_S * fsw),
         "u",
         "periods",
-        "clean running that clears the trip count",
-        f"rule: {RETRY_CLEAR_S:g} s",
+        "clean running that takes one trip off the count: at most RETRY_LIMIT - 1 + 60 s / "
+        f"{TRIP_DECAY_S:g} s restarts a minute, latched after",
+        f"rule: {TRIP_DECAY_S:g} s",
     )

@@ -14,6 +14,7 @@ from .rules import (
     RAIL_MARGIN_COUNTS,
     RMS_RISE_MARGIN,
     STUCK_OF_HALF,
+    ZC_NEAR_MARGIN_PERIODS,
     Add,
 )
 
@@ -155,6 +156,16 @@ def polarity(add: Add, prj: Project) -> None:
         "periods",
         "samples beyond the band before the polarity changes",
         "[control] zc_debounce_periods",
+    )
+    add(
+        "ZC_NEAR_PERIODS",
+        c.zc_debounce_periods + ZC_NEAR_MARGIN_PERIODS,
+        "u",
+        "periods",
+        "the polarity changes only with the line inside the hysteresis band this recently: a "
+        "real crossing passes through it (the line moves a few volts a period), a failed or "
+        "jumping reading does not",
+        f"ZC_DEBOUNCE + {ZC_NEAR_MARGIN_PERIODS}",
     )
     add(
         "ZC_BLANK_V",

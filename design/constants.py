@@ -11,6 +11,7 @@ from collections.abc import Callable
 from dataclasses import dataclass
 
 from . import const_control as cc
+from . import const_safety as sf
 from . import const_signal as cs
 from .config import ConfigError, where
 from .project import Project
@@ -46,6 +47,9 @@ GROUPS: list[tuple[str, Callable[[Add, Project], None]]] = [
     ("Current reference and loop", cc.iloop),
     ("PWM", cc.pwm),
     ("Supervisor and protection", cc.protection),
+    ("Sensor plausibility", sf.plausibility),
+    ("Slow leg, synchronous switch and line guards", sf.guards),
+    ("Inrush relay and power good", sf.relay),
 ]
 
 

@@ -54,8 +54,9 @@ MODE_DOCS = {
     Mode.BROWNOUT: "line rms under the brown-out threshold: gates off until above the restart one",
     Mode.TRIPPED: "over-voltage/over-current trip while switching: gates off, retry after "
     "{P}_RETRY_DELAY_PERIODS",
-    Mode.LATCHED: "{P}_RETRY_LIMIT trips without a clean run: off until init",
-    Mode.SENSOR_FAULT: "a sensor railed or stuck, or a non-finite state: off until init",
+    Mode.LATCHED: "{P}_RETRY_LIMIT trips not yet decayed: off until a fault-clear request",
+    Mode.SENSOR_FAULT: "a sensor railed, stuck or implausible, or a non-finite state: off "
+    "until a fault-clear request",
 }
 
 M = Mode
@@ -81,6 +82,7 @@ MODE_EDGES: frozenset[tuple[Mode, Mode]] = frozenset(
     | {(m, M.TRIPPED) for m in Mode if m < M.TRIPPED}
     | {(m, M.LATCHED) for m in Mode if m < M.TRIPPED}
     | {(m, M.SENSOR_FAULT) for m in Mode if m < M.SENSOR_FAULT}
+    | {(M.LATCHED, M.WAIT_LINE), (M.SENSOR_FAULT, M.WAIT_LINE)}  # a fault-clear request
 )
 del M
 
@@ -96,6 +98,9 @@ class Fault(IntFlag):
     SENSOR = 32
     LATCHED = 64
     NONFINITE = 128
+    SENSOR_VAC = 256
+    SENSOR_IL = 512
+    SENSOR_VBUS = 1024
 
 
 FAULT_DOCS = {
@@ -107,6 +112,24 @@ FAULT_DOCS = {
     Fault.SENSOR: "a sensor channel railed or stuck (history: stays set)",
     Fault.LATCHED: "trips latched the stage off (history: stays set)",
     Fault.NONFINITE: "a non-finite controller state was cleared",
+    Fault.SENSOR_VAC: "the line-voltage channel failed (history: stays set)",
+    Fault.SENSOR_IL: "the inductor-current channel failed (history: stays set)",
+    Fault.SENSOR_VBUS: "the bus-voltage channel failed (history: stays set)",
+}
+# the fault bit naming each channel
+CHANNEL_FAULT = {0: Fault.SENSOR_VAC, 1: Fault.SENSOR_IL, 2: Fault.SENSOR_VBUS}
+
+
+class Status(IntFlag):
+    """Bits of the output record's ``status``: the controller's commands to the board."""
+
+    RELAY = 1  # close the inrush limiter's bypass relay
+    POWER_GOOD = 2  # the bus is fit for the downstream converter
+
+
+STATUS_DOCS = {
+    Status.RELAY: "close the inrush limiter's bypass relay (clear: open)",
+    Status.POWER_GOOD: "power good for the downstream converter, with hysteresis",
 }
 
 
@@ -124,12 +147,34 @@ class SenseFault(IntFlag):
     LINE_RAIL = 1 << Channel.VAC
     BUS_RAIL = 1 << Channel.VBUS
     LINE_STUCK = 8
+    BUS_LOW = 16
+    IL_IMPLAUSIBLE = 32
+    LINE_OFFSET = 64
+    IL_OFFSET = 128
 
 
 SENSE_FAULT_DOCS = {
     SenseFault.LINE_RAIL: "line channel at a rail",
     SenseFault.BUS_RAIL: "bus channel at its top rail",
     SenseFault.LINE_STUCK: "line channel frozen on one count away from zero",
+    SenseFault.BUS_LOW: "bus reads below the line by more than {P}_BUS_LOW_MARGIN_V while "
+    "switching: the bus or the line channel failed (plausibility block)",
+    SenseFault.IL_IMPLAUSIBLE: "current far under its reference with the duty at its limit "
+    "(plausibility block)",
+    SenseFault.LINE_OFFSET: "line channel's mean over a whole cycle beyond "
+    "{P}_LINE_OFFSET_MAX_V (plausibility block)",
+    SenseFault.IL_OFFSET: "current channel off zero beyond {P}_IL_ZERO_MAX_A with the gates off "
+    "and the line in the blanking band, where no current flows (plausibility block)",
+}
+# the channels each sense fault names (a bus reading below the line: one of the two is wrong)
+SENSE_CHANNEL: dict[SenseFault, tuple[Channel, ...]] = {
+    SenseFault.LINE_RAIL: (Channel.VAC,),
+    SenseFault.BUS_RAIL: (Channel.VBUS,),
+    SenseFault.LINE_STUCK: (Channel.VAC,),
+    SenseFault.BUS_LOW: (Channel.VAC, Channel.VBUS),
+    SenseFault.IL_IMPLAUSIBLE: (Channel.IL,),
+    SenseFault.LINE_OFFSET: (Channel.VAC,),
+    SenseFault.IL_OFFSET: (Channel.IL,),
 }
 
 
@@ -169,6 +214,7 @@ OUTPUT_FIELDS = (
     Field("gates", "uint8_t", "u1", "{P}_GATE_* bits of the switches allowed to conduct"),
     Field("mode", "uint8_t", "u1", "supervisor mode, {P}_MODE_*"),
     Field("faults", "uint16_t", "<u2", "active fault bits, {P}_FAULT_*"),
+    Field("status", "uint8_t", "u1", "{P}_STATUS_* bits: relay command, power good"),
 )
 # Internals the host build copies out each period (SI units; q15 builds convert from per unit).
 PROBES = (
@@ -209,10 +255,10 @@ LINK = {
     "MAX_STEPS": (64, "periods in one STEP request at most"),
     "STEP_IN_BYTES": (6, "bytes per period in a STEP request (vac, il, vbus u16)"),
     "STEP_OUT_BYTES": (
-        6,
-        "bytes per period in a STEP answer (compare u16, gates, mode, faults u16)",
+        7,
+        "bytes per period in a STEP answer (compare u16, gates, mode, faults u16, status)",
     ),
-    "MAX_PAYLOAD": (1 + 64 * 6, "largest payload: a count byte and MAX_STEPS periods"),
+    "MAX_PAYLOAD": (1 + 64 * 7, "largest payload: a count byte and MAX_STEPS answers"),
     "SNAPSHOT_CHUNK": (256, "state bytes in one SNAPSHOT answer at most"),
     "DIGEST_CHARS": (16, "config digest characters in HELLO_ACK"),
     "COST_WORDS": (8, "u32 words in a COST answer"),
@@ -220,6 +266,15 @@ LINK = {
 }
 CRC_POLY = 0x1021  # CRC-16/CCITT-FALSE: poly 0x1021, init 0xFFFF, no reflection, no final xor
 CRC_INIT = 0xFFFF
+
+
+def sense_masks() -> dict[str, int]:
+    """For each channel, the mask of the sense-fault bits that name it."""
+    out = {c.name: 0 for c in Channel}
+    for bit, chs in SENSE_CHANNEL.items():
+        for ch in chs:
+            out[ch.name] |= int(bit)
+    return out
 
 
 def link_value(name: str) -> int:
@@ -231,8 +286,10 @@ def macros() -> dict[str, int]:
     out: dict[str, int] = {}
     out.update({f"GATE_{g.name}": int(g) for g in Gate})
     out.update({f"MODE_{m.name}": int(m) for m in Mode})
+    out.update({f"STATUS_{b.name}": int(b) for b in Status})
     out.update({f"FAULT_{f.name}": int(f) for f in Fault})
     out.update({f"SENSE_{f.name}": int(f) for f in SenseFault})
+    out.update({f"SENSE_MASK_{k}": v for k, v in sense_masks().items()})
     out.update({f"CH_{c.name}": int(c) for c in Channel})
     out["ADC_CHANNELS"] = len(Channel)
     out.update({f"START_{e.name}": int(e) for e in Start})

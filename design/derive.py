@@ -14,6 +14,8 @@ from .rules import (
     BROWNOUT_OFF_OF_VMIN,
     BROWNOUT_ON_OF_VMIN,
     CURRENT_BW_DIVISOR,
+    DEVICE_OF_OC,
+    HW_OV_OF_VOUT,
     HYST_OF_VPK_MIN,
     MAX_PERIOD_COUNTS,
     MIN_PERIOD_COUNTS,
@@ -34,6 +36,8 @@ class Resolved:
     zc_blank_V: float
     ov_trip_V: float
     oc_trip_A: float
+    hw_ov_level_V: float
+    device_current_A: float
     brownout_off_rms_V: float
     brownout_on_rms_V: float
     vac_range_V: float
@@ -88,6 +92,8 @@ def resolve(cfg: Config, inductance_H: float, capacitance_F: float, il_peak_A: f
         zc_blank_V=_pick(c.zc_blank_voltage, BLANK_OF_VPK_MIN * vpk_min),
         ov_trip_V=ov,
         oc_trip_A=oc,
+        hw_ov_level_V=_pick(pr.hw_ov_level, HW_OV_OF_VOUT * s.vout),
+        device_current_A=_pick(pr.device_current_limit, DEVICE_OF_OC * oc),
         brownout_off_rms_V=_pick(pr.brownout_off_rms, BROWNOUT_OFF_OF_VMIN * s.vin_rms_min),
         brownout_on_rms_V=_pick(pr.brownout_on_rms, BROWNOUT_ON_OF_VMIN * s.vin_rms_min),
         vac_range_V=_pick(se.vac_range, RANGE_MARGIN * vpk_max),
@@ -133,6 +139,15 @@ def _check(cfg: Config, r: Resolved) -> None:
             f"{src}: [protection] ov_trip = {r.ov_trip_V:g} V: must be > vout = {s.vout:g} V"
         )
     checks = [
+        ("protection", "hw_ov_level", r.hw_ov_level_V, r.ov_trip_V, "V", "[protection] ov_trip"),
+        (
+            "protection",
+            "device_current_limit",
+            r.device_current_A,
+            r.oc_trip_A,
+            "A",
+            "[protection] oc_trip",
+        ),
         ("sensing", "vac_range", r.vac_range_V, vpk_max, "V", "the highest line peak"),
         ("sensing", "il_range", r.il_range_A, r.oc_trip_A, "A", "[protection] oc_trip"),
         ("sensing", "vbus_range", r.vbus_range_V, r.ov_trip_V, "V", "[protection] ov_trip"),

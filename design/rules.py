@@ -8,6 +8,8 @@ from collections.abc import Callable
 # default rules of derived settings (design.derive; fractions of the named quantity)
 OC_TRIP_OF_PEAK = 1.5  # over-current trip: of the sized peak inductor current
 OV_TRIP_OF_VOUT = 1.1  # over-voltage trip: of vout
+HW_OV_OF_VOUT = 1.15  # hardware over-voltage comparator: of vout (common practice)
+DEVICE_OF_OC = 2.0  # device peak current: of the over-current trip (illustrative)
 HYST_OF_VPK_MIN = 0.04  # polarity hysteresis: of the lowest line peak
 BLANK_OF_VPK_MIN = 0.08  # zero-crossing blanking: of the lowest line peak
 BROWNOUT_OFF_OF_VMIN = 0.85  # brown-out stop: of vin_rms_min
@@ -20,6 +22,7 @@ MAX_PERIOD_COUNTS = 65535  # the compare is 16 bits
 # rules of the firmware's constants (design.const_signal, design.const_control; fractions
 # of the named quantity unless a unit is given)
 RAIL_MARGIN_COUNTS = 2  # a code this close to either end counts as railed
+ZC_NEAR_MARGIN_PERIODS = 2  # a polarity change needs the line near zero this recently
 STUCK_OF_HALF = 1.5  # a frozen line code for this many of the longest half periods is stuck
 HALF_MIN_FREQ_MARGIN = 1.25  # shortest plausible half: at freq_max times this
 HALF_MAX_FREQ_MARGIN = 0.8  # longest plausible half: at freq_min times this
@@ -31,9 +34,29 @@ IREF_MAX_OF_PEAK = 1.25  # largest current reference: of the sized peak line cur
 IREF_MAX_OF_OC = 0.85  # ... and of the over-current trip, the smaller of the two
 VBUS_GUARD_OF_SPAN = 0.6  # reference zeroed above vout + this x (ov_trip - vout)
 DIODE_MARGIN_OF_VOUT = 0.02  # |v| within this of the bus: the line rectified by the diodes
-PRECHARGE_OF_PEAK = 0.85  # bus precharged at this fraction of the line peak
+PRECHARGE_OF_PEAK = 0.85  # bus precharged at this fraction of the line peak ...
+RELAY_RISE_OF_VOUT = 0.01  # ... and no longer rising: less than this (of vout) in a half cycle
+RELAY_WAIT_OF_DELAY = 1.5  # switching waits this many relay contact times after closing it
+RELAY_OPEN_OF_PEAK = 0.6  # relay opened when, without the line, the bus falls below this
+PG_ON_OF_VOUT = 0.95  # power good set in RUN at this fraction of vout ...
+PG_OFF_OF_VOUT = 0.85  # ... and cleared below this one, or on a stop
 LINE_LOSS_RESET_S = 0.5  # an outage longer than this (s) starts afresh
-RETRY_CLEAR_S = 0.5  # clean running that clears the trip count (s)
+TRIP_DECAY_S = 10.0  # clean running that takes one trip off the count (s)
+# rules of the plausibility block (design.const_safety)
+BUS_LOW_PERIODS = 8  # consecutive periods of a bus reading below the line: bus channel failed
+IL_PLAUS_ERR_OF_PEAK = 0.25  # current rise the duty drives beyond the measured (of the peak)
+IL_PLAUS_PERIODS = 8  # ... over a window of this many switching periods ...
+IL_STILL_COUNTS = 4  # ... with the current code within this many codes ...
+IL_ZERO_OF_PEAK = 0.03  # current channel's mean at rest beyond this (of the peak): an offset
+IL_ZERO_MIN_PERIODS = 4  # ... over an at-rest stretch of at least this many periods
+IL_TRACK_ERR_OF_PEAK = 0.03  # ... and off its reference by this (of the peak): current failed
+LINE_OFFSET_OF_VPK_MIN = 0.05  # line channel's cycle mean beyond this (of the lowest peak)
+LINE_OFFSET_CYCLES = 2  # ... in this many consecutive cycles: line channel failed
+BAD_HALVES_MAX = 2  # consecutive implausible half cycles that stop switching
+RMS_AGE_OF_HALF_MAX = 2.0  # an rms older than this many longest halves of switching stops it
+SLOW_OFF_MIN_PERIODS = 2  # slow leg off at least this long between its two switches
+SLOW_SWAP_OF_PEAK = 0.05  # ... and |i| below this (of the sized peak) at the change
+SYNC_MIN_OF_PEAK = 0.02  # synchronous switch only with the current this far forward
 
 
 Add = Callable[..., None]
@@ -53,5 +76,7 @@ COUNTER_LIMITS = {
     "RETRY_DELAY_PERIODS": (1, 0xFFFFFFFF, ("protection", "retry_delay"), "uint32_t timer"),
     "HALF_MAX_PERIODS": (1, 65535, ("spec", "fsw"), "uint16_t since_zc"),
     "STUCK_PERIODS": (1, 65535, ("spec", "fsw"), "uint16_t stuck_cnt"),
+    "RMS_AGE_MAX_PERIODS": (1, 65535, ("spec", "fsw"), "uint16_t rms_age"),
+    "RELAY_WAIT_PERIODS": (1, 0xFFFFFFFF, ("plant", "relay_delay"), "uint32_t relay_timer"),
     "BUS_BLOCK_NOMINAL": (1, 65535, ("spec", "fsw"), "uint16_t blen"),
 }

@@ -150,6 +150,13 @@ class PlantTable:
         10.0,
         hi=1000.0,
     )
+    relay_delay: float = pos(
+        "s",
+        "contact time of the inrush limiter's bypass relay: it follows the firmware's command "
+        "this long after (the firmware waits 1.5 x this before switching)",
+        0.01,
+        hi=1.0,
+    )
 
 
 @dataclass(frozen=True, kw_only=True)
@@ -230,6 +237,18 @@ class ProtectionTable:
         "trips", "over-voltage/over-current trips before the fault latches", 3, lo=1, hi=100
     )
     retry_delay: float = pos("s", "wait after a trip before restarting", 0.02, hi=10.0)
+    hw_ov_level: float | None = pos(
+        "V",
+        "bus level of the hardware over-voltage comparator the board must provide, independent "
+        "of the controller's ADC (default 1.15 vout); the fault campaign's bound on the real bus",
+        hi=2000.0,
+    )
+    device_current_limit: float | None = pos(
+        "A",
+        "peak current the power switches and the inductor withstand (default 2 x oc_trip, "
+        "illustrative: take the device's pulsed rating); the fault campaign's bound",
+        hi=100000.0,
+    )
 
 
 @dataclass(frozen=True, kw_only=True)

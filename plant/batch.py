@@ -18,6 +18,7 @@ from . import layout as LY
 from .grid import Grid
 from .linear import plan
 from .load import Load
+from .sensor_faults import SensorFaults
 from .sensors import Sensors
 from .stage import StageParams
 
@@ -36,7 +37,7 @@ def stage_par(p: StageParams, load: Load) -> np.ndarray:
     )
     par[LY.P_T], par[LY.P_COUNTS] = p.period_s, p.period_counts
     par[LY.P_RSRC], par[LY.P_LSRC] = p.source_resistance_ohm, p.source_inductance_H
-    par[LY.P_CLOSE], par[LY.P_OPEN] = p.bypass_close_frac, p.bypass_open_frac
+    par[LY.P_RELAY_DELAY] = p.relay_delay_s
     par[LY.P_VOUT], par[LY.P_CONNECT], par[LY.P_UVLO] = load.vout, load.connect_V, load.uvlo_V
     par[LY.P_FULL] = 65535.0
     par[LY.P_VAC_CPV] = par[LY.P_IL_CPA] = par[LY.P_VBUS_CPV] = 1.0
@@ -87,7 +88,11 @@ class Plant:
         )  # a lane's numbers side by side (``plant.kernel`` columns)
         lane[:, LY.L_I] = i0_A
         lane[:, LY.L_VC] = vc0_V
-        lane[:, LY.L_BYPASSED] = 1.0  # inrush limiter relay: start-up begins precharged
+        # the inrush limiter's bypass relay: open at power-up (the bus precharged through the
+        # limiter); it follows the controller's command after the contact time
+        lane[:, LY.L_BYPASSED] = 0.0
+        lane[:, LY.L_RELAY_CMD] = 0.0
+        lane[:, LY.L_RELAY_T] = -np.inf
         lane[:, LY.L_THETA], lane[:, LY.L_VRMS], lane[:, LY.L_FREQ] = (
             grid.theta,
             grid.vrms,
@@ -106,7 +111,13 @@ class Plant:
         self.lane = lane
         self.harm = grid.harm
         self.codes = np.zeros((n, 3), dtype=np.uint16)
+        self.no_relay = np.zeros(n, dtype=np.uint8)
         self.ws = LY.workspace(n)
+        self.failed = SensorFaults(
+            n,
+            (self.par[LY.P_VAC_OFF], self.par[LY.P_IL_OFF], 0.0),
+            int(self.par[LY.P_FULL]),
+        )
 
     # -- state ---------------------------------------------------------------------------
     @property
@@ -149,15 +160,28 @@ class Plant:
     def set_vrms(self, j: int, vrms_V: float) -> None:
         self.lane[j, LY.L_VRMS] = vrms_V
 
+    def sensor_fault(self, j: int, ch: int, fault: str, value: float, until_s: float) -> None:
+        """Lane ``j``'s ADC channel ``ch`` fails (``plant.sensor_faults``) until ``until_s``."""
+        self.failed.set(j, ch, fault, value, until_s)
+
     # -- one period ----------------------------------------------------------------------
     def step(
-        self, k: int, compare, gates, out: np.ndarray, model: str = "switching", codes=None
+        self,
+        k: int,
+        compare,
+        gates,
+        out: np.ndarray,
+        model: str = "switching",
+        codes=None,
+        relay=None,
     ) -> np.ndarray:
         """Advance every lane through period ``k`` (starting at ``k T``) with ``compare``
-        (timer counts) and ``gates`` (bit masks), arrays of shape (n,); the period's records
-        go into ``out`` (n, len(FIELDS)); returns the ADC codes sampled in it, (n, 3) uint16
-        (into ``codes`` when given)."""
+        (timer counts), ``gates`` (bit masks) and ``relay`` (the bypass relay's command, bit 0
+        set: close; default open), arrays of shape (n,); the period's records go into ``out``
+        (n, len(FIELDS)); returns the ADC codes sampled in it, (n, 3) uint16 (into ``codes``
+        when given)."""
         codes = self.codes if codes is None else codes
+        relay = self.no_relay if relay is None else relay
         K.step_lanes(
             self.par,
             self.plans,
@@ -169,8 +193,10 @@ class Plant:
             LY.MODEL_SWITCHING if model == "switching" else LY.MODEL_AVERAGED,
             compare,
             gates,
+            relay,
             codes,
             out,
             self.ws,
         )
+        self.failed.apply(k * self.p.period_s, codes)
         return codes

@@ -27,18 +27,18 @@ from .layout import (
     L_DIP_LEVEL,
     L_I,
     L_POWER,
+    L_RELAY_CMD,
+    L_RELAY_T,
     L_S0,
     L_VC,
-    L_VRMS,
     MODEL_SWITCHING,
     P_C,
-    P_CLOSE,
     P_CONNECT,
     P_COUNTS,
     P_ESR,
     P_LSRC,
     P_LT,
-    P_OPEN,
+    P_RELAY_DELAY,
     P_RINRUSH,
     P_RSRC,
     P_RTOT,
@@ -63,7 +63,6 @@ from .layout import (
     R_VC,
     R_VS,
     R_VTERM,
-    SQRT2,
     W_A11,
     W_A12,
     W_A21,
@@ -114,15 +113,15 @@ from .source import advance_phase, source_at
 
 # -- one PWM period of one lane ------------------------------------------------------------
 @jit_inline
-def _relay_open(par, lane, j, vc):
-    """The inrush limiter's bypass relay of lane ``j``: autonomous hardware, hysteretic on the
-    bus against the line peak; True while open (the limiter in the path)."""
-    if par[P_RINRUSH] > 0.0:
-        vpk = SQRT2 * lane[j, L_VRMS]
-        if vc >= par[P_CLOSE] * vpk:
-            lane[j, L_BYPASSED] = 1.0
-        elif vc < par[P_OPEN] * vpk:
-            lane[j, L_BYPASSED] = 0.0
+def _relay_open(par, lane, j, t, relay):
+    """The inrush limiter's bypass relay of lane ``j``: it follows the controller's command
+    (``relay[j]`` bit 0: close) ``P_RELAY_DELAY`` s after the command changed, and never
+    moves by itself; True while open (the limiter in the path)."""
+    cmd = 1.0 if (relay[j] & 1) != 0 else 0.0
+    if cmd != lane[j, L_RELAY_CMD]:
+        lane[j, L_RELAY_CMD], lane[j, L_RELAY_T] = cmd, t
+    if t - lane[j, L_RELAY_T] >= par[P_RELAY_DELAY]:
+        lane[j, L_BYPASSED] = cmd
     return lane[j, L_BYPASSED] == 0.0
 
 
@@ -144,7 +143,7 @@ def _load_terms(par, lane, j, vc):
 
 
 @jit
-def _period_setup(par, lane, harm, t, compare, gates, ws, switching):
+def _period_setup(par, lane, harm, t, compare, gates, relay, ws, switching):
     """Per lane: dip, inrush relay, load terms and what stays fixed over the period; for the
     switching model also each sub-interval's duration, source voltage at its midpoint and
     midpoint difference ``m`` for positive and negative current."""
@@ -154,7 +153,7 @@ def _period_setup(par, lane, harm, t, compare, gates, ws, switching):
     for j in range(n):
         scale = lane[j, L_DIP_LEVEL] if t < lane[j, L_DIP_END] else 1.0
         vc = lane[j, L_VC]
-        relay_open = _relay_open(par, lane, j, vc)
+        relay_open = _relay_open(par, lane, j, t, relay)
         r_path = par[P_RTOT] + (par[P_RINRUSH] if relay_open else 0.0)
         G, Icp = _load_terms(par, lane, j, vc)
         inv_L, inv_C, kk, _, _, a22, b2, _, _ = circuit(Lt, C, rc, r_path, G, Icp)
@@ -348,15 +347,15 @@ def _switching_period(par, plans, ws, n):
 
 
 @jit
-def step_lanes(par, plans, lane, harm, seed, k, t, model, compare, gates, codes, out, ws):
+def step_lanes(par, plans, lane, harm, seed, k, t, model, compare, gates, relay, codes, out, ws):
     """Advance every lane by period ``k`` (starting at ``t`` s) with the given compare
-    (timer counts) and gate masks; write the ADC codes sampled in it into ``codes`` (n, 3)
-    and the period's records into ``out`` (n, len(FIELDS)); ``ws`` is scratch space from
-    ``workspace(n)``."""
+    (timer counts), gate masks and relay commands; write the ADC codes sampled in it into
+    ``codes`` (n, 3) and the period's records into ``out`` (n, len(FIELDS)); ``ws`` is scratch
+    space from ``workspace(n)``."""
     n = lane.shape[0]
     T = par[P_T]
     switching = model == MODEL_SWITCHING
-    _period_setup(par, lane, harm, t, compare, gates, ws, switching)
+    _period_setup(par, lane, harm, t, compare, gates, relay, ws, switching)
     if switching:
         _switching_period(par, plans, ws, n)
         f = 1.0 / T

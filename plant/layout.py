@@ -40,8 +40,12 @@ TWO_PI = 2.0 * math.pi
     L_NOISE2,
     L_S0,
     L_C0,
-) = range(23)
-LANE_ROWS = 23  # L_S0, L_C0: sin and cos of L_THETA, carried along by rotation
+    L_RELAY_CMD,
+    L_RELAY_T,
+) = range(25)
+# L_S0, L_C0: sin and cos of L_THETA, carried along by rotation; L_RELAY_CMD, L_RELAY_T: the
+# relay's last command (1 close) and when it changed (s)
+LANE_ROWS = 25
 
 # entries of the parameter vector (``par``)
 (
@@ -55,8 +59,7 @@ LANE_ROWS = 23  # L_S0, L_C0: sin and cos of L_THETA, carried along by rotation
     P_COUNTS,
     P_RSRC,
     P_LSRC,
-    P_CLOSE,
-    P_OPEN,
+    P_RELAY_DELAY,
     P_VOUT,
     P_CONNECT,
     P_UVLO,
@@ -66,8 +69,8 @@ LANE_ROWS = 23  # L_S0, L_C0: sin and cos of L_THETA, carried along by rotation
     P_IL_CPA,
     P_IL_OFF,
     P_VBUS_CPV,
-) = range(21)  # CPV/CPA: counts per V/A
-PAR_ROWS = 21
+) = range(20)  # CPV/CPA: counts per V/A
+PAR_ROWS = 20
 
 # plant records per period (columns of ``out``, shape (n, len(FIELDS))), in this order
 FIELDS = (

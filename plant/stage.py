@@ -50,12 +50,9 @@ class StageParams:
     source_resistance_ohm: float = 0.0
     source_inductance_H: float = 0.0
     inrush_resistance_ohm: float = (
-        0.0  # series limiter, bypassed by a relay once the bus is charged
+        0.0  # series limiter, bypassed by a relay the controller commands
     )
-    bypass_close_frac: float = (
-        0.95  # relay closes when the bus reaches this fraction of the line peak
-    )
-    bypass_open_frac: float = 0.6  # and opens again below this fraction
+    relay_delay_s: float = 0.01  # the relay follows its command this long after
 
     @property
     def period_s(self) -> float:

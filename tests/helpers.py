@@ -26,27 +26,42 @@ def consts(prj) -> dict[str, float]:
     return {k.name: k.value for k in build_constants(prj)}
 
 
-# Deliberately broken controllers: (template, text of the shipped template, replacement).
+# Deliberately broken controllers: name -> [(template, text of the shipped template,
+# replacement), ...].
+_NO_BLANK = (
+    "polarity.c.j2",
+    "    s->blank = (a < {{ P }}_ZC_BLANK_V) || (s->pol == 0) || (s->pol > 0 && vac < "
+    "{{ zero }}) ||\n               (s->pol < 0 && vac > {{ zero }});",
+    "    (void)a;\n    s->blank = (s->pol == 0); /* TEST BUILD: no zero-crossing window */",
+)
+_NO_SLOW_GUARD = (
+    "pwm.c.j2",
+    "    if (pol != s->last_slow && s->last_slow != 0 &&",
+    "    if (false && /* TEST BUILD: no slow-leg off time */",
+)
+_NO_SYNC_GUARD = (
+    "pwm.c.j2",
+    '''"fwd > " ~ P ~ "_SYNC_MIN_A", "on > 0u"''',
+    '''"(fwd == fwd)"''',
+)
 BREAKS = {
-    # no zero-crossing window: keeps switching in the old polarity until the new one is confirmed
-    "no_zc_blank": (
-        "polarity.c.j2",
-        "    s->blank = (a < {{ P }}_ZC_BLANK_V) || (s->pol == 0) || (s->pol > 0 && vac < "
-        "{{ zero }}) ||\n               (s->pol < 0 && vac > {{ zero }});",
-        "    (void)a;\n    s->blank = (s->pol == 0); /* TEST BUILD: no zero-crossing window */",
-    ),
+    # no zero-crossing window: keeps switching in the old polarity until the new one is
+    # confirmed (the slow leg's off-time rule still holds it off at each change)
+    "no_zc_blank": [_NO_BLANK],
+    # no zero-crossing window, no slow-leg off-time rule, synchronous switch whatever the
+    # current's direction
+    "no_zc_window": [_NO_BLANK, _NO_SLOW_GUARD, _NO_SYNC_GUARD],
 }
 
 
 def broken_loader(name: str) -> jinja2.BaseLoader:
     """The shipped templates with one block patched into a broken controller ``name``."""
-    template, old, new = BREAKS[name]
-    text = (TEMPLATE_DIR / template).read_text()
-    if old not in text:
-        raise AssertionError(f"{template} no longer has the text the '{name}' mutant replaces")
+    patched: dict[str, str] = {}
+    for template, old, new in BREAKS[name]:
+        text = patched.get(template) or (TEMPLATE_DIR / template).read_text()
+        if old not in text:
+            raise AssertionError(f"{template} no longer has the text the '{name}' mutant replaces")
+        patched[template] = text.replace(old, new)
     return jinja2.ChoiceLoader(
-        [
-            jinja2.DictLoader({template: text.replace(old, new)}),
-            jinja2.FileSystemLoader(str(TEMPLATE_DIR)),
-        ]
+        [jinja2.DictLoader(patched), jinja2.FileSystemLoader(str(TEMPLATE_DIR))]
     )

@@ -172,13 +172,15 @@ def test_pwm_assignment_table(demo_project, demo_built):
     out = ffi.new("pfc_pwm_t*")
     for pol, main, slow, syncsw in ((1, GLO, SLO, GHI), (-1, GHI, SHI, GLO)):
         lib.pfc_pwmgen_init(s)
-        # zero-crossing window: disabled -> every gate off
-        lib.pfc_pwmgen_step(s, 0.5, pol, 0, out)
-        assert out.gates == 0 and out.compare == 0
+        # zero-crossing window: disabled -> every gate off, and the compare gives this half's
+        # main switch no on-time (a mask applied before its compare cannot turn it on)
+        lib.pfc_pwmgen_step(s, 0.5, pol, 0, 0.0, out)
+        assert out.gates == 0 and out.compare == (0 if pol > 0 else per)
         rows = []
+        fwd = 2.0 * c["SYNC_MIN_A"] * pol  # current flowing in the half's direction
         for k in range(ramp + sync + 3):
             lim = lib.pfc_pwmgen_limit(s)
-            lib.pfc_pwmgen_step(s, 0.5, pol, 1, out)
+            lib.pfc_pwmgen_step(s, 0.5, pol, 1, fwd, out)
             rows.append((k, lim, out.compare, out.gates))
         for k, lim, cmp_, g in rows:
             d = min(0.5, lim)
@@ -192,10 +194,38 @@ def test_pwm_assignment_table(demo_project, demo_built):
             assert bool(g & syncsw) == (k >= ramp + sync - 1)
         # duty ramps in: the first enabled period has no main on-time
         assert rows[0][1] == 0.0
+        # no synchronous switch while the current is not forward (reverse current)
+        lib.pfc_pwmgen_step(s, 0.5, pol, 1, -fwd, out)
+        assert out.gates & main and not out.gates & syncsw
     # polarity unknown: gates off
     lib.pfc_pwmgen_init(s)
-    lib.pfc_pwmgen_step(s, 0.5, 0, 1, out)
+    lib.pfc_pwmgen_step(s, 0.5, 0, 1, 0.0, out)
     assert out.gates == 0
+
+
+def test_slow_leg_changes_switch_only_after_its_off_time_and_near_zero_current(
+    demo_project, demo_built
+):
+    """The slow leg's other switch turns on only after SLOW_OFF_MIN_PERIODS periods with both
+    off and with |i| below SLOW_SWAP_MAX_A; else the outputs stay off."""
+    c = consts(demo_project)
+    ffi, lib = demo_built.ffi, demo_built.lib
+    s, out = ffi.new("pfc_pwmgen_t*"), ffi.new("pfc_pwm_t*")
+    lib.pfc_pwmgen_init(s)
+    lib.pfc_pwmgen_step(s, 0.5, 1, 1, 0.0, out)
+    assert out.gates & SLO
+    # one off period only, then the negative half: refused
+    off = int(c["SLOW_OFF_MIN_PERIODS"])
+    for _ in range(off - 1):
+        lib.pfc_pwmgen_step(s, 0.5, -1, 0, 0.0, out)
+    lib.pfc_pwmgen_step(s, 0.5, -1, 1, 0.0, out)
+    assert out.gates == 0
+    # off long enough but current flowing: refused
+    lib.pfc_pwmgen_step(s, 0.5, -1, 1, 1.5 * c["SLOW_SWAP_MAX_A"], out)
+    assert out.gates == 0
+    # off long enough and the current near zero: the slow high switch turns on
+    lib.pfc_pwmgen_step(s, 0.5, -1, 1, 0.5 * c["SLOW_SWAP_MAX_A"], out)
+    assert out.gates & SHI and not out.gates & SLO
 
 
 adc_code = st.integers(0, 65535)
@@ -240,13 +270,15 @@ def test_step_arbitrary_adc_stays_in_range(demo_built, seq, repeat, stuck):
 
 def test_supervisor_trip_rules(demo_project, demo_built):
     """Over-current while switching trips (gates off in the same period) and counts toward the
-    latch; the same current while the gates are already off, or while the line is at or above
-    the bus (either way the line rectified through the body diodes), is recorded but neither
-    counted nor allowed to hold off the restart."""
+    latch; the same current while the gates are already off, or while the line is at or above a
+    plausible bus reading (either way the line rectified through the body diodes), is recorded
+    but neither counted nor allowed to hold off the restart."""
     ffi, lib = demo_built.ffi, demo_built.lib
     c = consts(demo_project)
     oc = c["OC_TRIP_A"] * 1.2
     sv, sn = ffi.new("pfc_supervisor_t*"), ffi.new("pfc_sense_t*")
+    pf = ffi.new("pfc_plaus_t*")
+    lib.pfc_plaus_init(pf)
     pl, rm = ffi.new("pfc_polarity_t*"), ffi.new("pfc_rms_t*")
     lib.pfc_polarity_init(pl)
     lib.pfc_rms_init(rm)
@@ -254,7 +286,7 @@ def test_supervisor_trip_rules(demo_project, demo_built):
 
     def step(il_A):
         sn.il = il_A
-        lib.pfc_supervisor_step(sv, sn, pl, rm, 0)
+        lib.pfc_supervisor_step(sv, sn, pf, pl, rm, 0)
         return sv.mode
 
     # idle (waiting for the line): over-current is recorded only
@@ -269,16 +301,22 @@ def test_supervisor_trip_rules(demo_project, demo_built):
         assert sv.trips == n
         assert m == (lib.PFC_MODE_LATCHED if n == c["RETRY_LIMIT"] else lib.PFC_MODE_TRIPPED)
     # switching with the line at or above the bus (within DIODE_MARGIN_V): the current is the
-    # line rectified through the body diodes, recorded and not tripped on
-    lib.pfc_supervisor_init(sv)
-    sv.mode = lib.PFC_MODE_RUN
+    # line rectified through the body diodes, recorded and not tripped on, as long as the bus
+    # reading is one a real bus can show (at most BUS_LOW_MARGIN_V below the line)
     rm.brown = 0  # a healthy line otherwise, so that RUN stays RUN
-    sn.vac = sn.vbus - 0.9 * c["DIODE_MARGIN_V"]
-    assert step(oc) == lib.PFC_MODE_RUN and sv.trips == 0 and sv.history & lib.PFC_FAULT_OC
-    sn.vac = -sn.vac  # either polarity
-    assert step(oc) == lib.PFC_MODE_RUN and sv.trips == 0
-    sn.vac = sn.vbus - 1.1 * c["DIODE_MARGIN_V"]  # just below: the converter has control, a trip
-    assert step(oc) == lib.PFC_MODE_TRIPPED and sv.trips == 1
+    for vac, tripped in (
+        (sn.vbus - 0.9 * c["DIODE_MARGIN_V"], False),
+        (-(sn.vbus - 0.9 * c["DIODE_MARGIN_V"]), False),  # either polarity
+        (sn.vbus + 0.9 * c["BUS_LOW_MARGIN_V"], False),
+        (sn.vbus - 1.1 * c["DIODE_MARGIN_V"], True),  # the converter has control: a trip
+        (sn.vbus + 1.1 * c["BUS_LOW_MARGIN_V"], True),  # a bus reading failed low: a trip
+    ):
+        lib.pfc_supervisor_init(sv)
+        sv.mode = lib.PFC_MODE_RUN
+        sn.vac = vac
+        m = step(oc)
+        assert (m == lib.PFC_MODE_TRIPPED) == tripped, vac
+        assert sv.trips == int(tripped) and sv.history & lib.PFC_FAULT_OC
     sn.vac = 0.0
     # tripped: further over-current (diode conduction, gates off) does not restart the retry delay
     lib.pfc_supervisor_init(sv)

@@ -89,7 +89,7 @@ class Liar:
             elif f.ftype == link.RESET:
                 self.out += link.encode(f.ftype | link.ACK, f.seq)
             elif f.ftype == link.STEP:
-                self.out += link.encode(f.ftype | link.ACK, f.seq, bytes([1, 0, 0, 0, 9, 0, 0]))
+                self.out += link.encode(f.ftype | link.ACK, f.seq, bytes([1, 0, 0, 0, 9, 0, 0, 0]))
 
     def read(self, timeout_s):
         out, self.out = self.out, b""

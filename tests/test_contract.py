@@ -72,7 +72,8 @@ def test_host_side_reads_the_same_numbers():
     sof = bytes([contract.link_value("SOF0"), contract.link_value("SOF1")])
     assert link.SOF == sof  # noqa: SIM300
     assert (link.HELLO, link.RESET, link.STEP, link.SNAPSHOT, link.COST) == (1, 2, 3, 4, 5)
-    step_bytes = contract.link_value("STEP_IN_BYTES")
+    # the largest payload: a count byte and MAX_STEPS periods of the larger record (the answer)
+    step_bytes = max(contract.link_value("STEP_IN_BYTES"), contract.link_value("STEP_OUT_BYTES"))
     assert link.MAX_PAYLOAD == 1 + link.MAX_STEPS_PER_FRAME * step_bytes  # noqa: SIM300
     # CRC-16/CCITT-FALSE check value of "123456789" is 0x29B1 (the catalogue of CRC parameters)
     assert link.crc16(b"123456789") == 0x29B1
@@ -86,8 +87,8 @@ def test_host_side_reads_the_same_numbers():
 
 def test_mode_edges_reach_every_mode_and_leave_the_latches_alone():
     """Every mode is reachable from WAIT_LINE along the allowed edges, and the latched modes
-    have no way out but init (no edge leaves SENSOR_FAULT; LATCHED only into SENSOR_FAULT, when
-    a non-finite state is found while latched)."""
+    have no way out but a fault-clear request (to WAIT_LINE) or init (LATCHED also into
+    SENSOR_FAULT, when a non-finite state is found while latched)."""
     M = contract.Mode
     seen, todo = {M.WAIT_LINE}, [M.WAIT_LINE]
     while todo:
@@ -98,4 +99,8 @@ def test_mode_edges_reach_every_mode_and_leave_the_latches_alone():
                 todo.append(b)
     assert seen == set(M)
     leaving = {e for e in contract.MODE_EDGES if e[0] in (M.LATCHED, M.SENSOR_FAULT)}
-    assert leaving == {(M.LATCHED, M.SENSOR_FAULT)}
+    assert leaving == {
+        (M.LATCHED, M.SENSOR_FAULT),
+        (M.LATCHED, M.WAIT_LINE),
+        (M.SENSOR_FAULT, M.WAIT_LINE),
+    }

@@ -65,21 +65,26 @@ def test_bounded_campaign(demo_project, tmp_path):
     assert not failing, (failing, [str(p) for p in res.saved])
 
 
+def _broken_campaign(prj, name):
+    broken = build_project(prj, broken_loader(name))
+    res = fuzz.campaign(
+        prj, 16, seed=2026, workers=1, batch=16, out_dir=None, log=lambda m: None, built=broken
+    )
+    return res.counts()
+
+
 @pytest.mark.slow
 def test_campaign_catches_a_broken_controller(demo_project):
-    """A controller without its zero-crossing window (rendered from a patched template, see
-    tests/helpers.py) keeps switching in the old polarity near each crossing: the campaign
-    must flag it."""
-    broken = build_project(demo_project, broken_loader("no_zc_blank"))
-    res = fuzz.campaign(
-        demo_project,
-        16,
-        seed=2026,
-        workers=1,
-        batch=16,
-        out_dir=None,
-        log=lambda m: None,
-        built=broken,
-    )
-    counts = res.counts()
+    """A controller without its zero-crossing window and without the slow leg's off-time rule
+    (rendered from patched templates, see tests/helpers.py) keeps switching in the old
+    polarity near each crossing: the campaign must flag it."""
+    counts = _broken_campaign(demo_project, "no_zc_window")
     assert counts["zc_spike"] + counts["chatter"] + counts["ov_oc"] > 0, counts
+
+
+@pytest.mark.slow
+def test_slow_leg_rule_holds_without_the_zero_crossing_window(demo_project):
+    """Two layers: with the zero-crossing window removed alone, the slow leg's off-time and
+    near-zero-current rule still keeps the legs from changing roles under current."""
+    counts = _broken_campaign(demo_project, "no_zc_blank")
+    assert counts["legs"] == 0 and counts["chatter"] == 0, counts

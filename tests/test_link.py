@@ -79,7 +79,9 @@ class FakeTarget:
     def write(self, data):
         f = link.Decoder().feed(data)[0]
         ans = link.encode(
-            f.ftype | link.ACK, f.seq, bytes([1]) + b"\x00" * 6 if f.ftype == link.STEP else b""
+            f.ftype | link.ACK,
+            f.seq,
+            bytes([1]) + b"\x00" * link.STEP_OUT_BYTES if f.ftype == link.STEP else b"",
         )
         if self.mode == "duplicate":
             self.queue += [ans, ans]
@@ -98,7 +100,7 @@ class FakeTarget:
 def test_duplicated_answer_is_skipped_by_sequence():
     s = link.Session(FakeTarget("duplicate"), timeout_s=0.2)
     for _ in range(3):
-        assert s.step([(1, 2, 3)]) == [(0, 0, 0, 0)]
+        assert s.step([(1, 2, 3)]) == [(0, 0, 0, 0, 0)]
 
 
 def test_stale_answer_detected_and_silent_target_times_out():

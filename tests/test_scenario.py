@@ -44,7 +44,7 @@ def test_round_trip_exact(tmp_path):
     v=st.floats(0.0, 300.0),
     f=st.floats(40.0, 70.0),
     ph=st.floats(-360.0, 360.0),
-    t=st.floats(0.0, 1.0),
+    t=st.floats(0.0, 1.0, exclude_max=True),  # an event at the end is refused
     res=st.floats(0.0, 1.0),
     cyc=st.floats(0.0, 300.0),
 )

@@ -20,6 +20,7 @@ from hypothesis import strategies as st
 
 from design.project import Project
 from harness.closedloop.scenario import Event, Scenario
+from plant.sensor_faults import CHANNELS, FAULTS
 
 RECOVERY_CYCLES = 10  # line cycles after the line returns (or a load step) to be within 2 %
 RESTART_CYCLES = 20  # the same when the stage had to stop and restart
@@ -58,6 +59,16 @@ class Case:
     cycles: float = 0.0
     event_deg: float = 0.0
     load_to_frac: float = 1.0
+    # a failed sensor ("" none): channel, fault, value (counts; gain: the factor), glitch
+    # length (periods), at this line angle from t = 0 (degrees; 360 a line cycle)
+    sensor_channel: str = ""
+    sensor_fault: str = ""
+    sensor_value: float = 0.0
+    sensor_periods: int = 1
+    sensor_deg: float = 0.0
+
+    def sensor_time_s(self) -> float:
+        return self.sensor_deg / 360.0 / self.freq_Hz
 
     def event_time_s(self) -> float:
         k = math.ceil(SETTLE_S * self.freq_Hz)
@@ -76,6 +87,9 @@ class Case:
             events = (Event(t_ev, "dip", (("residual", self.residual), ("cycles", self.cycles))),)
         elif self.event == "load":
             events = (Event(t_ev, "load", (("power", self.load_to_frac * spec.power * derate),)),)
+        if self.sensor_channel:
+            events = (*events, self._sensor_event())
+            events = tuple(sorted(events, key=lambda ev: ev.t_s))
         if self.event == "none":
             cycles = 4
         else:
@@ -96,6 +110,46 @@ class Case:
             seed=self.seed,
             name=name,
         )
+
+    def _sensor_event(self) -> Event:
+        key = "value" if self.sensor_fault == "gain" else "value_counts"
+        vals: tuple[tuple[str, float], ...] = ()
+        if self.sensor_fault != "open":
+            vals = ((key, self.sensor_value),)
+        if self.sensor_fault == "glitch":
+            vals += (("periods", float(self.sensor_periods)),)
+        words = (("channel", self.sensor_channel), ("fault", self.sensor_fault))
+        return Event(self.sensor_time_s(), "sensor", vals, words)
+
+
+def sensor_fault_of(full_counts: int, freq_Hz: float) -> st.SearchStrategy[dict[str, Any]]:
+    """A failed sensor: each channel, each fault, any value the ADC can hold, at any phase
+    and in any mode (from power-up to a line cycle after the settling time); the only fault
+    of its case (no line or load event)."""
+    last = 360.0 * (math.ceil(SETTLE_S * freq_Hz) + 1)
+    ch = st.sampled_from(CHANNELS)
+    code = st.integers(0, full_counts).map(float)
+    value = {
+        "stuck": code,
+        "glitch": code,
+        "offset": st.integers(-full_counts // 4, full_counts // 4).map(float),
+        "gain": _floats(0.0, 2.0),
+        "open": st.just(0.0),
+    }
+
+    def one(fault: str) -> st.SearchStrategy[dict[str, Any]]:
+        return st.fixed_dictionaries(
+            {
+                "sensor_channel": ch,
+                "sensor_fault": st.just(fault),
+                "sensor_value": value[fault],
+                "sensor_periods": st.integers(1, 64),
+                "sensor_deg": _floats(0.0, last),
+                "event": st.just("none"),
+            }
+        )
+
+    return st.sampled_from(FAULTS).flatmap(one)
 
 
 def restart_expected(prj: Project, c: Case) -> bool:
@@ -182,6 +236,7 @@ def cases(
     max_event_cycles: float = 12.0,
     vrms_range: tuple[float, float] = (85.0, 265.0),
     freq_range: tuple[float, float] = (45.0, 66.0),
+    sensor_full_counts: int = 0,
 ) -> st.SearchStrategy[Case]:
     """Whole cases: a line over ``vrms_range`` (Vrms) and ``freq_range`` (Hz), then the
     other pieces joined with ``st.builds``."""
@@ -195,7 +250,10 @@ def cases(
                 kw.update(part)
             return Case(vrms_V=vrms, freq_Hz=f, **kw)
 
-        return st.builds(join, distortion(), sensor_errors(), loads(), events(f, max_event_cycles))
+        parts = [distortion(), sensor_errors(), loads(), events(f, max_event_cycles)]
+        if sensor_full_counts:
+            parts.append(sensor_fault_of(sensor_full_counts, f))
+        return st.builds(join, *parts)
 
     return st.tuples(_floats(*vrms_range), _floats(*freq_range)).flatmap(around)
 
@@ -206,6 +264,7 @@ def draw_cases(
     max_event_cycles: float = 12.0,
     vrms_range: tuple[float, float] = (85.0, 265.0),
     freq_range: tuple[float, float] = (45.0, 66.0),
+    sensor_full_counts: int = 0,
 ) -> list[Case]:
     """``n`` distinct cases drawn by hypothesis, reproducibly from ``seed`` (eight cases per
     hypothesis example, so each example stays within hypothesis's size budget)."""
@@ -213,7 +272,7 @@ def draw_cases(
 
     out: list[Case] = []
     seen: set[Case] = set()
-    strat = cases(max_event_cycles, vrms_range, freq_range)
+    strat = cases(max_event_cycles, vrms_range, freq_range, sensor_full_counts)
     group = 8
 
     # hypothesis opens with its simplest example (the same case drawn over and over, which

@@ -19,6 +19,7 @@ from harness.closedloop.scenario import Scenario, dumps
 
 from .cases import Case, draw_cases, line_ranges
 from .invariants import INVARIANTS, check_lane
+from .safety import SAFETY_INVARIANTS
 
 
 @dataclass
@@ -35,7 +36,8 @@ class Verdict:
 def check(prj: Project, res: RunResult, k: int, c: Case | Scenario) -> Verdict:
     """Every invariant on lane ``k`` of a run of case (or scenario) ``c``."""
     scn = c.to_scenario(prj) if isinstance(c, Case) else c
-    failed, figures = check_lane(prj, scn, res.lane(k))
+    sensor = any(ev.kind == "sensor" for ev in scn.events)  # a failed sensor: single-fault ones
+    failed, figures = check_lane(prj, scn, res.lane(k), SAFETY_INVARIANTS if sensor else None)
     return Verdict(c, failed, figures)
 
 
@@ -115,9 +117,18 @@ class CampaignResult:
     wall_s: float
     saved: list[Path]
     shrunk: list[Case]
+    sensor_faults: bool = False
 
     def counts(self) -> dict[str, int]:
-        return {inv: sum(1 for v in self.verdicts if inv in v.failed) for inv in INVARIANTS}
+        return {inv: sum(1 for v in self.verdicts if inv in v.failed) for inv in self.names}
+
+    @property
+    def names(self) -> list[str]:
+        """The invariants the cases were checked against (the single-fault ones join in a
+        campaign with sensor faults)."""
+        return list(
+            dict.fromkeys([*INVARIANTS, *(SAFETY_INVARIANTS if self.sensor_faults else ())])
+        )
 
     @property
     def ok(self) -> bool:
@@ -135,10 +146,14 @@ def campaign(
     do_shrink: bool = True,
     log=print,
     built=None,
+    sensor_faults: bool = False,
 ) -> CampaignResult:
+    """``sensor_faults``: every case also fails one sensor (``cases.sensor_fault_of``) and is
+    checked against the single-fault invariants (``campaigns.safety``)."""
     t0 = time.perf_counter()
     vrms_range, freq_range = line_ranges(prj)
-    cases = draw_cases(n, seed, max_event_cycles, vrms_range, freq_range)
+    full = prj.resolved.adc_full_counts if sensor_faults else 0
+    cases = draw_cases(n, seed, max_event_cycles, vrms_range, freq_range, full)
     chunks = [cases[i : i + batch] for i in range(0, len(cases), batch)]
     verdicts: list[Verdict] = []
     log(
@@ -181,4 +196,4 @@ def campaign(
                 tmp.write_text(text)
             saved.append(path)
             log(f"  saved {path}")
-    return CampaignResult(verdicts, time.perf_counter() - t0, saved, shrunk)
+    return CampaignResult(verdicts, time.perf_counter() - t0, saved, shrunk, sensor_faults)

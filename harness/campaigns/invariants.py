@@ -225,12 +225,15 @@ BOUNDS = {
 }
 
 
-def check_lane(prj: Project, scn: Scenario, d: dict[str, np.ndarray]) -> tuple[dict, dict]:
-    """({invariant: message} of the violated ones, figures) for one lane's records."""
+def check_lane(
+    prj: Project, scn: Scenario, d: dict[str, np.ndarray], table: dict | None = None
+) -> tuple[dict, dict]:
+    """({invariant: message} of the violated ones, figures) for one lane's records, against
+    ``table`` (default ``INVARIANTS``)."""
     n = int(round(scn.duration_s * prj.config.spec.fsw))
     ln = Lane(prj, scn, {key: a[:n] for key, a in d.items()}, timing_of(prj, scn))
     failed = {}
-    for name, inv in INVARIANTS.items():
+    for name, inv in (INVARIANTS if table is None else table).items():
         msg = inv(ln)
         if msg is not None:
             failed[name] = msg

@@ -10,7 +10,7 @@ from pathlib import Path
 
 from design.project import load_project
 from harness.campaigns import fuzz
-from harness.campaigns.invariants import BOUNDS, INVARIANTS
+from harness.campaigns.invariants import BOUNDS
 
 from . import checks
 from .output import write_json
@@ -56,6 +56,12 @@ def register(sub: argparse._SubParsersAction) -> None:
         help="where failing cases are saved as scenarios",
     )
     q.add_argument("--no-shrink", action="store_true", help="save failing cases as drawn")
+    q.add_argument(
+        "--sensor-faults",
+        action="store_true",
+        help="fail one sensor in every case (stuck, offset, gain, glitch, open; any channel, "
+        "phase and mode) and check the single-fault invariants",
+    )
     q.add_argument("--json", metavar="OUT", help="write the campaign report as JSON")
     q.set_defaults(func=fuzz_cmd)
 
@@ -75,9 +81,10 @@ def fuzz_cmd(args: argparse.Namespace) -> int:
         max_event_cycles=args.max_event_cycles,
         do_shrink=not args.no_shrink,
         log=lambda m: print(m, file=sys.stderr),
+        sensor_faults=args.sensor_faults,
     )
     counts = res.counts()
-    rows = [(inv, len(res.verdicts) - counts[inv], counts[inv]) for inv in INVARIANTS]
+    rows = [(inv, len(res.verdicts) - counts[inv], counts[inv]) for inv in res.names]
     print(format_table(["invariant", "held", "violated"], rows))
     print(
         f"{len(res.verdicts)} cases, {sum(not v.ok for v in res.verdicts)} failing, "

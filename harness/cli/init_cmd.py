@@ -33,6 +33,8 @@ DERIVED = {
     ("control", "zc_blank_voltage"): "zc_blank_V",
     ("protection", "ov_trip"): "ov_trip_V",
     ("protection", "oc_trip"): "oc_trip_A",
+    ("protection", "hw_ov_level"): "hw_ov_level_V",
+    ("protection", "device_current_limit"): "device_current_A",
     ("protection", "brownout_off_rms"): "brownout_off_rms_V",
     ("protection", "brownout_on_rms"): "brownout_on_rms_V",
     ("sensing", "vac_range"): "vac_range_V",

@@ -24,12 +24,14 @@ from plant.batch import FIELDS as PLANT_FIELDS
 from plant.batch import Plant
 from plant.grid import Grid
 from plant.load import Load
+from plant.sensor_faults import CHANNELS
 from plant.sensors import AdcScaling, Sensors
 from plant.stage import StageParams
 
 from .scenario import Scenario
 
-PWM_DTYPE = np.dtype([(f.name, f.dtype) for f in OUTPUT_FIELDS])
+# C layout: fields aligned as the compiler aligns them (a pad byte after ``status``)
+PWM_DTYPE = np.dtype([(f.name, f.dtype) for f in OUTPUT_FIELDS], align=True)
 N_PROBES = len(PROBES)
 # bytes of records one lane keeps per period (plant figures, outputs, internals)
 RECORD_BYTES_PER_PERIOD = 8 * len(PLANT_FIELDS) + PWM_DTYPE.itemsize + 4 * N_PROBES
@@ -40,6 +42,7 @@ RECORDED = (
     "gates",
     "mode",
     "faults",
+    "status",
     "duty",
     "iref_A",
     "vref_V",
@@ -65,6 +68,7 @@ def stage_params(prj: Project) -> StageParams:
         source_resistance_ohm=pl.source_resistance,
         source_inductance_H=pl.source_inductance,
         inrush_resistance_ohm=pl.inrush_resistance,
+        relay_delay_s=pl.relay_delay,
     )
 
 
@@ -253,7 +257,7 @@ def run(
     # reads them where the controller leaves them (in-process: the C structs themselves)
     pwm = ctl.pwm_view if local else np.zeros(n, dtype=PWM_DTYPE)
     codes = ctl.adc_view if local else np.zeros((n, 3), dtype=np.uint16)
-    compare, gates = pwm["compare"], pwm["gates"]
+    compare, gates, relay = pwm["compare"], pwm["gates"], pwm["status"]
 
     events = [list(s.events) for s in scenarios]
     next_t = [ev[0].t_s if ev else np.inf for ev in events]
@@ -279,7 +283,7 @@ def run(
                     _apply(plant, j, events[j].pop(0), t)
                 next_t[j] = events[j][0].t_s if events[j] else np.inf
             next_min = min(next_t)
-        plant.step(k, compare, gates, plant_rec[k], model, codes)
+        plant.step(k, compare, gates, plant_rec[k], model, codes, relay)
         if record is not None:
             record(k)
         else:
@@ -301,7 +305,11 @@ def run(
         pwm_rec[1 : periods + 1],
         pwm_rec[:periods],
     )  # the plant ran period k with outputs k - 1
-    rec["mode"], rec["faults"] = outputs["mode"], outputs["faults"]
+    rec["mode"], rec["faults"], rec["status"] = (
+        outputs["mode"],
+        outputs["faults"],
+        outputs["status"],
+    )
     rec["compare"], rec["gates"] = applied["compare"], applied["gates"]
     rec["shoot_through"] = ((applied["gates"] & Gate.SLOW_LO) != 0) & (
         (applied["gates"] & Gate.SLOW_HI) != 0
@@ -332,3 +340,11 @@ def _apply(plant: Plant, j: int, ev, t: float) -> None:
         plant.phase_jump(j, ev.get("deg"))
     elif ev.kind == "vrms":
         plant.set_vrms(j, ev.get("vrms"))
+    elif ev.kind == "sensor":
+        fault = ev.word("fault")
+        if fault == "glitch":
+            until = t + (ev.get("periods") - 0.5) * plant.p.period_s
+        else:
+            until = t + ev.get("duration", float("inf"))
+        value = ev.get("value", 0.0) if fault == "gain" else ev.get("value_counts", 0.0)
+        plant.sensor_fault(j, CHANNELS.index(ev.word("channel")), fault, value, until)

@@ -11,8 +11,9 @@ from pathlib import Path
 import numpy as np
 
 from codegen.render import VERSION, render
-from design.contract import Fault, Mode
+from design.contract import Fault, Gate, Mode
 from design.project import Project
+from design.rules import SLOW_OFF_MIN_PERIODS, SLOW_SWAP_OF_PEAK
 from design.sizing import boost_ripple_pp
 
 from . import metrics
@@ -154,6 +155,7 @@ def _events(d: dict, res: RunResult, k: int, smooth: np.ndarray, il_abs: np.ndar
         info = {
             "t_s": ev.t_s,
             "kind": ev.kind,
+            **dict(ev.words),
             **dict(ev.values),
             "window_s": [a, b],
             "band": SETTLE_BAND,
@@ -193,6 +195,23 @@ def _warnings(d: dict, res: RunResult, dcm: float) -> list[str]:
     return out
 
 
+def unsafe_swaps(d: dict[str, np.ndarray], prj: Project) -> int:
+    """Slow-leg role changes (slow low on, then slow high on, or back) with fewer than
+    SLOW_OFF_MIN_PERIODS periods of both off between them, or with the real current above
+    SLOW_SWAP_OF_PEAK of the sized peak when the new switch turns on."""
+    g = d["gates"].astype(int)
+    slow = np.where(g & Gate.SLOW_LO, 1, np.where(g & Gate.SLOW_HI, -1, 0))
+    idx = np.flatnonzero(slow)
+    if len(idx) < 2:
+        return 0
+    change = np.flatnonzero(np.diff(slow[idx]) != 0) + 1
+    k_new, k_old = idx[change], idx[change - 1]
+    gap = k_new - k_old - 1
+    i_at = np.abs(d["i_end_A"][np.maximum(k_new - 1, 0)])
+    bad = (gap < SLOW_OFF_MIN_PERIODS) | (i_at > SLOW_SWAP_OF_PEAK * prj.sizing.iline_peak_A)
+    return int(bad.sum())
+
+
 def lane_report(res: RunResult, k: int = 0) -> dict:
     """Every figure of lane ``k``: steady-state figures over the steady window (``None`` when
     there is none, with the reason), each event over its own window, the whole run."""
@@ -224,6 +243,7 @@ def lane_report(res: RunResult, k: int = 0) -> dict:
         "modes_seen": sorted({mode_name(int(m)) for m in np.unique(modes)}),
         "faults_seen": fault_names(int(np.bitwise_or.reduce(d["faults"].astype(int)))),
         "shoot_through_periods": int(np.sum(d["shoot_through"])),
+        "slow_leg_unsafe_swaps": unsafe_swaps(d, prj),
         "dcm_fraction": dcm,
     }
     rep["events"] = _events(d, res, k, smooth, il_abs)

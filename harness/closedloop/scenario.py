@@ -21,6 +21,13 @@ t = 0.4                        # s
 kind = "dip"                   # dip: residual (fraction), cycles; load: power (W);
 residual = 0.0                 # freq: hz; phase_jump: deg; vrms: vrms (V)
 cycles = 1.0
+[[event]]                      # a failed sensor (plant.sensor_faults)
+t = 0.3
+kind = "sensor"
+channel = "vbus"               # vac, il or vbus
+fault = "stuck"                # stuck, offset (value_counts); gain (value);
+value_counts = 0               # glitch (value_counts, periods); open
+duration = 0.1                 # s, optional: for good without it
 ```
 """
 
@@ -31,6 +38,7 @@ from dataclasses import dataclass, field
 from pathlib import Path
 
 from design.config import ConfigError, read_toml
+from plant.sensor_faults import CHANNELS, FAULTS
 
 EVENT_KEYS = {
     "dip": {"residual": (0.0, 1.0), "cycles": (0.0, 10000.0)},
@@ -38,6 +46,15 @@ EVENT_KEYS = {
     "freq": {"hz": (1.0, 1000.0)},
     "phase_jump": {"deg": (-360.0, 360.0)},
     "vrms": {"vrms": (0.0, 1000.0)},
+    "sensor": {},  # channel, fault and the fault's own keys: SENSOR_KEYS
+}
+# the numbers each sensor fault takes (besides the optional duration, s)
+SENSOR_KEYS = {
+    "stuck": {"value_counts": (0.0, 65535.0)},
+    "offset": {"value_counts": (-65535.0, 65535.0)},
+    "gain": {"value": (-10.0, 10.0)},
+    "glitch": {"value_counts": (0.0, 65535.0), "periods": (1.0, 1e6)},
+    "open": {},
 }
 
 
@@ -46,9 +63,16 @@ class Event:
     t_s: float
     kind: str
     values: tuple[tuple[str, float], ...]
+    words: tuple[tuple[str, str], ...] = ()  # a sensor event's channel and fault
 
-    def get(self, key: str) -> float:
-        return dict(self.values)[key]
+    def get(self, key: str, default: float | None = None) -> float:
+        v = dict(self.values).get(key, default)
+        if v is None:
+            raise KeyError(key)
+        return v
+
+    def word(self, key: str) -> str:
+        return dict(self.words)[key]
 
 
 @dataclass(frozen=True)
@@ -114,6 +138,40 @@ def _whole(src: str, where: str, v: object, lo: float, hi: float) -> int:
     return int(x)
 
 
+def _values(src: str, where: str, e: dict, keys: dict) -> tuple[tuple[str, float], ...]:
+    vals = []
+    for k, (lo, hi) in keys.items():
+        if k not in e:
+            raise ConfigError(f"{src}: {where} ({e['kind']}): {k} missing")
+        vals.append((k, _num(src, f"{where} {k}", e[k], lo, hi)))
+    return tuple(vals)
+
+
+def _word(src: str, where: str, e: dict, key: str, allowed: tuple[str, ...]) -> str:
+    v = e.get(key)
+    if v is None:
+        raise ConfigError(f"{src}: {where} (sensor): {key} missing ({', '.join(allowed)})")
+    if not isinstance(v, str) or v not in allowed:
+        raise ConfigError(f"{src}: {where} {key} = {v!r}: allowed values are {', '.join(allowed)}")
+    return v
+
+
+def _sensor_event(src: str, where: str, t: float, e: dict) -> Event:
+    channel = _word(src, where, e, "channel", CHANNELS)
+    fault = _word(src, where, e, "fault", FAULTS)
+    keys = dict(SENSOR_KEYS[fault])
+    allowed = ["channel", "fault", *keys, "duration"]
+    _known(
+        src, f"{where} ({fault})", {k: v for k, v in e.items() if k not in ("t", "kind")}, allowed
+    )
+    vals = _values(src, where, e, keys)
+    if "periods" in keys and not float(e["periods"]).is_integer():
+        raise ConfigError(f"{src}: {where} periods = {e['periods']!r}: expected a whole number")
+    if "duration" in e:
+        vals += (("duration", _num(src, f"{where} duration", e["duration"], 0.0, 1e4)),)
+    return Event(t, "sensor", vals, (("channel", channel), ("fault", fault)))
+
+
 def from_dict(d: dict, src: str = "<scenario>") -> Scenario:
     if not isinstance(d, dict):
         raise ConfigError(f"{src}: expected TOML tables")
@@ -151,14 +209,13 @@ def from_dict(d: dict, src: str = "<scenario>") -> Scenario:
             raise ConfigError(
                 f"{src}: {where} kind = {e['kind']!r}: allowed values are {', '.join(EVENT_KEYS)}"
             )
+        t = _num(src, f"{where} t", e["t"], 0.0, 1e4)
+        if e["kind"] == "sensor":
+            events.append(_sensor_event(src, where, t, e))
+            continue
         keys = EVENT_KEYS[e["kind"]]
         _known(src, where, {k: v for k, v in e.items() if k not in ("t", "kind")}, list(keys))
-        vals = []
-        for k, (lo, hi) in keys.items():
-            if k not in e:
-                raise ConfigError(f"{src}: {where} ({e['kind']}): {k} missing")
-            vals.append((k, _num(src, f"{where} {k}", e[k], lo, hi)))
-        events.append(Event(_num(src, f"{where} t", e["t"], 0.0, 1e4), e["kind"], tuple(vals)))
+        events.append(Event(t, e["kind"], _values(src, where, e, keys)))
     duration = _num(src, "duration", d["duration"], 1e-4, 1e4)
     late = [ev for ev in events if ev.t_s >= duration]
     if late:
@@ -236,6 +293,7 @@ def dumps(s: Scenario) -> str:
     lines.append(f"seed = {s.seed}")
     for e in s.events:
         lines += ["", "[[event]]", f"t = {_fmt(e.t_s)}", f'kind = "{e.kind}"']
+        lines += [f'{k} = "{w}"' for k, w in e.words]
         lines += [f"{k} = {_fmt(v)}" for k, v in e.values]
     return "\n".join(lines) + "\n"
 

@@ -11,7 +11,8 @@ numbers its requests; the target answers each with the same ``seq``.  Types:
                                   sizeof ctrl u16, digest (16 ASCII hex), prefix (ASCII)
     RESET 0x02 / RESET_ACK 0x82   the controller is re-initialised
     STEP  0x03 / STEP_ACK  0x83   step: n u8, then n x (vac u16, il u16, vbus u16);
-                                  ack:  n u8, then n x (compare u16, gates u8, mode u8, faults u16)
+                                  ack:  n u8, then n x (compare u16, gates u8, mode u8,
+                                        faults u16, status u8)
     SNAPSHOT 0x04 / 0x84          request: offset u16; ack: state size u16, offset u16, then up
                                   to 256 bytes of the controller state from that offset (raw,
                                   in the target's own layout)
@@ -40,6 +41,7 @@ ERROR = link_value("ERROR_TYPE")
 SNAPSHOT_CHUNK = link_value("SNAPSHOT_CHUNK")
 ACK = link_value("ACK_BIT")
 MAX_PAYLOAD = link_value("MAX_PAYLOAD")
+STEP_OUT_BYTES = link_value("STEP_OUT_BYTES")
 MAX_STEPS_PER_FRAME = link_value("MAX_STEPS")
 DIGEST_CHARS = link_value("DIGEST_CHARS")
 FORMAT_NAMES = {code: name for name, code in NUMBER_FORMATS.items()}
@@ -123,10 +125,13 @@ def step_payload(codes) -> bytes:
     return bytes([len(rows)]) + b"".join(struct.pack("<HHH", *r) for r in rows)
 
 
-def parse_step_ack(payload: bytes) -> list[tuple[int, int, int, int]]:
-    if not payload or len(payload) != 1 + 6 * payload[0]:
+def parse_step_ack(payload: bytes) -> list[tuple[int, int, int, int, int]]:
+    """(compare, gates, mode, faults, status) per period."""
+    if not payload or len(payload) != 1 + STEP_OUT_BYTES * payload[0]:
         raise LinkError(f"STEP_ACK of {len(payload)} bytes does not hold its count of outputs")
-    return [struct.unpack_from("<HBBH", payload, 1 + 6 * k) for k in range(payload[0])]
+    return [
+        struct.unpack_from("<HBBHB", payload, 1 + STEP_OUT_BYTES * k) for k in range(payload[0])
+    ]
 
 
 @dataclass(frozen=True)

@@ -19,7 +19,7 @@ import numpy as np
 
 from codegen.build import BuildError
 from codegen.target import HOST_BUILD, QEMU_M4F_BUILD, build_target, image_size
-from design.contract import Fault, Gate, Mode
+from design.contract import Fault, Gate, Mode, Status
 from design.project import Project
 from harness.closedloop.loop import PWM_DTYPE, RunResult, run
 from harness.closedloop.scenario import Scenario
@@ -30,6 +30,7 @@ from .transports import PipeTransport, SerialTransport, stop_process
 TARGETS = ("host", "qemu-m4f", "serial")
 ALL_GATES = int(sum(Gate))
 ALL_FAULTS = int(sum(Fault))
+ALL_STATUS = int(sum(Status))
 FLOAT32_INSN_LIMIT = 1000  # worst-case instructions per step on the Cortex-M4F (float32 target)
 
 
@@ -126,20 +127,21 @@ class RemoteControllers:
         self._nan = np.full((1, 4), np.nan, dtype=np.float32)
 
     def step(self, codes: np.ndarray) -> np.ndarray:
-        ((cmp_, gates, mode, faults),) = self.s.step(codes[:1])
+        ((cmp_, gates, mode, faults, status),) = self.s.step(codes[:1])
         self.period += 1
         for field, value, ok in (
             ("compare", cmp_, cmp_ <= self.period_counts),
             ("gates", gates, gates & ~ALL_GATES == 0),
             ("mode", mode, mode <= max(Mode)),
             ("faults", faults, faults & ~ALL_FAULTS == 0),
+            ("status", status, status & ~ALL_STATUS == 0),
         ):
             if not ok:
                 raise link.LinkError(
                     f"target differs at period {self.period - 1}: {field} = "
                     f"{value}, outside what the contract allows"
                 )
-        return np.array([(cmp_, gates, mode, faults)], dtype=PWM_DTYPE)
+        return np.array([(cmp_, gates, mode, faults, status)], dtype=PWM_DTYPE)
 
     def internals(self) -> np.ndarray:
         return self._nan  # not carried over the link

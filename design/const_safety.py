@@ -1,0 +1,244 @@
+"""Constants of the plausibility block and the slow-leg and synchronous-switch guards: what
+turns a failed sensor or a glitch into a safe state (rows of ``design.constants``)."""
+
+from __future__ import annotations
+
+import math
+
+from .project import Project
+from .rules import (
+    BAD_HALVES_MAX,
+    BUS_LOW_PERIODS,
+    IL_PLAUS_ERR_OF_PEAK,
+    IL_PLAUS_PERIODS,
+    IL_STILL_COUNTS,
+    IL_TRACK_ERR_OF_PEAK,
+    IL_ZERO_MIN_PERIODS,
+    IL_ZERO_OF_PEAK,
+    LINE_OFFSET_CYCLES,
+    LINE_OFFSET_OF_VPK_MIN,
+    PG_OFF_OF_VOUT,
+    PG_ON_OF_VOUT,
+    PRECHARGE_OF_PEAK,
+    RELAY_OPEN_OF_PEAK,
+    RELAY_RISE_OF_VOUT,
+    RELAY_WAIT_OF_DELAY,
+    RMS_AGE_OF_HALF_MAX,
+    SLOW_OFF_MIN_PERIODS,
+    SLOW_SWAP_OF_PEAK,
+    SYNC_MIN_OF_PEAK,
+    Add,
+)
+from .rules import HALF_MAX_FREQ_MARGIN as HALF_MAX_MARGIN
+
+
+def plausibility(add: Add, prj: Project) -> None:
+    s, r = prj.config.spec, prj.resolved
+    vb, ib, ipk = r.vbus_range_V, r.il_range_A, prj.sizing.iline_peak_A
+    vpk_max = math.sqrt(2.0) * s.vin_rms_max
+    vpk_min = math.sqrt(2.0) * s.vin_rms_min
+    margin = (1.0 - PRECHARGE_OF_PEAK) * vpk_max
+    add(
+        "BUS_LOW_MARGIN_V",
+        margin,
+        "f",
+        "V",
+        "while switching, a bus reading below |v_line| by more than this is a failed bus "
+        "channel (a boost's bus cannot sit below its line but for the diodes' inrush)",
+        f"rule: (1 - {PRECHARGE_OF_PEAK:g} precharge fraction) x highest line peak",
+        (vb, 15),
+    )
+    add(
+        "BUS_LOW_PERIODS",
+        BUS_LOW_PERIODS,
+        "u",
+        "periods",
+        "consecutive such periods before the bus channel counts as failed",
+        f"rule: {BUS_LOW_PERIODS}",
+    )
+    add(
+        "IL_SLOPE_A_PER_V",
+        1.0 / (s.fsw * r.inductance_H),
+        "f",
+        "A/V",
+        "current rise per period per volt across the inductor (T/L)",
+        f"1/(fsw x L), L = {r.inductance_H:.6g} H",
+        (ib / vb, 15),
+    )
+    add(
+        "IL_WINDOW_PERIODS",
+        IL_PLAUS_PERIODS,
+        "u",
+        "periods",
+        "longest run of periods over which the current's change is set against the change the "
+        "duty drives",
+        f"rule: {IL_PLAUS_PERIODS}",
+    )
+    add(
+        "IL_PLAUS_ERR_A",
+        IL_PLAUS_ERR_OF_PEAK * ipk,
+        "f",
+        "A",
+        "expected change beyond the measured one by more than this over a run: the current "
+        "channel failed",
+        f"rule: {IL_PLAUS_ERR_OF_PEAK:g} x sized peak line current",
+        (ib, 15),
+    )
+    add(
+        "IL_STILL_A",
+        IL_STILL_COUNTS * r.il_A_per_count,
+        "f",
+        "A",
+        "a period's measured change under this (a frozen code) or under half the expected one "
+        "continues the run",
+        f"rule: {IL_STILL_COUNTS} codes of the current channel",
+        (ib, 15),
+    )
+    add(
+        "IL_TRACK_ERR_A",
+        IL_TRACK_ERR_OF_PEAK * ipk,
+        "f",
+        "A",
+        "... and the current off its reference by more than this (a current at its reference is "
+        "one the loop tracks)",
+        f"rule: {IL_TRACK_ERR_OF_PEAK:g} x sized peak line current",
+        (ib, 15),
+    )
+    add(
+        "IL_ZERO_MAX_A",
+        IL_ZERO_OF_PEAK * ipk,
+        "f",
+        "A",
+        "three quarters of a stretch at rest (gates off, line in the blanking band, where no "
+        "current flows) beyond this on one side: an offset",
+        f"rule: {IL_ZERO_OF_PEAK:g} x sized peak line current",
+        (ib, 15),
+    )
+    add(
+        "IL_ZERO_MIN_PERIODS",
+        IL_ZERO_MIN_PERIODS,
+        "u",
+        "periods",
+        "shortest at-rest stretch whose mean counts",
+        f"rule: {IL_ZERO_MIN_PERIODS}",
+    )
+    add(
+        "LINE_OFFSET_MAX_V",
+        LINE_OFFSET_OF_VPK_MIN * vpk_min,
+        "f",
+        "V",
+        "line channel's mean over a whole line cycle beyond this: an offset (or DC on the line) "
+        "that would misplace the zero crossings",
+        f"rule: {LINE_OFFSET_OF_VPK_MIN:g} x lowest line peak",
+        (vb, 15),
+    )
+    add(
+        "LINE_OFFSET_CYCLES",
+        LINE_OFFSET_CYCLES,
+        "u",
+        "cycles",
+        "consecutive cycles beyond it before the line channel counts as failed",
+        f"rule: {LINE_OFFSET_CYCLES}",
+    )
+
+
+def guards(add: Add, prj: Project) -> None:
+    s, pr, r = prj.config.spec, prj.config.protection, prj.resolved
+    ib, ipk = r.il_range_A, prj.sizing.iline_peak_A
+    half_max = math.ceil(s.fsw / (2.0 * HALF_MAX_MARGIN * pr.freq_min))
+    add(
+        "BAD_HALVES_MAX",
+        BAD_HALVES_MAX,
+        "u",
+        "halves",
+        "consecutive implausible half cycles (too short or too long) that stop switching",
+        f"rule: {BAD_HALVES_MAX}",
+    )
+    add(
+        "RMS_AGE_MAX_PERIODS",
+        math.ceil(RMS_AGE_OF_HALF_MAX * half_max),
+        "u",
+        "periods",
+        "an rms value not refreshed over this many switching periods stops switching",
+        f"rule: {RMS_AGE_OF_HALF_MAX:g} x HALF_MAX_PERIODS",
+    )
+    add(
+        "SLOW_OFF_MIN_PERIODS",
+        SLOW_OFF_MIN_PERIODS,
+        "u",
+        "periods",
+        "slow leg off at least this long before its other switch turns on",
+        f"rule: {SLOW_OFF_MIN_PERIODS}",
+    )
+    add(
+        "SLOW_SWAP_MAX_A",
+        SLOW_SWAP_OF_PEAK * ipk,
+        "f",
+        "A",
+        "|i| below this before the slow leg changes switch (no reverse recovery of the one "
+        "carrying current)",
+        f"rule: {SLOW_SWAP_OF_PEAK:g} x sized peak line current",
+        (ib, 15),
+    )
+    add(
+        "SYNC_MIN_A",
+        SYNC_MIN_OF_PEAK * ipk,
+        "f",
+        "A",
+        "synchronous switch enabled only with the current at least this far in the half's "
+        "direction (no reverse current through it)",
+        f"rule: {SYNC_MIN_OF_PEAK:g} x sized peak line current",
+        (ib, 15),
+    )
+
+
+def relay(add: Add, prj: Project) -> None:
+    s, r, pl = prj.config.spec, prj.resolved, prj.config.plant
+    vb = r.vbus_range_V
+    add(
+        "RELAY_RISE_V",
+        RELAY_RISE_OF_VOUT * s.vout,
+        "f",
+        "V",
+        "precharge done once the bus rises less than this from one crossing to the next "
+        "(with the bus at the precharge level): then the relay closes",
+        f"rule: {RELAY_RISE_OF_VOUT:g} x vout",
+        (vb, 15),
+    )
+    add(
+        "RELAY_WAIT_PERIODS",
+        math.ceil(RELAY_WAIT_OF_DELAY * pl.relay_delay * s.fsw),
+        "u",
+        "periods",
+        "after the close command, no switching for this long (the contacts settle)",
+        f"rule: {RELAY_WAIT_OF_DELAY:g} x [plant] relay_delay x fsw",
+    )
+    add(
+        "RELAY_OPEN_K",
+        2.0 * RELAY_OPEN_OF_PEAK**2,
+        "f",
+        "1",
+        "with the gates off and the line lost or low, the relay opens when vbus^2 < K x ms "
+        f"({100 * RELAY_OPEN_OF_PEAK:g} % of the line peak): the line's return would drive an "
+        "inrush the limiter must take",
+        f"rule: {RELAY_OPEN_OF_PEAK:g} x line peak",
+        (1.0, 15),
+    )
+    add(
+        "PG_ON_V",
+        PG_ON_OF_VOUT * s.vout,
+        "f",
+        "V",
+        "power good set in RUN with the bus above this",
+        f"rule: {PG_ON_OF_VOUT:g} x vout",
+        (vb, 15),
+    )
+    add(
+        "PG_OFF_V",
+        PG_OFF_OF_VOUT * s.vout,
+        "f",
+        "V",
+        "power good cleared below this, or when the stage trips, latches or faults",
+        f"rule: {PG_OFF_OF_VOUT:g} x vout",
+        (vb, 15),
+    )
