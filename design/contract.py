@@ -116,6 +116,10 @@ FAULT_DOCS = {
     Fault.SENSOR_IL: "the inductor-current channel failed (history: stays set)",
     Fault.SENSOR_VBUS: "the bus-voltage channel failed (history: stays set)",
 }
+# the bits the output's faults keep once set (history)
+FAULT_HISTORY = (
+    Fault.LATCHED | Fault.SENSOR | Fault.SENSOR_VAC | Fault.SENSOR_IL | Fault.SENSOR_VBUS
+)
 # the fault bit naming each channel
 CHANNEL_FAULT = {0: Fault.SENSOR_VAC, 1: Fault.SENSOR_IL, 2: Fault.SENSOR_VBUS}
 
@@ -288,6 +292,7 @@ def macros() -> dict[str, int]:
     out.update({f"MODE_{m.name}": int(m) for m in Mode})
     out.update({f"STATUS_{b.name}": int(b) for b in Status})
     out.update({f"FAULT_{f.name}": int(f) for f in Fault})
+    out["FAULT_HISTORY"] = int(FAULT_HISTORY)
     out.update({f"SENSE_{f.name}": int(f) for f in SenseFault})
     out.update({f"SENSE_MASK_{k}": v for k, v in sense_masks().items()})
     out.update({f"CH_{c.name}": int(c) for c in Channel})

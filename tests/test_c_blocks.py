@@ -177,7 +177,7 @@ def test_pwm_assignment_table(demo_project, demo_built):
         lib.pfc_pwmgen_step(s, 0.5, pol, 0, 0.0, out)
         assert out.gates == 0 and out.compare == (0 if pol > 0 else per)
         rows = []
-        fwd = 2.0 * c["SYNC_MIN_A"] * pol  # current flowing in the half's direction
+        fwd = 2.0 * c["SYNC_MIN_A"]  # current flowing in the half's direction
         for k in range(ramp + sync + 3):
             lim = lib.pfc_pwmgen_limit(s)
             lib.pfc_pwmgen_step(s, 0.5, pol, 1, fwd, out)
