@@ -9,6 +9,7 @@ from .project import Project
 from .rules import (
     BAD_HALVES_MAX,
     BUS_LOW_PERIODS,
+    BUS_PLAUS_OF_PEAK,
     IL_PLAUS_ERR_OF_PEAK,
     IL_PLAUS_PERIODS,
     IL_STILL_COUNTS,
@@ -47,6 +48,17 @@ def plausibility(add: Add, prj: Project) -> None:
         "channel (a boost's bus cannot sit below its line but for the diodes' inrush)",
         f"rule: (1 - {PRECHARGE_OF_PEAK:g} precharge fraction) x highest line peak",
         (vb, 15),
+    )
+    add(
+        "BUS_PLAUS_K",
+        2.0 * BUS_PLAUS_OF_PEAK**2,
+        "f",
+        "1",
+        f"while switching, vbus^2 < K x ms ({100 * BUS_PLAUS_OF_PEAK:g} % of the line peak) is a "
+        "bus reading no real bus shows: switching starts only with the bus at "
+        f"{100 * PRECHARGE_OF_PEAK:g} % of the peak, and the boost holds it above the peak",
+        f"rule: {BUS_PLAUS_OF_PEAK:g} x line peak",
+        (1.0, 15),
     )
     add(
         "BUS_LOW_PERIODS",

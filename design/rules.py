@@ -43,6 +43,7 @@ PG_OFF_OF_VOUT = 0.85  # ... and cleared below this one, or on a stop
 LINE_LOSS_RESET_S = 0.5  # an outage longer than this (s) starts afresh
 TRIP_DECAY_S = 10.0  # clean running that takes one trip off the count (s)
 # rules of the plausibility block (design.const_safety)
+BUS_PLAUS_OF_PEAK = 0.7  # while switching, a bus reading below this (of the line peak) failed
 BUS_LOW_PERIODS = 8  # consecutive periods of a bus reading below the line: bus channel failed
 IL_PLAUS_ERR_OF_PEAK = 0.25  # current rise the duty drives beyond the measured (of the peak)
 IL_PLAUS_PERIODS = 8  # ... over a run of at most this many switching periods ...
