@@ -10,6 +10,9 @@ from .rules import (
     BAD_HALVES_MAX,
     BUS_LOW_PERIODS,
     BUS_PLAUS_OF_PEAK,
+    IL_IDLE_FALL_OF_SLOPE,
+    IL_IDLE_OF_PEAK,
+    IL_IDLE_PERIODS,
     IL_PLAUS_ERR_OF_PEAK,
     IL_PLAUS_PERIODS,
     IL_STILL_COUNTS,
@@ -126,6 +129,36 @@ def plausibility(add: Add, prj: Project) -> None:
         f"rule: {IL_ZERO_OF_PEAK:g} x sized peak line current",
         (ib, 15),
     )
+    slope = 1.0 / (s.fsw * r.inductance_H)
+    add(
+        "IL_IDLE_A",
+        IL_IDLE_OF_PEAK * ipk,
+        "f",
+        "A",
+        "with the gates off and the line read below the bus by BUS_LOW_MARGIN_V no current "
+        "flows once the inductor has emptied: a current beyond this then is a line the line "
+        "channel misses (or a flow the current channel invents)",
+        f"rule: {IL_IDLE_OF_PEAK:g} x sized peak line current",
+        (ib, 15),
+    )
+    add(
+        "IL_IDLE_FALL_A",
+        IL_IDLE_FALL_OF_SLOPE * margin * slope,
+        "f",
+        "A",
+        "... the least a current the diodes carry falls in a period with the line that far "
+        "below the bus (L di/dt = -margin), halved for the reading's noise",
+        f"rule: {IL_IDLE_FALL_OF_SLOPE:g} x BUS_LOW_MARGIN_V x T/L",
+        (ib, 15),
+    )
+    add(
+        "IL_IDLE_PERIODS",
+        IL_IDLE_PERIODS,
+        "u",
+        "periods",
+        "consecutive periods such a current holds or rises: the line channel failed",
+        f"rule: {IL_IDLE_PERIODS}",
+    )
     add(
         "IL_ZERO_MIN_PERIODS",
         IL_ZERO_MIN_PERIODS,
@@ -212,8 +245,8 @@ def relay(add: Add, prj: Project) -> None:
         RELAY_RISE_OF_VOUT * s.vout,
         "f",
         "V",
-        "precharge done once the bus rises less than this from one crossing to the next "
-        "(with the bus at the precharge level): then the relay closes",
+        "precharge done once the bus moves (up or down) less than this from one crossing to "
+        "the next (with the bus at the precharge level): then the relay closes",
         f"rule: {RELAY_RISE_OF_VOUT:g} x vout",
         (vb, 15),
     )

@@ -155,6 +155,7 @@ class SenseFault(IntFlag):
     IL_IMPLAUSIBLE = 32
     LINE_OFFSET = 64
     IL_OFFSET = 128
+    IDLE_CURRENT = 256
 
 
 SENSE_FAULT_DOCS = {
@@ -169,6 +170,10 @@ SENSE_FAULT_DOCS = {
     "{P}_LINE_OFFSET_MAX_V (plausibility block)",
     SenseFault.IL_OFFSET: "current channel off zero beyond {P}_IL_ZERO_MAX_A with the gates off "
     "and the line in the blanking band, where no current flows (plausibility block)",
+    SenseFault.IDLE_CURRENT: "current beyond {P}_IL_IDLE_A with the gates off and the line read "
+    "below the bus by {P}_BUS_LOW_MARGIN_V, longer than the inductor takes to empty: the line "
+    "channel misses a line that is there (or the current channel reads a flow that is not) "
+    "(plausibility block)",
 }
 # the channels each sense fault names (a bus reading below the line: one of the two is wrong)
 SENSE_CHANNEL: dict[SenseFault, tuple[Channel, ...]] = {
@@ -179,6 +184,7 @@ SENSE_CHANNEL: dict[SenseFault, tuple[Channel, ...]] = {
     SenseFault.IL_IMPLAUSIBLE: (Channel.IL,),
     SenseFault.LINE_OFFSET: (Channel.VAC,),
     SenseFault.IL_OFFSET: (Channel.IL,),
+    SenseFault.IDLE_CURRENT: (Channel.VAC, Channel.IL),
 }
 
 
@@ -246,6 +252,7 @@ class LinkErr(IntEnum):
 
     BAD_LENGTH = 1
     UNKNOWN_TYPE = 2
+    REFUSED = 3  # RESET of a latched or sensor-faulted controller (see LINK_RESET_CLEARS_FAULTS)
 
 
 LINK = {

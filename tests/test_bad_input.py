@@ -244,8 +244,9 @@ VALUES = [
         st.text(max_size=200),
     ),
 )
-def test_command_line_fuzz(tmp_path, cmd, opts, content):
+def test_command_line_fuzz(tmp_path, monkeypatch, cmd, opts, content):
     """Random argument lists and file contents: exit 0, 1, 2 or 130, never a traceback."""
+    monkeypatch.chdir(tmp_path)  # relative output folders ("nan", "abc") land there
     cfg = tmp_path / "f.toml"
     cfg.write_text(content)
     args = [cmd] if cmd == "bench" else [cmd, cfg]

@@ -13,10 +13,11 @@ from pathlib import Path
 import pytest
 
 from codegen.build import build_project
+from design.project import load_project
 from harness.campaigns import fuzz
 from harness.closedloop import scenario
 
-from .helpers import broken_loader
+from .helpers import EXAMPLES, broken_loader
 
 CORPUS = Path(__file__).parent / "corpus"
 CI_CASES = 200
@@ -46,6 +47,19 @@ def test_corpus_replays(demo_project):
     assert files, "the regression corpus is empty"
     scns = [scenario.load(f) for f in files]
     for f, v in zip(files, fuzz.run_cases(demo_project, scns), strict=True):
+        assert v.ok, (f.name, v.failed)
+
+
+@pytest.mark.slow
+@pytest.mark.parametrize("name", sorted(d.name for d in CORPUS.iterdir() if d.is_dir()))
+def test_corpus_of_an_example_replays(name):
+    """``tests/corpus/NAME/`` holds cases found on ``examples/NAME.toml``; each must pass its
+    invariants (the single-fault ones for a case with a sensor fault)."""
+    prj = load_project(EXAMPLES / f"{name}.toml")
+    files = sorted((CORPUS / name).glob("*.toml"))
+    assert files
+    scns = [scenario.load(f) for f in files]
+    for f, v in zip(files, fuzz.run_cases(prj, scns), strict=True):
         assert v.ok, (f.name, v.failed)
 
 

@@ -456,3 +456,32 @@ def test_qemu_m4f_over_a_loopback_socket(demo_path, tmp_path):
         q.wait()
     assert code == 0 and doc["equivalence"]["equal"] and doc["equivalence"]["final_state_equal"]
     assert doc["cost_on_target"]["steps"] == doc["periods"] and doc["cost_on_target"]["max"] > 0
+
+
+def test_reset_over_the_link_does_not_clear_a_sensor_fault(demo_project):
+    """A link is no fault-clear request (sensor-fault safety): RESET of a controller in a
+    sensor fault is answered ERROR REFUSED and the controller stays in the fault; a fresh
+    controller is reset as before."""
+    from design.contract import Mode
+    from harness.targets.pil import SerialTransport
+
+    tgt = HostBehindPty(demo_project)
+    tr = SerialTransport(tgt.port, 115200)
+    try:
+        sess = link.Session(tr, timeout_s=1.0)
+        sess.reset()  # a fresh controller: accepted
+        r = demo_project.resolved
+        full = r.adc_full_counts
+        # the bus channel at its top rail: a sensor fault (bus rail) after rail_periods
+        codes = [(int(r.vac_offset_counts), int(r.il_offset_counts), full)] * (
+            demo_project.config.sensing.rail_periods + 4
+        )
+        out = sess.step(codes)
+        assert out[-1][2] == Mode.SENSOR_FAULT
+        with pytest.raises(link.LinkError, match="refused"):
+            sess.reset()
+        ok = [(int(r.vac_offset_counts), int(r.il_offset_counts), 0)]
+        assert sess.step(ok)[-1][2] == Mode.SENSOR_FAULT  # still in the fault
+    finally:
+        tr.close()
+        tgt.close()

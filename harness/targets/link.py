@@ -9,7 +9,8 @@ numbers its requests; the target answers each with the same ``seq``.  Types:
 
     HELLO 0x01 / HELLO_ACK 0x81   ack: version u8, format u8 (0 float32, 1 q15),
                                   sizeof ctrl u16, digest (16 ASCII hex), prefix (ASCII)
-    RESET 0x02 / RESET_ACK 0x82   the controller is re-initialised
+    RESET 0x02 / RESET_ACK 0x82   the controller is re-initialised (refused while it is latched
+                                  or in a sensor fault)
     STEP  0x03 / STEP_ACK  0x83   step: n u8, then n x (vac u16, il u16, vbus u16);
                                   ack:  n u8, then n x (compare u16, gates u8, mode u8,
                                         faults u16, status u8)
@@ -19,7 +20,8 @@ numbers its requests; the target answers each with the same ``seq``.  Types:
     COST  0x05 / COST_ACK  0x85   request: empty, or 1 u8 to clear the counts after answering;
                                   ack: 8 x u32: steps, tick sum (low, high), max, min, ticks of
                                   an empty measurement, calibration instructions and ticks
-    ERROR 0xFF                    payload: code u8 (1 bad length, 2 unknown type)
+    ERROR 0xFF                    payload: code u8 (1 bad length, 2 unknown type, 3 refused:
+                                  RESET of a latched or sensor-faulted controller)
 
 The decoder reads a byte stream, resynchronises on the start bytes after any damage and
 reports what it dropped, so corruption, truncation, duplication and reordering are all
@@ -32,7 +34,7 @@ from __future__ import annotations
 import struct
 from dataclasses import dataclass, field
 
-from design.contract import CRC_INIT, CRC_POLY, NUMBER_FORMATS, Request, link_value
+from design.contract import CRC_INIT, CRC_POLY, NUMBER_FORMATS, LinkErr, Request, link_value
 
 SOF = bytes([link_value("SOF0"), link_value("SOF1")])
 VERSION = link_value("VERSION")
@@ -225,6 +227,12 @@ class Session:
                     # an old answer (duplicate or late): not ours, skip it
                     continue
                 if f.ftype == ERROR:
+                    if f.payload[:1] == bytes([LinkErr.REFUSED]):
+                        raise LinkError(
+                            f"target refused request {seq}: its controller is latched or in a "
+                            "sensor fault, which only the board's fault-clear request leaves "
+                            "(or a shell built with -D<PREFIX>_LINK_RESET_CLEARS_FAULTS=1)"
+                        )
                     raise LinkError(
                         f"target reported error {f.payload[:1].hex()} for request {seq}"
                     )
