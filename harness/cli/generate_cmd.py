@@ -65,13 +65,15 @@ def check_target(prj: Project, files: dict[str, str]) -> int:
     p = prj.config.control.prefix
     fmt = prj.config.control.number_format
     targets = ["cortex-m4f"] + (["cortex-m0plus"] if fmt == "q15" else [])
-    rows, bad = [], False
+    rows, bad, over = [], False, False
     for t in targets:
         rep = target.check(files, p, t)
         ok_flash = rep.flash_B <= target.FLASH_LIMIT_B
         ok_state = rep.state_B <= target.STATE_LIMIT_B
         # the flash and state targets are for the float build on the Cortex-M4F
-        bad |= not (rep.ok() and (t != "cortex-m4f" or fmt != "float32" or (ok_flash and ok_state)))
+        held = t == "cortex-m4f" and fmt == "float32"
+        over |= held and not (ok_flash and ok_state)
+        bad |= not rep.ok() or (held and not (ok_flash and ok_state))
         rows.append(
             (
                 t,
@@ -97,8 +99,14 @@ def check_target(prj: Project, files: dict[str, str]) -> int:
             rows,
         )
     )
-    print(
-        f"targets for float32 on cortex-m4f: flash <= {target.FLASH_LIMIT_B} B, state <= "
-        f"{target.STATE_LIMIT_B} B"
-    )
+    budget = f"flash <= {target.FLASH_LIMIT_B} B, state <= {target.STATE_LIMIT_B} B"
+    if fmt == "float32":
+        print(
+            f"budget of this float32 build on cortex-m4f: {budget}: {'not met' if over else 'met'}"
+        )
+    else:
+        print(
+            f"this is a {fmt} build: the budget ({budget}) is set for the float32 build on "
+            "cortex-m4f; the sizes above are reported, not held to it"
+        )
     return 1 if bad else 0
