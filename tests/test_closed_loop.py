@@ -193,3 +193,17 @@ def test_cli_run_writes_json_csv_plots(tmp_path, demo_project):
         "line.png",
     ]
     assert "PF" in r.stdout and "THD" in r.stdout
+
+
+def test_progress_time_left_counts_from_the_first_update():
+    """The time left is the work left over the rate measured since the first update: set-up
+    before it (compilation, build) does not count, and nothing is claimed before the rate
+    has been measured over a second (a first line once read 'eta 192462.9 s')."""
+    from harness.closedloop.loop import Progress
+
+    p = Progress(1000, "run", enabled=False)
+    assert p.eta_s(10, 5.0) is None  # no update yet
+    p.first = (5.0, 10)  # the first update: 5 s of set-up, 10 periods done
+    assert p.eta_s(50, 5.5) is None  # measured over half a second only
+    # 90 periods in 2 s since the first update: 900 left at 45 per second = 20 s
+    assert abs(p.eta_s(100, 7.0) - 20.0) < 1e-12

@@ -102,7 +102,9 @@ class RunResult:
 
 
 class Progress:
-    """A one-line progress bar on stderr, shown only once a run has lasted a second."""
+    """A one-line progress bar on stderr, shown only once a run has lasted a second. The time
+    left comes from the rate measured since the first update (set-up and compilation before
+    it do not count) and is shown once that rate has been measured over a second."""
 
     def __init__(self, total: int, label: str, enabled: bool = True):
         self.total, self.label, self.enabled = total, label, enabled and total > 0
@@ -110,23 +112,34 @@ class Progress:
         self.t0 = time.perf_counter()
         self.last = 0.0
         self.shown = False
+        self.first: tuple[float, int] | None = None  # (time, done) at the first update
+
+    def eta_s(self, done: int, now: float) -> float | None:
+        """Seconds left at the rate since the first update, or None while not yet known."""
+        if self.first is None:
+            return None
+        t1, d1 = self.first
+        if now - t1 < 1.0 or done <= d1:
+            return None
+        return (self.total - done) * (now - t1) / (done - d1)
 
     def update(self, done: int) -> None:
         if not self.enabled:
             return
         now = time.perf_counter()
+        if self.first is None:
+            self.first = (now, done)
         # redraw a terminal four times a second; elsewhere (CI logs) write a line every 10 s
         if now - self.t0 < 1.0 or now - self.last < (0.25 if self.tty else 10.0):
             return
         self.last = now
         self.shown = True
         frac = done / self.total
-        eta = (now - self.t0) * (1.0 - frac) / max(frac, 1e-9)
+        eta = self.eta_s(done, now)
+        left = "time left: measuring" if eta is None else f"time left {eta:5.1f} s"
         bar = "#" * int(30 * frac)
         lead, end = ("\r", "") if self.tty else ("", "\n")
-        sys.stderr.write(
-            f"{lead}{self.label} [{bar:<30}] {100 * frac:5.1f} %  eta {eta:5.1f} s{end}"
-        )
+        sys.stderr.write(f"{lead}{self.label} [{bar:<30}] {100 * frac:5.1f} %  {left}{end}")
         sys.stderr.flush()
 
     def close(self) -> None:
