@@ -115,9 +115,19 @@ def _unknown(src: str, what: str, name: str, known: list[str]) -> ConfigError:
     return ConfigError(f"{src}: unknown {what} '{name}'{hint}")
 
 
+# keys that were removed, with why: named in the error instead of "unknown"
+REMOVED = {
+    ("control", "control_delay_periods"): "the loops are tuned on the exact sampled loop of the "
+    "contract's timing (mid-period sample, compare at the next period start), not on a free "
+    "delay figure: remove the key",
+}
+
+
 def _table_values(src: str, table: str, given: dict[str, Any]) -> dict[str, Any]:
     keys = SCHEMA[table]
     for name in given:
+        if (table, name) in REMOVED:
+            raise ConfigError(f"{src}: [{table}] {name} was removed: {REMOVED[(table, name)]}")
         if name not in keys:
             raise _unknown(src, f"key in [{table}]", name, list(keys))
     values = {}

@@ -169,18 +169,16 @@ class ControlTable:
     prefix: str = key("", "C symbol prefix (lower-case C identifier)", "pfc")
     current_bandwidth: float | None = pos("Hz", "current-loop crossover (default fsw/15)", hi=1e6)
     current_phase_margin_deg: float = key(
-        "deg", "current-loop phase margin", 45.0, lo=20.0, hi=85.0
+        "deg",
+        "current-loop phase margin on the sampled loop (57: the margin the fault campaigns "
+        "prove the firmware at)",
+        57.0,
+        lo=20.0,
+        hi=85.0,
     )
     voltage_bandwidth: float = pos("Hz", "voltage-loop crossover", 10.0, hi=100.0)
     voltage_phase_margin_deg: float = key(
         "deg", "voltage-loop phase margin", 45.0, lo=20.0, hi=85.0
-    )
-    control_delay_periods: float = key(
-        "periods",
-        "sample-to-effect delay used for tuning (computation plus PWM hold)",
-        1.5,
-        lo=0.0,
-        hi=4.0,
     )
     soft_start_time: float = pos(
         "s", "bus reference ramp from the precharged value to vout", 0.1, hi=10.0

@@ -1,29 +1,41 @@
-"""PI gains of the two loops from target crossover and phase margin, and the
-margins the resulting discrete loops actually achieve.
+"""PI gains of the two loops from target crossover and phase margin, placed and checked on
+the exact sampled loops the firmware and the plant form.
 
-Models (averaged boost small-signal model, Erickson & Maksimovic, Fundamentals of
-Power Electronics, averaged switch modelling chapters):
+Averaged plants (Erickson & Maksimovic, Fundamentals of Power Electronics, averaged switch
+modelling chapters): current loop duty -> inductor current ``K_i/s``, ``K_i = Vo/L`` (from
+``L di/dt = v - (1 - d) Vo``); voltage loop input power command -> bus voltage ``K_v/s``,
+``K_v = eta/(C Vo)`` (energy balance ``C Vo dv/dt = eta P_cmd - P_load``, constant-power load,
+the least damped case).
 
-* current loop: duty -> inductor current ``G_i(s) = Vo/(s L)`` (from
-  ``L di/dt = v - (1 - d) Vo``), with a sample-to-effect delay
-  ``exp(-s Td)``, ``Td = control_delay_periods / fsw`` (1.5 periods by default:
-  one for the computation, half for the PWM hold);
-* voltage loop: input power command -> bus voltage ``G_v(s) = eta/(s C Vo)``
-  (energy balance ``C Vo dv/dt = eta P_cmd - P_load``, constant-power load, the
-  least damped case).  The controller averages the bus over a sliding window of
-  one half line cycle ``Th = 1/(2 f_line)`` kept in ``BUS_BLOCKS`` blocks and updates
-  the PI at the end of each block (period ``Th/BUS_BLOCKS``), which adds
-  ``exp(-s (Th/2 + Th/(2 BUS_BLOCKS)))``: half the window for the average, half a
-  block for the hold.
+Timing (the contract's, ``design.contract.TIMING``; the plant applies the same): centre-aligned
+PWM, the main switch on for ``d T/2`` at each end of the period, the ADC sampling at mid-period
+(the period's average current in CCM), the compare computed from that sample taking effect at
+the next period start. Between two samples lie the second half of the period before (duty
+``d[k-1]``) and the first half of the next one (``d[k]``), so the sampled current obeys
+``i[k+1] = i[k] + (K_i T/2) (d[k] + d[k-1])``:
 
-Both PIs are discretised by backward Euler, ``C(z) = Kp + Ki T z/(z - 1)``; the
-reported margins evaluate that discrete PI at ``z = exp(j w T)`` in series with the
-continuous plant and delay, on a dense frequency grid (computed, not assumed).
+    P_i(z) = (K_i T / 2) (z + 1) / (z (z - 1))
+
+(the sample-and-hold and the half-period computation delay are in it; no free delay figure).
+The voltage loop runs at the end of each of ``BUS_BLOCKS`` blocks of a half line cycle
+(``tv = Th/BUS_BLOCKS``) on the mean of the last ``BUS_BLOCKS`` block means (a sliding half
+cycle), its command held over the next block: the bus at block ends ``v[n+1] = v[n] + K_v tv
+p[n]``, a block's mean ``v[n] + K_v tv p[n]/2``, the window the sum of ``BUS_BLOCKS`` of them:
+
+    P_v(z) = K_v tv (z + 1) (z^7 + ... + 1) / (2 BUS_BLOCKS z^BUS_BLOCKS (z - 1))
+
+(the sliding mean's magnitude and delay both in it). Both PIs are discretised by backward
+Euler, ``C(z) = Kp + Ki T z/(z - 1)``, and placed exactly: ``C(e^{jwT}) P(e^{jwT})`` has
+magnitude 1 and phase ``-180 deg + PM`` at the asked crossover. The margins reported are
+then read off the same loop on a dense grid up to Nyquist (computed, not assumed);
+``tests/test_tuning.py`` recomputes them with python-control from transfer functions it
+builds itself.
 """
 
 from __future__ import annotations
 
 import math
+from collections.abc import Callable
 from dataclasses import asdict, dataclass
 
 import numpy as np
@@ -41,8 +53,9 @@ class LoopDesign:
     kp: float  # loop-specific units, see ``units``
     ki: float  # kp units per second
     ts_s: float  # PI update period
-    delay_s: float
-    plant_gain: float  # K in G(s) = K/s
+    plant_gain: float  # K of the averaged plant K/s
+    plant_num: tuple[float, ...]  # sampled plant P(z), numerator in descending powers of z
+    plant_den: tuple[float, ...]  # ... and its denominator
     target_crossover_Hz: float
     target_phase_margin_deg: float
     crossover_Hz: float
@@ -60,30 +73,42 @@ class LoopDesign:
         d["ki_ts"] = self.ki_ts
         return d
 
+    def plant(self, f_Hz: np.ndarray | float) -> np.ndarray:
+        """The sampled plant P(exp(jwT)) at frequencies ``f_Hz``."""
+        z = np.exp(2j * np.pi * np.asarray(f_Hz, dtype=float) * self.ts_s)
+        return np.polyval(self.plant_num, z) / np.polyval(self.plant_den, z)
+
     def loop_gain(self, f_Hz: np.ndarray) -> np.ndarray:
-        """Open-loop gain C(exp(jwT)) G(jw) exp(-jw Td) at frequencies ``f_Hz``."""
-        w = 2.0 * np.pi * np.asarray(f_Hz, dtype=float)
-        z = np.exp(1j * w * self.ts_s)
+        """Open-loop gain C(exp(jwT)) P(exp(jwT)) at frequencies ``f_Hz``."""
+        z = np.exp(2j * np.pi * np.asarray(f_Hz, dtype=float) * self.ts_s)
         pi = self.kp + self.ki * self.ts_s * z / (z - 1.0)
-        return pi * self.plant_gain / (1j * w) * np.exp(-1j * w * self.delay_s)
+        return pi * self.plant(f_Hz)
 
 
 def _pi_for(
-    k_plant: float, fc: float, pm_deg: float, delay: float, name: str
+    plant: Callable[[float], complex], ts: float, fc: float, pm_deg: float, name: str
 ) -> tuple[float, float]:
-    wc = 2.0 * math.pi * fc
-    delay_deg = math.degrees(wc * delay)
-    lag = 90.0 - pm_deg - delay_deg  # phase the PI zero may still take
-    if lag <= 0.5:
-        best = 90.0 - delay_deg - 0.5
+    """(kp, ki) placing ``C(z) P(z)`` at magnitude 1 and phase -180 + pm at ``fc``:
+    ``kp + ki q = C_t`` with ``q = T z/(z - 1)``, real and imaginary parts."""
+    z = complex(np.exp(2j * math.pi * fc * ts))
+    p = complex(plant(fc))
+    ct = complex(np.exp(1j * math.radians(pm_deg - 180.0))) / p
+    q = ts * z / (z - 1.0)
+    ki = ct.imag / q.imag
+    kp = ct.real - ki * q.real
+    if kp <= 0.0 or ki <= 0.0:
+        # the PI's phase lies between arg q (pure integral) and 0 (pure proportional)
+        best = 180.0 + math.degrees(cmath_phase(p))
         raise ConfigError(
             f"[control] {name}: a phase margin of {pm_deg:g} deg at {fc:g} Hz is not reachable "
-            "with the "
-            f"{delay_deg:.1f} deg delay there; at most {best:.1f} deg, or lower the bandwidth"
+            f"with the sampled plant's {-math.degrees(cmath_phase(p)):.1f} deg lag there; at "
+            f"most {best - 0.5:.1f} deg, or lower the bandwidth"
         )
-    wi = wc * math.tan(math.radians(lag))
-    kp = wc / (k_plant * math.hypot(1.0, wi / wc))
-    return kp, kp * wi
+    return kp, ki
+
+
+def cmath_phase(c: complex) -> float:
+    return math.atan2(c.imag, c.real)
 
 
 def _margins(loop: LoopDesign) -> tuple[float, float, float]:
@@ -108,12 +133,34 @@ def _margins(loop: LoopDesign) -> tuple[float, float, float]:
 
 
 def _design(
-    name: str, k_plant: float, fc: float, pm: float, delay: float, ts: float, units: str
+    name: str,
+    k_plant: float,
+    num: np.ndarray,
+    den: np.ndarray,
+    fc: float,
+    pm: float,
+    ts: float,
+    units: str,
 ) -> LoopDesign:
-    kp, ki = _pi_for(k_plant, fc, pm, delay, name)
-    loop = LoopDesign(name, kp, ki, ts, delay, k_plant, fc, pm, math.nan, math.nan, math.nan, units)
-    got = _margins(loop)
-    return LoopDesign(name, kp, ki, ts, delay, k_plant, fc, pm, *got, units)
+    nums, dens = tuple(float(x) for x in num), tuple(float(x) for x in den)
+    nan = math.nan
+    probe = LoopDesign(name, 0.0, 0.0, ts, k_plant, nums, dens, fc, pm, nan, nan, nan, units)
+    kp, ki = _pi_for(lambda f: complex(probe.plant(f)), ts, fc, pm, name)
+    loop = LoopDesign(name, kp, ki, ts, k_plant, nums, dens, fc, pm, nan, nan, nan, units)
+    return LoopDesign(name, kp, ki, ts, k_plant, nums, dens, fc, pm, *_margins(loop), units)
+
+
+def current_plant(k_i: float, ts: float) -> tuple[np.ndarray, np.ndarray]:
+    """P_i(z) = (K_i T/2) (z + 1)/(z (z - 1)): duty to the mid-period current sample."""
+    a = 0.5 * k_i * ts
+    return np.array([a, a]), np.array([1.0, -1.0, 0.0])
+
+
+def voltage_plant(k_v: float, tv: float, blocks: int = BUS_BLOCKS) -> tuple[np.ndarray, np.ndarray]:
+    """P_v(z): power command held over a block to the sliding mean of ``blocks`` block means."""
+    num = 0.5 * k_v * tv / blocks * np.polymul([1.0, 1.0], np.ones(blocks))
+    den = np.polymul(np.concatenate(([1.0], np.zeros(blocks))), [1.0, -1.0])
+    return num, den
 
 
 @dataclass(frozen=True)
@@ -151,21 +198,23 @@ def _tune(
     fl = s.line_freq if line_freq_Hz is None else line_freq_Hz
     th = 1.0 / (2.0 * fl)
     tv = th / BUS_BLOCKS
+    k_i = s.vout / inductance_H
+    k_v = s.efficiency / (capacitance_F * s.vout)
     cur = _design(
         "current_bandwidth/current_phase_margin_deg",
-        s.vout / inductance_H,
+        k_i,
+        *current_plant(k_i, ts),
         current_bandwidth_Hz,
         c.current_phase_margin_deg,
-        c.control_delay_periods * ts,
         ts,
         "duty per A",
     )
     vol = _design(
         "voltage_bandwidth/voltage_phase_margin_deg",
-        s.efficiency / (capacitance_F * s.vout),
+        k_v,
+        *voltage_plant(k_v, tv),
         c.voltage_bandwidth,
         c.voltage_phase_margin_deg,
-        th / 2.0 + tv / 2.0,
         tv,
         "W per V",
     )
