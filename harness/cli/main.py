@@ -11,7 +11,16 @@ from codegen.build import BuildError
 from design.config import ConfigError
 from harness.targets.link import LinkError
 
-from . import bench_cmd, design_cmd, fuzz_cmd, generate_cmd, init_cmd, pil_cmd, run_cmd
+from . import (
+    bench_cmd,
+    design_cmd,
+    fuzz_cmd,
+    generate_cmd,
+    init_cmd,
+    loopgain_cmd,
+    pil_cmd,
+    run_cmd,
+)
 from .checks import UsageError
 
 CAUTION = (
@@ -19,7 +28,7 @@ CAUTION = (
     "validated on hardware by qualified people; local electrical codes and licensed practice "
     "take precedence."
 )
-COMMANDS = (init_cmd, design_cmd, generate_cmd, run_cmd, fuzz_cmd, bench_cmd, pil_cmd)
+COMMANDS = (init_cmd, design_cmd, generate_cmd, run_cmd, loopgain_cmd, fuzz_cmd, bench_cmd, pil_cmd)
 
 
 def _terminate(signum: int, frame: object) -> None:

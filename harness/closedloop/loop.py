@@ -232,11 +232,14 @@ def run(
     progress: bool = True,
     built=None,
     controllers=None,
+    perturb=None,
 ) -> RunResult:
     """Run all ``scenarios`` in lockstep (one lane each) for the longest duration.
 
     ``controllers``: something with ``step(codes) -> outputs`` and ``internals()`` in place
-    of the in-process build (a controller on a target, over the link)."""
+    of the in-process build (a controller on a target, over the link). ``perturb(k, codes)``:
+    called each period after the ADC, before the controller steps, to change the codes of
+    shape (lanes, channels) in place (a signal injected at a loop's feedback point)."""
     if model not in ("switching", "averaged"):
         raise ValueError(f"model must be 'switching' or 'averaged', not {model!r}")
     n = len(scenarios)
@@ -297,6 +300,8 @@ def run(
                 next_t[j] = events[j][0].t_s if events[j] else np.inf
             next_min = min(next_t)
         plant.step(k, compare, gates, plant_rec[k], model, codes, relay)
+        if perturb is not None:
+            perturb(k, codes)
         if record is not None:
             record(k)
         else:
