@@ -32,8 +32,9 @@ BLOCKS = [
     "pwm",
     "supervisor",
     "ctrl",
+    "board",
 ]
-HEADER_ONLY = {"types", "math"}
+HEADER_ONLY = {"types", "math", "board"}
 
 
 def _units(P: str, fixed: bool) -> dict[str, str]:
@@ -110,7 +111,15 @@ def render(prj: Project, loader: jinja2.BaseLoader | None = None) -> dict[str, s
             f'{prj.config.source}: [control] number_format = "{fmt}": {exc}; '
             'change the key it comes from, or use "float32"'
         ) from None
-    base = _context(prj, cv={k.name: k.value for k in consts})
+    board = dict(
+        timer_clock_Hz=prj.config.control.pwm_timer_clock,
+        dead_time_counts=int(
+            round(prj.config.plant.dead_time * prj.config.control.pwm_timer_clock)
+        ),
+        hw_ov_V=prj.resolved.hw_ov_level_V,
+        device_A=prj.resolved.device_current_A,
+    )
+    base = _context(prj, cv={k.name: k.value for k in consts}, board=board)
     env = environment(loader)
     files: dict[str, str] = {}
     groups = [(g, list(items)) for g, items in groupby(consts, key=lambda k: k.group)]

@@ -255,6 +255,16 @@ class LinkErr(IntEnum):
     REFUSED = 3  # RESET of a latched or sensor-faulted controller (see LINK_RESET_CLEARS_FAULTS)
 
 
+# The PWM timing every part shares: the plant simulates it (plant.kernel), the tuning's sampled
+# loops assume it (design.tuning), the board header tells the board to set its timer so
+# (<prefix>_board.h). Changing a value here means changing all three.
+TIMING = {
+    "carrier": "centre-aligned",  # up-down counter; the main switch on at both ends
+    "sample_fraction": 0.5,  # ADC sampled at this fraction of the period: the counter's top
+    "update": "period start",  # compare and gates from the shadow registers at the bottom
+}
+
+
 LINK = {
     "VERSION": (1, "protocol version in HELLO_ACK"),
     "SOF0": (0xA5, "first start byte"),

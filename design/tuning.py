@@ -41,6 +41,7 @@ from dataclasses import asdict, dataclass
 import numpy as np
 
 from .config import Config, ConfigError
+from .contract import TIMING
 
 BUS_BLOCKS = 8  # blocks of the sliding half-cycle bus average (a power of two)
 
@@ -152,6 +153,8 @@ def _design(
 
 def current_plant(k_i: float, ts: float) -> tuple[np.ndarray, np.ndarray]:
     """P_i(z) = (K_i T/2) (z + 1)/(z (z - 1)): duty to the mid-period current sample."""
+    if TIMING != {"carrier": "centre-aligned", "sample_fraction": 0.5, "update": "period start"}:
+        raise NotImplementedError(f"the current loop's sampled plant is derived for {TIMING}")
     a = 0.5 * k_i * ts
     return np.array([a, a]), np.array([1.0, -1.0, 0.0])
 

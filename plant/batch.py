@@ -13,6 +13,8 @@ import math
 
 import numpy as np
 
+from design.contract import TIMING
+
 from . import kernel as K
 from . import layout as LY
 from .grid import Grid
@@ -79,6 +81,8 @@ class Plant:
     ):
         """``g_max_S``: the largest load conductance the run will see (bounds the exact
         solver's step, see ``step_plans``)."""
+        if TIMING["carrier"] != "centre-aligned" or TIMING["sample_fraction"] != 0.5:
+            raise NotImplementedError(f"the plant's period kernel simulates {TIMING} only")
         n = grid.n
         self.p, self.n = p, n
         self.par = stage_par(p, load)
