@@ -35,6 +35,8 @@ BLOCKS = [
     "board",
 ]
 HEADER_ONLY = {"types", "math", "board"}
+# QEMU's MPS2 machines the link has a port for: {port: has an FPU}
+MPS2_PORTS = {"mps2_an386": True, "mps2_an385": False}
 
 
 def _units(P: str, fixed: bool) -> dict[str, str]:
@@ -153,16 +155,20 @@ def render_host(prj: Project) -> dict[str, str]:
 def render_link(prj: Project, host_main: bool = False, port: str | None = None) -> dict[str, str]:
     """The target shell (framed link around the step; portable, for the MCU) and, with
     ``host_main``, the host port whose stdin/stdout stand in for the UART, or with
-    ``port="mps2_an386"`` the QEMU Cortex-M4F port (startup, vectors, UART, linker script)."""
+    ``port="mps2_an386"`` the QEMU Cortex-M4F port, ``"mps2_an385"`` the Cortex-M3 one (startup,
+    vectors, UART, linker script)."""
     p = prj.config.control.prefix
     base = _context(prj)
     env = environment()
     names = [("link.h.j2", f"{p}_link.h"), ("link.c.j2", f"{p}_link.c")]
     if host_main:
         names.append(("link_host_main.c.j2", f"{p}_link_host_main.c"))
-    if port == "mps2_an386":
+    if port in MPS2_PORTS:
+        base.update(port=port, machine=port.replace("_", "-"), fpu=MPS2_PORTS[port])
         names += [
-            ("link_mps2_an386.c.j2", f"{p}_link_mps2_an386.c"),
-            ("link_mps2_an386.ld.j2", f"{p}_mps2_an386.ld"),
+            ("link_mps2.c.j2", f"{p}_link_{port}.c"),
+            ("link_mps2.ld.j2", f"{p}_{port}.ld"),
         ]
+    elif port is not None:
+        raise ValueError(f"unknown port {port!r}: one of {', '.join(MPS2_PORTS)}")
     return {out: env.get_template(t).render(**base, file=out) for t, out in names}

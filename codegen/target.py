@@ -31,6 +31,7 @@ from .build import (
     verified,
 )
 from .render import render, render_link
+from .stack import StackReport, worst_case
 
 TARGETS = {
     "cortex-m4f": [
@@ -38,6 +39,13 @@ TARGETS = {
         "-mthumb",
         "-mfloat-abi=hard",
         "-mfpu=fpv4-sp-d16",
+        "-O2",
+        "-ffp-contract=off",
+    ],
+    "cortex-m3": [
+        "-mcpu=cortex-m3",
+        "-mthumb",
+        "-mfloat-abi=soft",
         "-O2",
         "-ffp-contract=off",
     ],
@@ -69,6 +77,7 @@ class TargetReport:
     state_B: int
     undefined: list[str] = field(default_factory=list)
     support_calls: list[str] = field(default_factory=list)
+    stack: StackReport | None = None  # worst case from <prefix>_step (-fcallgraph-info=su)
 
     def ok(self) -> bool:
         return not self.undefined
@@ -82,6 +91,9 @@ class TargetReport:
             state_B=self.state_B,
             undefined=self.undefined,
             support_calls=self.support_calls,
+            stack_bytes=self.stack.bytes if self.stack else None,
+            stack_path=self.stack.path if self.stack else None,
+            stack_unknown_callees=self.stack.unknown if self.stack else None,
             flash_limit_B=FLASH_LIMIT_B,
             state_limit_B=STATE_LIMIT_B,
         )
@@ -105,8 +117,11 @@ def check(
         src.mkdir()
         for name, text in files.items():
             (src / name).write_text(text)
-        objs = compile_objects(src, Path(tmp) / "obj", cc=cc, flags=flags)
+        objs = compile_objects(
+            src, Path(tmp) / "obj", cc=cc, flags=[*flags, "-fcallgraph-info=su"]
+        )
         sizes = image_size(objs, tool + "size")
+        stack = worst_case(sorted((Path(tmp) / "obj").glob("*.ci")), f"{prefix}_step")
         probe = Path(tmp) / "probe.c"
         probe.write_text(f'#include "{prefix}_ctrl.h"\n{prefix}_ctrl_t {prefix}_probe_state;\n')
         pobj = Path(tmp) / "probe.o"
@@ -148,6 +163,7 @@ def check(
         state,
         [u for u in undef if u not in support],
         support,
+        stack,
     )
 
 
@@ -191,6 +207,14 @@ QEMU_M4F_BUILD = TargetBuild(
     {"port": "mps2_an386"},
     [*TARGETS["cortex-m4f"], "-nostdlib", "-T", "{ld}"],
     "_mps2_an386.elf",
+)
+QEMU_M3_BUILD = TargetBuild(
+    "qemu-m3",
+    "arm-none-eabi-gcc",
+    TARGETS["cortex-m3"],
+    {"port": "mps2_an385"},
+    [*TARGETS["cortex-m3"], "-nostdlib", "-T", "{ld}"],
+    "_mps2_an385.elf",
 )
 
 

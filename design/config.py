@@ -27,6 +27,7 @@ from .schema import (
     ProtectionTable,
     SensingTable,
     SpecTable,
+    TargetTable,
 )
 
 HOLDUP_FLOOR_OF_VOUT = 0.75  # rule: default lowest bus at the end of hold-up, as a fraction of vout
@@ -46,6 +47,7 @@ class Config:
     control: ControlTable
     protection: ProtectionTable
     sensing: SensingTable
+    target: TargetTable
     source: str = "<config>"
 
     def as_dict(self) -> dict[str, dict[str, Any]]:
@@ -161,6 +163,7 @@ def from_dict(data: dict[str, Any], source: str = "<config>") -> Config:
         control=ControlTable(**parts["control"]),
         protection=ProtectionTable(**parts["protection"]),
         sensing=SensingTable(**parts["sensing"]),
+        target=TargetTable(**parts["target"]),
         source=source,
     )
 

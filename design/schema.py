@@ -276,11 +276,26 @@ class SensingTable:
     )
 
 
+@dataclass(frozen=True, kw_only=True)
+class TargetTable:
+    """``[target]``: the microcontroller the firmware runs on (for the interrupt's budget)."""
+
+    core_clock_hz: float = pos(
+        "Hz",
+        "core clock of the MCU (illustrative default; the instruction count measured on the "
+        "emulated core is a lower bound on cycles: flash wait states, bus stalls and multi-cycle "
+        "instructions add to it)",
+        120e6,
+        hi=2e9,
+    )
+
+
 TABLES: dict[str, type] = {
     "spec": SpecTable,
     "plant": PlantTable,
     "control": ControlTable,
     "protection": ProtectionTable,
     "sensing": SensingTable,
+    "target": TargetTable,
 }
 SCHEMA: dict[str, dict[str, Key]] = {name: keys_of(cls) for name, cls in TABLES.items()}

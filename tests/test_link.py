@@ -413,7 +413,7 @@ def test_qemu_m4f_over_a_loopback_socket(demo_path, tmp_path):
     s.bind(("127.0.0.1", 0))
     port = s.getsockname()[1]
     s.close()
-    cmd = [a for a in QEMU_CMD if a not in ("-serial", "pty")]
+    cmd = [a for a in QEMU_CMD if a not in ("-serial", "pty")] + ["-M", "mps2-an386"]
     q = subprocess.Popen(
         [
             *cmd,

@@ -6,11 +6,13 @@ import argparse
 import sys
 
 from codegen import target
+from codegen.board import BOARDS, render_board
 from codegen.files import write_folder
 from codegen.render import render, render_link
 from design.project import Project, load_project
 
 from . import checks
+from .checks import UsageError
 from .tables import format_table
 
 
@@ -18,7 +20,10 @@ def register(sub: argparse._SubParsersAction) -> None:
     q = sub.add_parser("generate", help="write the C control code")
     q.add_argument("config")
     q.add_argument(
-        "-o", "--output", required=True, metavar="DIR", help="folder for the .c/.h files"
+        "-o",
+        "--output",
+        metavar="DIR",
+        help="folder for the .c/.h files (required but with --board list)",
     )
     q.add_argument(
         "--check-target",
@@ -31,20 +36,43 @@ def register(sub: argparse._SubParsersAction) -> None:
         help="also write the target shell (the lockstep link around the step) for a board run by "
         "`pfcrig pil --target serial`",
     )
+    q.add_argument(
+        "--board",
+        metavar="NAME",
+        help="also write a complete firmware project for this board beside the controller "
+        "(Makefile, CMakeLists.txt, startup, linker script, interrupt skeleton, port header, "
+        "README); 'list' prints the boards",
+    )
     q.set_defaults(func=generate)
 
 
 def generate(args: argparse.Namespace) -> int:
+    if args.board == "list":
+        for b in BOARDS.values():
+            print(f"{b.name:12s} {b.cpu_name}; number formats: {', '.join(b.formats)}")
+        return 0
+    if args.board is not None and args.board not in BOARDS:
+        raise UsageError(f"--board {args.board!r}: one of {', '.join(BOARDS)} (or 'list')")
+    if not args.output:
+        raise UsageError("-o DIR is required: the folder for the .c/.h files")
     checks.output_dir(args.output, "-o")
     prj = load_project(args.config)
     files = render(prj)
     extra = {}
     if args.with_link:
         extra = render_link(prj)
+    if args.board:
+        extra = {**extra, **render_board(prj, args.board)}
     paths = write_folder({**files, **extra}, args.output)
     print(f"wrote {len(paths)} files to {args.output} (config digest {prj.config.digest()})")
-    if extra:
-        p = prj.config.control.prefix
+    p = prj.config.control.prefix
+    if args.board:
+        print(
+            f"firmware project for {args.board}: `make -C {args.output}` builds {p}_pil.elf (the "
+            f"lockstep link image for QEMU) and compiles {p}_isr.c; the board supplies the "
+            f"functions of {p}_board_port.h; bring-up order in {args.output}/README.md"
+        )
+    elif extra:
         print(
             f"target shell for `pfcrig pil --target serial`: {', '.join(sorted(extra))}; the "
             "board supplies "
@@ -64,7 +92,7 @@ def check_target(prj: Project, files: dict[str, str]) -> int:
         return 1
     p = prj.config.control.prefix
     fmt = prj.config.control.number_format
-    targets = ["cortex-m4f"] + (["cortex-m0plus"] if fmt == "q15" else [])
+    targets = ["cortex-m4f"] + (["cortex-m3", "cortex-m0plus"] if fmt == "q15" else [])
     rows, bad, over = [], False, False
     for t in targets:
         rep = target.check(files, p, t)
@@ -81,6 +109,7 @@ def check_target(prj: Project, files: dict[str, str]) -> int:
                 rep.flash_B,
                 rep.ram_B,
                 rep.state_B,
+                rep.stack.bytes if rep.stack else "?",
                 ", ".join(rep.undefined) or "none",
                 len(rep.support_calls),
             )
@@ -93,10 +122,18 @@ def check_target(prj: Project, files: dict[str, str]) -> int:
                 "flash (B)",
                 "static RAM (B)",
                 "sizeof ctrl (B)",
+                "step stack (B)",
                 "foreign symbols",
                 "support calls",
             ],
             rows,
+        )
+    )
+    print(
+        "step stack: the worst case over pfc_step's call tree (-fcallgraph-info=su), not "
+        "counting compiler support routines; the step's cycles: `pfcrig pil --target "
+        "qemu-m4f|qemu-m3` measures them against [target] core_clock_hz".replace(
+            "pfc_step", f"{p}_step"
         )
     )
     budget = f"flash <= {target.FLASH_LIMIT_B} B, state <= {target.STATE_LIMIT_B} B"

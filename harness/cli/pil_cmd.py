@@ -5,6 +5,8 @@ from __future__ import annotations
 import argparse
 import sys
 
+from codegen import target as cross
+from codegen.render import render
 from design.project import load_project
 from harness.closedloop import report
 from harness.closedloop.loop import run
@@ -12,6 +14,7 @@ from harness.targets.link import LinkError
 from harness.targets.pil import FLOAT32_INSN_LIMIT, TARGETS, compare_outputs, run_pil
 
 from . import checks
+from .checks import UsageError
 from .output import scenario_of, write_json
 
 PIL_DEFAULT_S = 0.5  # s: start-up (~0.22 s) and one IEC 61000-4-7 window fit (README)
@@ -27,8 +30,8 @@ def register(sub: argparse._SubParsersAction) -> None:
         choices=TARGETS,
         default="host",
         help="host: a separate process, stdin/stdout as its UART; qemu-m4f: the image "
-        "cross-compiled "
-        "for the Cortex-M4F, booted on QEMU's mps2-an386 with its first UART on a pseudo-terminal; "
+        "cross-compiled for the Cortex-M4F, booted on QEMU's mps2-an386 with its first UART on a "
+        "pseudo-terminal; qemu-m3: the q15 build on the Cortex-M3 of QEMU's mps2-an385; "
         "serial: a board already running the target shell, on --port",
     )
     q.add_argument(
@@ -59,6 +62,36 @@ def register(sub: argparse._SubParsersAction) -> None:
     q.set_defaults(func=pil_cmd)
 
 
+CORE = {"qemu-m4f": "cortex-m4f", "qemu-m3": "cortex-m3"}
+
+
+def isr_budget(prj, target: str, max_instructions: float) -> dict:
+    """The step's worst measured instructions as a share of the PWM period at the config's
+    core clock (a lower bound on cycles: wait states, bus stalls and multi-cycle instructions
+    add), and the worst-case stack of the step's call tree on that core."""
+    clock = prj.config.target.core_clock_hz
+    per_period = clock / prj.config.spec.fsw
+    out = {
+        "core_clock_hz": clock,
+        "cycles_per_period": per_period,
+        "cycles_pct_of_period": 100.0 * max_instructions / per_period,
+        "cycles_pct_of_half_period": 200.0 * max_instructions / per_period,
+        "cycles_note": "instructions counted on the emulated core: a lower bound on cycles",
+        "stack_bytes": None,
+        "stack_path": None,
+        "stack_unknown_callees": [],
+    }
+    if target in CORE:
+        rep = cross.check(render(prj), prj.config.control.prefix, CORE[target])
+        if rep.stack is not None:
+            out.update(
+                stack_bytes=rep.stack.bytes,
+                stack_path=rep.stack.path,
+                stack_unknown_callees=rep.stack.unknown,
+            )
+    return out
+
+
 def pil_cmd(args: argparse.Namespace) -> int:
     checks.output_file(args.json, "--json")
     if args.target == "serial" and not args.port:
@@ -70,6 +103,11 @@ def pil_cmd(args: argparse.Namespace) -> int:
         )
         return 2
     prj = load_project(args.config)
+    if args.target == "qemu-m3" and prj.config.control.number_format != "q15":
+        raise UsageError(
+            "--target qemu-m3 (Cortex-M3, no FPU) runs the q15 build: set [control] "
+            'number_format = "q15" in the config'
+        )
     scn = scenario_of(args, prj, PIL_DEFAULT_S)
     try:
         pil = run_pil(
@@ -144,6 +182,19 @@ def pil_cmd(args: argparse.Namespace) -> int:
             f"cost on the target: {c['mean']:.0f} instructions per step on average, "
             f"{c['max']:.0f} at most "
             f"(min {c['min']:.0f}; resolution {c['resolution']:.0f}) over {c['steps']} steps"
+        )
+        doc["cost_on_target"].update(isr_budget(prj, args.target, c["max"]))
+        b = doc["cost_on_target"]
+        print(
+            f"interrupt budget at [target] core_clock_hz = {b['core_clock_hz']:.4g} Hz: at least "
+            f"{b['cycles_pct_of_period']:.1f} % of the PWM period "
+            f"({b['cycles_pct_of_half_period']:.1f} % of the half period from the ADC trigger to "
+            f"the update); worst-case stack {b['stack_bytes']} B"
+            + (
+                f" plus library routines ({', '.join(b['stack_unknown_callees'])})"
+                if b["stack_unknown_callees"]
+                else ""
+            )
         )
     if pil.image:
         doc["image"] = pil.image

@@ -18,7 +18,7 @@ from dataclasses import dataclass
 import numpy as np
 
 from codegen.build import BuildError
-from codegen.target import HOST_BUILD, QEMU_M4F_BUILD, build_target, image_size
+from codegen.target import HOST_BUILD, QEMU_M3_BUILD, QEMU_M4F_BUILD, build_target, image_size
 from design.contract import Fault, Gate, Mode, Status
 from design.project import Project
 from harness.closedloop.loop import PWM_DTYPE, RunResult, run
@@ -27,7 +27,12 @@ from harness.closedloop.scenario import Scenario
 from . import link
 from .transports import PipeTransport, SerialTransport, stop_process
 
-TARGETS = ("host", "qemu-m4f", "serial")
+TARGETS = ("host", "qemu-m4f", "qemu-m3", "serial")
+# the emulated boards: target -> (QEMU machine, image build)
+QEMU_TARGETS = {
+    "qemu-m4f": ("mps2-an386", QEMU_M4F_BUILD),
+    "qemu-m3": ("mps2-an385", QEMU_M3_BUILD),
+}
 ALL_GATES = int(sum(Gate))
 ALL_FAULTS = int(sum(Fault))
 ALL_STATUS = int(sum(Status))
@@ -39,8 +44,6 @@ FLOAT32_INSN_LIMIT = 1000  # worst-case instructions per step on the Cortex-M4F 
 # counts instructions (the port calibrates the ratio at boot against a known loop)
 QEMU_CMD = [
     "qemu-system-arm",
-    "-M",
-    "mps2-an386",
     "-nographic",
     "-monitor",
     "none",
@@ -74,26 +77,38 @@ def _qemu_pty(proc: subprocess.Popen, timeout_s: float = 10.0) -> str:
     )
 
 
+def qemu_transport(elf, machine: str, baud: int = 115200) -> SerialTransport:
+    """Boot ``elf`` on QEMU's ``machine`` (an MPS2 board), its UART on a pseudo-terminal."""
+    if shutil.which(QEMU_CMD[0]) is None:
+        raise BuildError("qemu-system-arm not found: install qemu-system-arm (Debian)")
+    proc = subprocess.Popen(
+        [*QEMU_CMD, "-M", machine, "-kernel", str(elf)],
+        stdin=subprocess.DEVNULL,
+        stdout=subprocess.PIPE,
+        stderr=subprocess.STDOUT,
+    )
+    return SerialTransport(_qemu_pty(proc), baud, proc=proc)
+
+
 def open_target(prj: Project, target: str, port: str | None = None, baud: int = 115200):
     """Build and start ``target``; returns (transport, the cross-compiled image or None):
-    ``host`` (child process), ``qemu-m4f`` (QEMU, its UART on a pseudo-terminal through
-    pyserial) or ``serial`` (a board already running the target image, on ``port``)."""
+    ``host`` (child process), ``qemu-m4f`` / ``qemu-m3`` (QEMU's mps2-an386 / mps2-an385, the
+    UART on a pseudo-terminal through pyserial) or ``serial`` (a board already running the
+    target image, on ``port``)."""
     if target == "host":
         proc = subprocess.Popen(
             [str(build_target(prj, HOST_BUILD))], stdin=subprocess.PIPE, stdout=subprocess.PIPE
         )
         return PipeTransport(proc), None
-    if target == "qemu-m4f":
-        if shutil.which(QEMU_CMD[0]) is None:
-            raise BuildError("qemu-system-arm not found: install qemu-system-arm (Debian)")
-        elf = build_target(prj, QEMU_M4F_BUILD)
-        proc = subprocess.Popen(
-            [*QEMU_CMD, "-kernel", str(elf)],
-            stdin=subprocess.DEVNULL,
-            stdout=subprocess.PIPE,
-            stderr=subprocess.STDOUT,
-        )
-        return SerialTransport(_qemu_pty(proc), baud, proc=proc), elf
+    if target in QEMU_TARGETS:
+        machine, tb = QEMU_TARGETS[target]
+        if target == "qemu-m3" and prj.config.control.number_format != "q15":
+            raise ValueError(
+                "--target qemu-m3 (Cortex-M3, no FPU) runs the q15 build: set [control] "
+                'number_format = "q15"'
+            )
+        elf = build_target(prj, tb)
+        return qemu_transport(elf, machine, baud), elf
     if target == "serial":
         if not port:
             raise ValueError(
@@ -204,6 +219,14 @@ def run_pil(
 ) -> PilRun:
     """Run ``scn`` with the controller on ``target`` over the link."""
     tr, elf = open_target(prj, target, port, baud)
+    return run_over(prj, scn, tr, elf, timeout_s, model)
+
+
+def run_over(
+    prj: Project, scn: Scenario, tr, elf=None, timeout_s: float = 2.0, model: str = "switching"
+) -> PilRun:
+    """Run ``scn`` with the controller behind the transport ``tr`` (closed at the end);
+    ``elf``: the image it runs, for its size."""
     sess = link.Session(tr, timeout_s=timeout_s)
     t0 = time.perf_counter()
     cost = None
