@@ -58,13 +58,23 @@ def number(
     return parse
 
 
-def sizes(text: str) -> tuple[int, ...]:
-    """A comma-separated list of batch sizes, each 1..4096."""
-    parse = number(int, 1, 4096)
-    parts = text.split(",")
-    if not all(p.strip() for p in parts):
-        raise argparse.ArgumentTypeError(f"{text!r}: empty entry in the list")
-    return tuple(int(parse(p.strip())) for p in parts)
+def numbers(
+    kind: type, lo: float | None = None, hi: float | None = None, lo_open: bool = False
+) -> Callable[[str], tuple]:
+    """An argparse type: a comma-separated list, each entry as ``number`` checks it."""
+    one = number(kind, lo, hi, lo_open)
+
+    def parse(text: str) -> tuple:
+        parts = text.split(",")
+        if not all(p.strip() for p in parts):
+            raise argparse.ArgumentTypeError(f"{text!r}: empty entry in the list")
+        return tuple(kind(one(p.strip())) for p in parts)
+
+    parse.__name__ = f"list of {kind.__name__}"
+    return parse
+
+
+sizes = numbers(int, 1, 4096)  # batch sizes, each 1..4096
 
 
 def workers(text: str) -> int:

@@ -20,15 +20,6 @@ from .output import write_json
 from .tables import format_table
 
 
-def _freqs(text: str) -> tuple[float, ...]:
-    """A comma-separated list of frequencies in Hz, each > 0."""
-    parse = checks.number(float, 0.0, 1e7, lo_open=True)
-    parts = text.split(",")
-    if not all(p.strip() for p in parts):
-        raise argparse.ArgumentTypeError(f"{text!r}: empty entry in the list")
-    return tuple(float(parse(p.strip())) for p in parts)
-
-
 def register(sub: argparse._SubParsersAction) -> None:
     q = sub.add_parser(
         "loopgain",
@@ -44,7 +35,7 @@ def register(sub: argparse._SubParsersAction) -> None:
     )
     q.add_argument(
         "--freqs",
-        type=_freqs,
+        type=checks.numbers(float, 0.0, 1e7, lo_open=True),
         metavar="LIST",
         help="injection frequencies in Hz, comma-separated (default: 0.35 to 4.2 times the "
         "design's current crossover, 0.4 to 2.2 times the voltage one, off the line harmonics)",
