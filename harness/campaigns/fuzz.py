@@ -133,6 +133,18 @@ class CampaignResult:
         return all(v.ok for v in self.verdicts)
 
 
+def _progress(k: int, batches: int, verdicts: list[Verdict], n: int, t0: float) -> str:
+    """One progress line: batches and cases done, failures so far, rate, time left."""
+    done, el = len(verdicts), time.perf_counter() - t0
+    rate = done / el if el > 0 else 0.0
+    left = f"about {(n - done) / rate:.0f} s left" if rate > 0 and done < n else "done"
+    return (
+        f"  batch {k + 1}/{batches} done: {done}/{n} cases, "
+        f"{sum(not v.ok for v in verdicts)} failing so far, {el:.0f} s, "
+        f"{rate:.1f} cases/s, {left}"
+    )
+
+
 def campaign(
     prj: Project,
     n: int,
@@ -164,19 +176,11 @@ def campaign(
         with ctx.Pool(workers) as pool:
             for k, vs in enumerate(pool.imap(_worker, [(prj.config, ch) for ch in chunks])):
                 verdicts += vs
-                log(
-                    f"  batch {k + 1}/{len(chunks)} done, {sum(not v.ok for v in verdicts)} "
-                    "failing so far, "
-                    f"{time.perf_counter() - t0:.0f} s"
-                )
+                log(_progress(k, len(chunks), verdicts, n, t0))
     else:
         for k, ch in enumerate(chunks):
             verdicts += run_cases(prj, ch, built=built)
-            log(
-                f"  batch {k + 1}/{len(chunks)} done, {sum(not v.ok for v in verdicts)} failing "
-                "so far, "
-                f"{time.perf_counter() - t0:.0f} s"
-            )
+            log(_progress(k, len(chunks), verdicts, n, t0))
     saved, shrunk = [], []
     failing = [v for v in verdicts if not v.ok]
     if failing and out_dir is not None:
