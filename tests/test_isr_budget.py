@@ -3,6 +3,8 @@ call-graph dumps, and the step's measured instructions as a share of the PWM per
 
 from __future__ import annotations
 
+import shutil
+
 import pytest
 
 from codegen import target
@@ -55,3 +57,25 @@ def test_cross_compile_reports_the_step_stack(demo_project):
     assert rep.stack is not None and rep.stack.path[0] == "pfc_step"
     assert 0 < rep.stack.bytes < 1024  # the contract: no recursion, no large locals
     assert rep.as_dict()["stack_bytes"] == rep.stack.bytes
+
+
+@pytest.mark.slow
+@pytest.mark.skipif(
+    not (target.available() and shutil.which("qemu-system-arm")),
+    reason="needs arm-none-eabi-gcc and qemu-system-arm",
+)
+def test_check_target_refuses_a_step_that_overruns_its_half_period(tmp_path, capsys):
+    """q15 on the Cortex-M3 at 100 kHz and 120 MHz: 1200 cycles a period, 600 from the ADC
+    trigger to the update; the step's worst case (about 800 instructions measured) does not
+    fit even as a lower bound, and --check-target says so and fails."""
+    from harness.cli import main
+
+    from .helpers import DEMO
+
+    text = DEMO.read_text().replace('number_format = "float32"', 'number_format = "q15"')
+    text = text.replace("fsw = 65000.0", "fsw = 100000.0")
+    assert 'number_format = "q15"' in text and "fsw = 100000.0" in text
+    cfg = tmp_path / "c.toml"
+    cfg.write_text(text)
+    assert main(["generate", str(cfg), "-o", str(tmp_path / "o"), "--check-target"]) == 1
+    assert "DO NOT FIT" in capsys.readouterr().out

@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import argparse
+import shutil
 import sys
 
 from codegen import target
@@ -83,6 +84,41 @@ def generate(args: argparse.Namespace) -> int:
     return 0
 
 
+def _step_cycles(prj: Project, fmt: str) -> bool:
+    """The step's cycles on the emulated core (a 0.05 s lockstep run at the nominal line and
+    full load) as a share of the PWM period at [target] core_clock_hz; False when even this
+    lower bound overruns the half period the contract's timing leaves the step."""
+    from harness.closedloop.scenario import default_for
+    from harness.targets.pil import run_pil
+
+    from .pil_cmd import isr_budget
+
+    emulated = "qemu-m3" if fmt == "q15" else "qemu-m4f"
+    if shutil.which("qemu-system-arm") is None:
+        print("step cycles: qemu-system-arm not installed (Debian: qemu-system-arm); skipped")
+        return True
+    pil = run_pil(prj, default_for(prj.config.spec, 0.05), target=emulated)
+    if not pil.cost:
+        print(f"step cycles: the {emulated} run gave no count")
+        return True
+    b = isr_budget(prj, emulated, pil.cost["max"])
+    print(
+        f"step cycles on {emulated} ({pil.cost['steps']} steps at the nominal line, full load): "
+        f"at most {pil.cost['max']:.0f} instructions, at least {b['cycles_pct_of_period']:.1f} % "
+        f"of the PWM period at [target] core_clock_hz = {b['core_clock_hz']:.4g} Hz "
+        f"({b['cycles_pct_of_half_period']:.1f} % of the half period from the ADC trigger to "
+        "the update; instructions are a lower bound on cycles)"
+    )
+    if b["cycles_pct_of_half_period"] > 100.0:
+        print(
+            "step cycles: DO NOT FIT the half period from the ADC trigger (counter top) to the "
+            "update (bottom): raise [target] core_clock_hz, lower [spec] fsw, or use a faster "
+            "core"
+        )
+        return False
+    return True
+
+
 def check_target(prj: Project, files: dict[str, str]) -> int:
     if not target.available():
         print(
@@ -130,12 +166,10 @@ def check_target(prj: Project, files: dict[str, str]) -> int:
         )
     )
     print(
-        "step stack: the worst case over pfc_step's call tree (-fcallgraph-info=su), not "
-        "counting compiler support routines; the step's cycles: `pfcrig pil --target "
-        "qemu-m4f|qemu-m3` measures them against [target] core_clock_hz".replace(
-            "pfc_step", f"{p}_step"
-        )
+        f"step stack: the worst case over {p}_step's call tree (-fcallgraph-info=su), not "
+        "counting compiler support routines"
     )
+    bad |= not _step_cycles(prj, fmt)
     budget = f"flash <= {target.FLASH_LIMIT_B} B, state <= {target.STATE_LIMIT_B} B"
     if fmt == "float32":
         print(
