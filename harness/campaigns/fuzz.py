@@ -7,7 +7,9 @@ per lane) and saved as scenario files.
 from __future__ import annotations
 
 import multiprocessing as mp
+import signal
 import time
+from concurrent.futures import ProcessPoolExecutor
 from dataclasses import asdict, dataclass, field, replace
 from pathlib import Path
 from typing import Any
@@ -105,6 +107,13 @@ def _diff(a: Case, b: Case) -> str:
 
 
 # -- campaign ------------------------------------------------------------------------------------
+def _worker_init() -> None:
+    """A worker ends on SIGTERM at once (a handler inherited from an in-process CLI call
+    would turn it into KeyboardInterrupt in the middle of a batch)."""
+    signal.signal(signal.SIGTERM, signal.SIG_DFL)
+    signal.signal(signal.SIGINT, signal.SIG_IGN)  # Ctrl-C is the client's to handle
+
+
 def _worker(args: tuple) -> list[Verdict]:
     cfg, cases = args
     prj = from_config(cfg)
@@ -172,9 +181,13 @@ def campaign(
         f"{vrms_range[0]:.1f}..{vrms_range[1]:.1f} Vrms, {freq_range[0]:g}..{freq_range[1]:g} Hz"
     )
     if workers > 1 and len(chunks) > 1:
-        ctx = mp.get_context("fork")
-        with ctx.Pool(workers) as pool:
-            for k, vs in enumerate(pool.imap(_worker, [(prj.config, ch) for ch in chunks])):
+        # a worker that dies raises BrokenProcessPool here instead of leaving the client
+        # waiting for its batch for ever (multiprocessing.Pool does the latter)
+        with ProcessPoolExecutor(
+            workers, mp_context=mp.get_context("fork"), initializer=_worker_init
+        ) as pool:
+            jobs = [(prj.config, ch) for ch in chunks]
+            for k, vs in enumerate(pool.map(_worker, jobs)):
                 verdicts += vs
                 log(_progress(k, len(chunks), verdicts, n, t0))
     else:
