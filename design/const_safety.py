@@ -230,8 +230,9 @@ def guards(add: Add, prj: Project) -> None:
         SYNC_MIN_OF_PEAK * ipk,
         "f",
         "A",
-        "synchronous switch enabled only with the current at least this far in the half's "
-        "direction (no reverse current through it)",
+        "synchronous switch turned on only with the current at least this far in the half's "
+        "direction (no reverse current through it), kept on until it has reversed this far "
+        "(hysteresis: no light-load limit cycle)",
         f"rule: {SYNC_MIN_OF_PEAK:g} x sized peak line current",
         (ib, 15),
     )

@@ -195,9 +195,16 @@ def test_pwm_assignment_table(demo_project, demo_built):
             assert bool(g & syncsw) == (k >= ramp + sync - 1)
         # duty ramps in: the first enabled period has no main on-time
         assert rows[0][1] == 0.0
-        # no synchronous switch while the current is not forward (reverse current)
+        # hysteresis: once on, kept on while the current has not reversed past -SYNC_MIN_A
+        lib.pfc_pwmgen_step(s, 0.5, pol, 1, -0.5 * c["SYNC_MIN_A"], out)
+        assert out.gates & main and out.gates & syncsw
+        # off once it has (reverse current), and back on only above +SYNC_MIN_A
         lib.pfc_pwmgen_step(s, 0.5, pol, 1, -fwd, out)
         assert out.gates & main and not out.gates & syncsw
+        lib.pfc_pwmgen_step(s, 0.5, pol, 1, 0.5 * c["SYNC_MIN_A"], out)
+        assert not out.gates & syncsw
+        lib.pfc_pwmgen_step(s, 0.5, pol, 1, fwd, out)
+        assert out.gates & syncsw
     # polarity unknown: gates off
     lib.pfc_pwmgen_init(s)
     lib.pfc_pwmgen_step(s, 0.5, 0, 1, 0.0, out)
