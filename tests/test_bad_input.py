@@ -212,6 +212,10 @@ OPTIONS = [
     "--batch",
     "--sizes",
     "--timeout",
+    "--db",
+    "--vrms",
+    "--load",
+    "--freq",
 ]
 VALUES = [
     "0",
@@ -236,7 +240,9 @@ VALUES = [
     suppress_health_check=[HealthCheck.too_slow, HealthCheck.function_scoped_fixture],
 )
 @given(
-    cmd=st.sampled_from(["design", "generate", "run", "fuzz", "pil", "bench", "init"]),
+    cmd=st.sampled_from(
+        ["design", "generate", "run", "fuzz", "pil", "bench", "init", "sweep", "results"]
+    ),
     opts=st.lists(st.tuples(st.sampled_from(OPTIONS), st.sampled_from(VALUES)), max_size=3),
     content=st.one_of(
         st.just(BASE),
@@ -252,7 +258,7 @@ def test_command_line_fuzz(tmp_path, monkeypatch, cmd, opts, content):
     args = [cmd] if cmd == "bench" else [cmd, cfg]
     for k, v in opts:
         args += [k, v]
-    if cmd == "bench" or (cmd in ("run", "fuzz", "pil") and content == BASE):
+    if cmd == "bench" or (cmd in ("run", "fuzz", "pil", "sweep") and content == BASE):
         args = ["design", cfg]  # a long measurement or campaign is not what this test is for
     code, err = cli(*args)
     assert code in (0, 1, 2, 130) and "Traceback" not in err, (args, code, err)

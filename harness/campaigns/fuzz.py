@@ -6,10 +6,7 @@ per lane) and saved as scenario files.
 
 from __future__ import annotations
 
-import multiprocessing as mp
-import signal
 import time
-from concurrent.futures import ProcessPoolExecutor
 from dataclasses import asdict, dataclass, field, replace
 from pathlib import Path
 from typing import Any
@@ -21,6 +18,8 @@ from harness.closedloop.scenario import Scenario, dumps
 
 from .cases import Case, draw_cases, line_ranges
 from .invariants import INVARIANTS, check_lane
+from .pool import ordered_map, progress_line
+from .results import Recorder
 from .safety import SAFETY_INVARIANTS
 
 
@@ -107,13 +106,6 @@ def _diff(a: Case, b: Case) -> str:
 
 
 # -- campaign ------------------------------------------------------------------------------------
-def _worker_init() -> None:
-    """A worker ends on SIGTERM at once (a handler inherited from an in-process CLI call
-    would turn it into KeyboardInterrupt in the middle of a batch)."""
-    signal.signal(signal.SIGTERM, signal.SIG_DFL)
-    signal.signal(signal.SIGINT, signal.SIG_IGN)  # Ctrl-C is the client's to handle
-
-
 def _worker(args: tuple) -> list[Verdict]:
     cfg, cases = args
     prj = from_config(cfg)
@@ -142,18 +134,6 @@ class CampaignResult:
         return all(v.ok for v in self.verdicts)
 
 
-def _progress(k: int, batches: int, verdicts: list[Verdict], n: int, t0: float) -> str:
-    """One progress line: batches and cases done, failures so far, rate, time left."""
-    done, el = len(verdicts), time.perf_counter() - t0
-    rate = done / el if el > 0 else 0.0
-    left = f"about {(n - done) / rate:.0f} s left" if rate > 0 and done < n else "done"
-    return (
-        f"  batch {k + 1}/{batches} done: {done}/{n} cases, "
-        f"{sum(not v.ok for v in verdicts)} failing so far, {el:.0f} s, "
-        f"{rate:.1f} cases/s, {left}"
-    )
-
-
 def campaign(
     prj: Project,
     n: int,
@@ -166,34 +146,46 @@ def campaign(
     log=print,
     built=None,
     sensor_faults: bool = False,
+    recorder: Recorder | None = None,
 ) -> CampaignResult:
     """``sensor_faults``: every case also fails one sensor (``cases.sensor_fault_of``) and is
-    checked against the single-fault invariants (``campaigns.safety``)."""
+    checked against the single-fault invariants (``campaigns.safety``).  ``recorder``: each
+    batch's cases are committed to the results database as the batch finishes, and the cases
+    it already holds (a resumed campaign) are not run again."""
     t0 = time.perf_counter()
     vrms_range, freq_range = line_ranges(prj)
     full = prj.resolved.adc_full_counts if sensor_faults else 0
     cases = draw_cases(n, seed, max_event_cycles, vrms_range, freq_range, full)
-    chunks = [cases[i : i + batch] for i in range(0, len(cases), batch)]
-    verdicts: list[Verdict] = []
+    done = recorder.done() if recorder else {}
+    by_idx = {i: Verdict(cases[i], *done[i]) for i in done if i < len(cases)}
+    todo = [i for i in range(len(cases)) if i not in by_idx]
+    chunks = [todo[i : i + batch] for i in range(0, len(todo), batch)]
     log(
         f"fuzz: {n} cases in {len(chunks)} batch(es) of <= {batch}, {workers} worker(s), seed "
         f"{seed}; line "
         f"{vrms_range[0]:.1f}..{vrms_range[1]:.1f} Vrms, {freq_range[0]:g}..{freq_range[1]:g} Hz"
+        + (f"; {len(by_idx)} already in the results database" if by_idx else "")
     )
+    jobs = [[cases[i] for i in ch] for ch in chunks]
     if workers > 1 and len(chunks) > 1:
-        # a worker that dies raises BrokenProcessPool here instead of leaving the client
-        # waiting for its batch for ever (multiprocessing.Pool does the latter)
-        with ProcessPoolExecutor(
-            workers, mp_context=mp.get_context("fork"), initializer=_worker_init
-        ) as pool:
-            jobs = [(prj.config, ch) for ch in chunks]
-            for k, vs in enumerate(pool.map(_worker, jobs)):
-                verdicts += vs
-                log(_progress(k, len(chunks), verdicts, n, t0))
+        results = ordered_map(_worker, [(prj.config, job) for job in jobs], workers)
     else:
-        for k, ch in enumerate(chunks):
-            verdicts += run_cases(prj, ch, built=built)
-            log(_progress(k, len(chunks), verdicts, n, t0))
+        results = (run_cases(prj, job, built=built) for job in jobs)
+    t_last = time.perf_counter()
+    for k, vs in enumerate(results):
+        by_idx.update(zip(chunks[k], vs, strict=True))
+        if recorder is not None:
+            rows = [
+                (i, dumps(cases[i].to_scenario(prj, f"case{i}")), v.failed, v.figures)
+                for i, v in zip(chunks[k], vs, strict=True)
+            ]
+            recorder.add(rows, time.perf_counter() - t_last)
+        t_last = time.perf_counter()
+        bad = sum(not v.ok for v in by_idx.values())
+        log(progress_line(k, len(chunks), len(by_idx), n, "cases", f"{bad} failing so far", t0))
+    if recorder is not None:
+        recorder.finish()
+    verdicts = [by_idx[i] for i in range(len(cases))]
     saved, shrunk = [], []
     failing = [v for v in verdicts if not v.ok]
     if failing and out_dir is not None:

@@ -14,6 +14,7 @@ from harness.campaigns.invariants import BOUNDS
 
 from . import checks
 from .output import write_json
+from .results_cmd import add_db_options, open_recorder
 from .tables import format_table
 
 
@@ -63,6 +64,7 @@ def register(sub: argparse._SubParsersAction) -> None:
         "phase and mode) and check the single-fault invariants",
     )
     q.add_argument("--json", metavar="OUT", help="write the campaign report as JSON")
+    add_db_options(q)
     q.set_defaults(func=fuzz_cmd)
 
 
@@ -71,6 +73,13 @@ def fuzz_cmd(args: argparse.Namespace) -> int:
     checks.output_file(args.json, "--json")
     prj = load_project(args.config)
     out_dir = Path(args.out)
+    params = {
+        "examples": args.examples,
+        "seed": args.seed,
+        "max_event_cycles": args.max_event_cycles,
+        "sensor_faults": args.sensor_faults,
+    }
+    rec = open_recorder(args, "fuzz", prj, params, args.examples)
     res = fuzz.campaign(
         prj,
         args.examples,
@@ -82,6 +91,7 @@ def fuzz_cmd(args: argparse.Namespace) -> int:
         do_shrink=not args.no_shrink,
         log=lambda m: print(m, file=sys.stderr),
         sensor_faults=args.sensor_faults,
+        recorder=rec,
     )
     counts = res.counts()
     rows = [(inv, len(res.verdicts) - counts[inv], counts[inv]) for inv in res.names]
@@ -89,6 +99,9 @@ def fuzz_cmd(args: argparse.Namespace) -> int:
     print(
         f"{len(res.verdicts)} cases, {sum(not v.ok for v in res.verdicts)} failing, "
         f"{res.wall_s:.1f} s"
+    )
+    print(
+        f"results: campaign {rec.campaign_id} in {args.db} (pfcrig results show {rec.campaign_id})"
     )
     for p in res.saved:
         print(f"failing case: {p}  (replay: pfcrig run {args.config} --scenario {p})")

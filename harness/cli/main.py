@@ -19,7 +19,9 @@ from . import (
     init_cmd,
     loopgain_cmd,
     pil_cmd,
+    results_cmd,
     run_cmd,
+    sweep_cmd,
 )
 from .checks import UsageError
 
@@ -28,7 +30,18 @@ CAUTION = (
     "validated on hardware by qualified people; local electrical codes and licensed practice "
     "take precedence."
 )
-COMMANDS = (init_cmd, design_cmd, generate_cmd, run_cmd, loopgain_cmd, fuzz_cmd, bench_cmd, pil_cmd)
+COMMANDS = (
+    init_cmd,
+    design_cmd,
+    generate_cmd,
+    run_cmd,
+    loopgain_cmd,
+    sweep_cmd,
+    fuzz_cmd,
+    bench_cmd,
+    pil_cmd,
+    results_cmd,
+)
 
 
 def _terminate(signum: int, frame: object) -> None:

@@ -60,7 +60,7 @@ def write_plots(res: RunResult, rep: dict, out_dir: str | Path, k: int = 0) -> l
     fig.legend(loc="upper right", fontsize=8)
     fig.tight_layout()
     paths.append(out / "line.png")
-    _save(fig, paths[-1])
+    save_png(fig, paths[-1])
     plt.close(fig)
 
     fig, axs = plt.subplots(3, 1, figsize=(10, 7), sharex=True)
@@ -80,7 +80,7 @@ def write_plots(res: RunResult, rep: dict, out_dir: str | Path, k: int = 0) -> l
     fig.suptitle("bus, duty and supervisor mode")
     fig.tight_layout()
     paths.append(out / "bus_duty_mode.png")
-    _save(fig, paths[-1])
+    save_png(fig, paths[-1])
     plt.close(fig)
 
     if rep["steady"]:
@@ -125,12 +125,12 @@ def _harmonics_plot(rep: dict, path: Path) -> Path:
     ax.set_title(f"current harmonics (IEC 61000-4-7 groups): Class A {verdict}", fontsize=9)
     ax.legend(fontsize=8)
     fig.tight_layout()
-    _save(fig, path)
+    save_png(fig, path)
     plt.close(fig)
     return path
 
 
-def _save(fig, path: Path) -> None:
+def save_png(fig, path: Path) -> None:
     """The PNG through a temporary file renamed into place."""
     with atomic_path(path) as tmp:
         fig.savefig(tmp, dpi=110, format="png")
