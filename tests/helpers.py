@@ -41,8 +41,8 @@ _NO_SLOW_GUARD = (
 )
 _NO_SYNC_GUARD = (
     "pwm.c.j2",
-    '''"fwd > " ~ P ~ "_SYNC_MIN_A", "on > 0u"''',
-    '''"(fwd == fwd)"''',
+    '''"fwd > sync_min", "on > 0u"''',
+    '''"(fwd == fwd) && (sync_min == sync_min)"''',
 )
 BREAKS = {
     # no zero-crossing window: keeps switching in the old polarity until the new one is

@@ -195,7 +195,7 @@ def test_line_offset_is_refused_before_start_and_in_run(lanes):
     assert int(ln.d["faults"][-1]) & (Fault.SENSOR_VAC | Fault.SENSOR_IL)
 
 
-def test_compare_and_gates_change_together_and_sync_only_forward(lanes):
+def test_compare_and_gates_change_together_and_sync_turns_on_only_forward(lanes):
     ln = lanes["nominal"]
     per, g, cmp_ = R.pwm_period_counts, ln.gates, ln.d["compare"].astype(int)
     on = np.flatnonzero((g[1:] != 0) & (g[:-1] == 0)) + 1
@@ -209,8 +209,15 @@ def test_compare_and_gates_change_together_and_sync_only_forward(lanes):
     neg_sync = (g & Gate.SLOW_HI).astype(bool) & (g & Gate.FAST_LO).astype(bool)
     i_prev = np.concatenate([[0.0], ln.d["i_sample_A"][:-1]])  # the sample the step saw
     quant = R.il_A_per_count
-    assert np.all(i_prev[pos_sync] > c["SYNC_MIN_A"] - quant)
-    assert np.all(-i_prev[neg_sync] > c["SYNC_MIN_A"] - quant)
+    sync = pos_sync | neg_sync
+    fwd = np.where(pos_sync, i_prev, -i_prev)  # in the half's direction
+    was = np.concatenate([[False], sync[:-1]])
+    # turned on only with the current forward by SYNC_MIN_A; kept on while it has not
+    # reversed past -SYNC_MIN_A (the hysteresis of pwm.h)
+    turn_on, held = sync & ~was, sync & was
+    assert turn_on.sum() > 20 and held.sum() > 20
+    assert np.all(fwd[turn_on] > c["SYNC_MIN_A"] - quant)
+    assert np.all(fwd[held] > -c["SYNC_MIN_A"] - quant)
 
 
 def test_a_slowly_recurring_trip_latches(lanes):
