@@ -261,7 +261,7 @@ def cases(
 
 
 @contextlib.contextmanager
-def _no_local_constants() -> Iterator[None]:
+def no_local_constants() -> Iterator[None]:
     """Hypothesis (6.13x on) sometimes draws a literal mined from the source of every local
     module in ``sys.modules``: a campaign's cases would then change with any constant edited
     anywhere in pfcrig, and with which modules the command happened to import (seen: the
@@ -324,7 +324,7 @@ def draw_cases(
                 out.append(c)
 
     rounds = 0
-    with _no_local_constants():
+    with no_local_constants():
         while len(out) < n and rounds < 20:  # a round may stop early: go on with the next seed
             hseed(seed * 1000 + rounds)(collect)()
             rounds += 1

@@ -21,6 +21,7 @@ from . import (
     pil_cmd,
     results_cmd,
     run_cmd,
+    survey_cmd,
     sweep_cmd,
 )
 from .checks import UsageError
@@ -41,6 +42,7 @@ COMMANDS = (
     bench_cmd,
     pil_cmd,
     results_cmd,
+    survey_cmd,
 )
 
 
