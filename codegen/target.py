@@ -117,9 +117,7 @@ def check(
         src.mkdir()
         for name, text in files.items():
             (src / name).write_text(text)
-        objs = compile_objects(
-            src, Path(tmp) / "obj", cc=cc, flags=[*flags, "-fcallgraph-info=su"]
-        )
+        objs = compile_objects(src, Path(tmp) / "obj", cc=cc, flags=[*flags, "-fcallgraph-info=su"])
         sizes = image_size(objs, tool + "size")
         stack = worst_case(sorted((Path(tmp) / "obj").glob("*.ci")), f"{prefix}_step")
         probe = Path(tmp) / "probe.c"

@@ -44,9 +44,7 @@ def test_points_obey_the_power_factor_identity_and_light_load_has_no_limit_cycle
     prj = load_project(APPLIANCE)
     pts = sweep.grid((85.0, 140.0), (0.1, 1.0), (60.0,))
     recs, _ = sweep.sweep(prj, pts, batch=4, log=lambda m: None)
-    assert [(r["vrms_V"], r["load_frac"]) for r in recs] == [
-        (p.vrms_V, p.load_frac) for p in pts
-    ]
+    assert [(r["vrms_V"], r["load_frac"]) for r in recs] == [(p.vrms_V, p.load_frac) for p in pts]
     for r in recs:
         assert r["steady"], r["steady_reason"]
         rep_pf = r["displacement_factor"] / math.sqrt(1.0 + r["thd_total"] ** 2)

@@ -86,8 +86,9 @@ def designs() -> st.SearchStrategy[Design]:
     hold-up 0-20 ms; float32 and q15."""
 
     def f(lo: float, hi: float) -> st.SearchStrategy[float]:
+        # four significant digits; hypothesis's tiny edge values (1e-308 s) are the edge 0
         return st.floats(lo, hi, allow_nan=False, allow_infinity=False).map(
-            lambda x: float(f"{x:.4g}")
+            lambda x: float(f"{x:.4g}") if abs(x) > 1e-9 else 0.0
         )
 
     return st.builds(
@@ -110,18 +111,22 @@ def draw_designs(n: int, seed: int) -> list[Design]:
 
     out: list[Design] = []
     strat = designs()
+    group = 4  # designs per hypothesis example: hypothesis mutates one example into the next,
+    # and one design per example gave runs of near-copies (five of 40 at 6881 W, 199.8 kHz)
 
     @settings(
-        max_examples=n + 10,
+        max_examples=n // group + 10,
         database=None,
         phases=[Phase.generate],
         deadline=None,
         suppress_health_check=list(HealthCheck),
     )
-    @given(strat)
-    def collect(d: Design) -> None:
-        if d not in out:
-            out.append(d)
+    @given(st.data())
+    def collect(data: st.DataObject) -> None:
+        for _ in range(group):
+            d = data.draw(strat)
+            if d not in out:
+                out.append(d)
 
     rounds = 0
     with no_local_constants():

@@ -12,7 +12,7 @@ from design.project import load_project
 from harness.campaigns import fuzz
 from harness.campaigns.invariants import BOUNDS
 
-from . import checks
+from . import checks, html_pages
 from .output import write_json
 from .results_cmd import add_db_options, open_recorder
 from .tables import format_table
@@ -64,6 +64,7 @@ def register(sub: argparse._SubParsersAction) -> None:
         "phase and mode) and check the single-fault invariants",
     )
     q.add_argument("--json", metavar="OUT", help="write the campaign report as JSON")
+    q.add_argument("--html", metavar="FILE", help="write a self-contained HTML report")
     add_db_options(q)
     q.set_defaults(func=fuzz_cmd)
 
@@ -71,6 +72,7 @@ def register(sub: argparse._SubParsersAction) -> None:
 def fuzz_cmd(args: argparse.Namespace) -> int:
     checks.output_dir(args.out, "--out")
     checks.output_file(args.json, "--json")
+    checks.output_file(args.html, "--html")
     prj = load_project(args.config)
     out_dir = Path(args.out)
     params = {
@@ -120,4 +122,6 @@ def fuzz_cmd(args: argparse.Namespace) -> int:
             "saved": [str(p) for p in res.saved],
         }
         write_json(args.json, doc)
+    if args.html:
+        html_pages.fuzz_page(args.html, prj, res, args.seed)
     return 0 if res.ok else 1

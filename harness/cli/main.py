@@ -24,13 +24,9 @@ from . import (
     survey_cmd,
     sweep_cmd,
 )
+from .caution import CAUTION
 from .checks import UsageError
 
-CAUTION = (
-    "CAUTION: a PFC bus (~400 V DC) is lethal. pfcrig output is reference material, to be "
-    "validated on hardware by qualified people; local electrical codes and licensed practice "
-    "take precedence."
-)
 COMMANDS = (
     init_cmd,
     design_cmd,

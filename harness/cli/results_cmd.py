@@ -7,7 +7,7 @@ import json
 
 from harness.campaigns import results as db
 
-from . import checks
+from . import checks, html_pages
 from .output import write_json
 from .tables import format_table
 
@@ -58,6 +58,7 @@ def register(sub: argparse._SubParsersAction) -> None:
     s = verbs.add_parser("show", help="one campaign: parameters, failing cases")
     s.add_argument("id", type=checks.number(int, 1))
     s.add_argument("--json", metavar="OUT", help="write the campaign and its cases as JSON")
+    s.add_argument("--html", metavar="FILE", help="write a self-contained HTML report")
     c = verbs.add_parser(
         "compare",
         help="two campaigns case by case (matched by scenario): verdicts that changed, "
@@ -77,76 +78,80 @@ def register(sub: argparse._SubParsersAction) -> None:
     q.set_defaults(func=results_cmd)
 
 
+def _list(con) -> None:
+    rows = [
+        (
+            c["id"],
+            c["kind"],
+            c["started_utc"],
+            c["config_path"],
+            c["firmware_digest"],
+            f"{c['done']}/{c['planned']}",
+            c["failing"],
+            "yes" if c["finished_utc"] else "no",
+        )
+        for c in db.campaigns(con)
+    ]
+    head = ["id", "kind", "started (UTC)", "config", "firmware", "cases", "failing", "finished"]
+    print(format_table(head, rows))
+
+
+def _show(con, args: argparse.Namespace) -> None:
+    c = db.campaign(con, args.id)
+    failing = [k for k in c["cases"] if not k["ok"]]
+    print(
+        f"campaign {c['id']}: {c['kind']} of {c['config_path']} (config "
+        f"{c['config_digest']}, firmware {c['firmware_digest']}, pfcrig "
+        f"{c['pfcrig_version']}) on {c['host']}, started {c['started_utc']}, "
+        f"finished {c['finished_utc'] or 'no'}"
+    )
+    print(f"  parameters: {json.dumps(c['params'], sort_keys=True)}")
+    print(f"  {len(c['cases'])}/{c['planned']} cases, {len(failing)} failing")
+    for k in failing:
+        why = "; ".join(f"{n}: {r}" for n, r in k["failed"].items())
+        print(f"  case {k['idx']}: {why}")
+    if args.json:
+        write_json(args.json, c)
+    if args.html:
+        html_pages.results_page(args.html, c)
+
+
+def _compare(con, args: argparse.Namespace) -> None:
+    out = db.compare(con, args.a, args.b, args.tol)
+    print(
+        f"campaigns {args.a} and {args.b}: {out['matched']} cases matched by scenario, "
+        f"{out['only_a']} only in {args.a}, {out['only_b']} only in {args.b}"
+    )
+    print(f"  {len(out['verdict_changed'])} changed verdict:")
+    for d in out["verdict_changed"]:
+        print(
+            f"    case {d['idx_a']}/{d['idx_b']}: {sorted(d['failed_a']) or 'ok'} -> "
+            f"{sorted(d['failed_b']) or 'ok'}"
+        )
+    print(f"  {len(out['figures_moved'])} figures moved by more than {100 * args.tol:g} %")
+    for d in out["figures_moved"][:50]:
+        print(f"    case {d['idx_a']}/{d['idx_b']} {d['figure']}: {d['a']:.6g} -> {d['b']:.6g}")
+    if args.json:
+        write_json(args.json, out)
+    elif len(out["figures_moved"]) > 50:
+        print("    ... (all of them with --json)")
+
+
 def results_cmd(args: argparse.Namespace) -> int:
     from pathlib import Path
 
     if not Path(args.db).is_file():
         raise checks.UsageError(f"--db {args.db}: no such results database")
-    if getattr(args, "json", None):
-        checks.output_file(args.json, "--json")
+    for opt in ("json", "html"):
+        checks.output_file(getattr(args, opt, None), f"--{opt}")
     try:
         con = db.connect(args.db)
         if args.verb == "list":
-            rows = [
-                (
-                    c["id"],
-                    c["kind"],
-                    c["started_utc"],
-                    c["config_path"],
-                    c["firmware_digest"],
-                    f"{c['done']}/{c['planned']}",
-                    c["failing"],
-                    "yes" if c["finished_utc"] else "no",
-                )
-                for c in db.campaigns(con)
-            ]
-            head = [
-                "id",
-                "kind",
-                "started (UTC)",
-                "config",
-                "firmware",
-                "cases",
-                "failing",
-                "finished",
-            ]
-            print(format_table(head, rows))
-            return 0
-        if args.verb == "show":
-            c = db.campaign(con, args.id)
-            failing = [k for k in c["cases"] if not k["ok"]]
-            print(
-                f"campaign {c['id']}: {c['kind']} of {c['config_path']} (config "
-                f"{c['config_digest']}, firmware {c['firmware_digest']}, pfcrig "
-                f"{c['pfcrig_version']}) on {c['host']}, started {c['started_utc']}, "
-                f"finished {c['finished_utc'] or 'no'}"
-            )
-            print(f"  parameters: {json.dumps(c['params'], sort_keys=True)}")
-            print(f"  {len(c['cases'])}/{c['planned']} cases, {len(failing)} failing")
-            for k in failing:
-                why = "; ".join(f"{n}: {r}" for n, r in k["failed"].items())
-                print(f"  case {k['idx']}: {why}")
-            if args.json:
-                write_json(args.json, c)
-            return 0
-        out = db.compare(con, args.a, args.b, args.tol)
-        print(
-            f"campaigns {args.a} and {args.b}: {out['matched']} cases matched by scenario, "
-            f"{out['only_a']} only in {args.a}, {out['only_b']} only in {args.b}"
-        )
-        print(f"  {len(out['verdict_changed'])} changed verdict:")
-        for d in out["verdict_changed"]:
-            print(
-                f"    case {d['idx_a']}/{d['idx_b']}: {sorted(d['failed_a']) or 'ok'} -> "
-                f"{sorted(d['failed_b']) or 'ok'}"
-            )
-        print(f"  {len(out['figures_moved'])} figures moved by more than {100 * args.tol:g} %")
-        for d in out["figures_moved"][:50]:
-            print(f"    case {d['idx_a']}/{d['idx_b']} {d['figure']}: {d['a']:.6g} -> {d['b']:.6g}")
-        if args.json:
-            write_json(args.json, out)
-        elif len(out["figures_moved"]) > 50:
-            print("    ... (all of them with --json)")
-        return 0
+            _list(con)
+        elif args.verb == "show":
+            _show(con, args)
+        else:
+            _compare(con, args)
     except db.ResultsError as exc:
         raise checks.UsageError(str(exc)) from None
+    return 0

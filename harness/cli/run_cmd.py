@@ -8,7 +8,7 @@ from design.project import load_project
 from harness.closedloop import plots, report
 from harness.closedloop.loop import run
 
-from . import checks
+from . import checks, html_pages
 from .output import scenario_of, write_json
 
 
@@ -30,6 +30,7 @@ def register(sub: argparse._SubParsersAction) -> None:
     q.add_argument("--json", metavar="OUT", help="write the report as JSON")
     q.add_argument("--csv", metavar="FILE", help="write the per-period waveforms as CSV")
     q.add_argument("--plot", metavar="DIR", help="write PNG plots")
+    q.add_argument("--html", metavar="FILE", help="write a self-contained HTML report")
     q.add_argument("--quiet", action="store_true", help="no progress bar")
     q.set_defaults(func=run_cmd)
 
@@ -38,6 +39,7 @@ def run_cmd(args: argparse.Namespace) -> int:
     checks.output_file(args.json, "--json")
     checks.output_file(args.csv, "--csv")
     checks.output_dir(args.plot, "--plot")
+    checks.output_file(args.html, "--html")
     prj = load_project(args.config)
     scn = scenario_of(args, prj, 0.6)
     res = run(prj, [scn], model=args.model, progress=not args.quiet)
@@ -54,4 +56,6 @@ def run_cmd(args: argparse.Namespace) -> int:
     if args.plot:
         paths = plots.write_plots(res, rep, args.plot)
         print("wrote " + ", ".join(map(str, paths)))
+    if args.html:
+        html_pages.run_page(args.html, prj, scn, res, rep)
     return 0

@@ -11,7 +11,7 @@ from harness.campaigns import sweep, sweep_plots
 from harness.closedloop.loop import RECORD_BYTES_PER_PERIOD
 from harness.closedloop.report import firmware_digest
 
-from . import checks
+from . import checks, html_pages
 from .output import write_json
 from .results_cmd import add_db_options, open_recorder
 from .tables import format_table
@@ -70,6 +70,7 @@ def register(sub: argparse._SubParsersAction) -> None:
     )
     q.add_argument("--json", metavar="OUT", help="write the points as JSON")
     q.add_argument("--plot", metavar="DIR", help="write PNG plots (figures against load, maps)")
+    q.add_argument("--html", metavar="FILE", help="write a self-contained HTML report")
     add_db_options(q)
     q.set_defaults(func=sweep_cmd)
 
@@ -106,6 +107,7 @@ def _row(r: dict) -> tuple:
 def sweep_cmd(args: argparse.Namespace) -> int:
     checks.output_file(args.json, "--json")
     checks.output_dir(args.plot, "--plot")
+    checks.output_file(args.html, "--html")
     prj = load_project(args.config)
     vrms = args.vrms or sweep.default_vrms(prj)
     loads = tuple(x / 100.0 for x in (args.load or sweep.DEFAULT_LOADS_PCT))
@@ -157,4 +159,6 @@ def sweep_cmd(args: argparse.Namespace) -> int:
     if args.plot:
         paths = sweep_plots.write_plots(recs, args.plot)
         print("wrote " + ", ".join(map(str, paths)))
+    if args.html:
+        html_pages.sweep_page(args.html, prj, recs, wall)
     return 0
