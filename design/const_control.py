@@ -148,6 +148,18 @@ def iloop(add: Add, prj: Project) -> None:
         (1.0 / ib, 31),
     )
     add(
+        "DEAD_TIME_DUTY",
+        prj.config.plant.dead_time * s.fsw,
+        "f",
+        "1",
+        "duty added to the feedforward 1 - |v|/v_bus while the period's average current is "
+        "forward, subtracted while it is reversed: the timer's dead time delays the main "
+        "switch's turn-on, and the current then flows in the body diode its sign picks "
+        "(dead-time compensation by the current's sign, common practice)",
+        "[plant] dead_time x [spec] fsw",
+        (1.0, 15),
+    )
+    add(
         "INV_VBUS_MIN",
         1.0 / r.vbus_range_V,
         "f",

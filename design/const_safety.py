@@ -114,8 +114,8 @@ def plausibility(add: Add, prj: Project) -> None:
         IL_TRACK_ERR_OF_PEAK * ipk,
         "f",
         "A",
-        "... and the current off its reference by more than this (a current at its reference is "
-        "one the loop tracks)",
+        "... and the current off its reference by more than this or half the reference, "
+        "whichever is less (a current at its reference is one the loop tracks)",
         f"rule: {IL_TRACK_ERR_OF_PEAK:g} x sized peak line current",
         (ib, 15),
     )

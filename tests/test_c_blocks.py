@@ -333,3 +333,23 @@ def test_supervisor_trip_rules(demo_project, demo_built):
     delay = int(c["RETRY_DELAY_PERIODS"])
     modes = [step(oc if k % 100 == 0 else 0.0) for k in range(delay + 1)]
     assert modes[delay - 2] == lib.PFC_MODE_TRIPPED and modes[-1] == lib.PFC_MODE_WAIT_LINE
+
+
+def test_duty_feedforward_carries_the_dead_time_by_the_currents_sign(demo_project, demo_built):
+    """With no error the current loop's duty is its feedforward 1 - |v|/v_bus plus the dead
+    time's share of the period while the current is forward, minus it while reversed: in the
+    plant's period (plant/kernel.py) the main switch's turn-on waits out the dead time, in
+    which a forward current keeps the synchronous switch's body diode on (the off state) and
+    a reversed one the main switch's own (the on state); hand arithmetic: d_eff = d -+ td fsw."""
+    c = consts(demo_project)
+    dt = demo_project.config.plant.dead_time * demo_project.config.spec.fsw
+    assert c["DEAD_TIME_DUTY"] == pytest.approx(dt)
+    ffi, lib = demo_built.ffi, demo_built.lib
+    vout, absv = c["VOUT_V"], 200.0
+    for pol in (1, -1):
+        for sign in (1.0, -1.0):
+            s = ffi.new("pfc_iloop_t*")
+            lib.pfc_iloop_init(s)  # 1/v_bus starts at 1/vout
+            il = pol * sign * 2.0  # 2 A forward (sign +1) or reversed, in this half
+            duty = lib.pfc_iloop_step(s, 2.0 * sign, il, pol, absv, c["DUTY_MAX"])
+            assert duty == pytest.approx(1.0 - absv / vout + sign * dt, abs=1e-6), (pol, sign)

@@ -53,10 +53,12 @@ def test_corpus_replays(demo_project):
 @pytest.mark.slow
 @pytest.mark.parametrize("name", sorted(d.name for d in CORPUS.iterdir() if d.is_dir()))
 def test_corpus_of_an_example_replays(name):
-    """``tests/corpus/NAME/`` holds cases found on ``examples/NAME.toml``; each must pass its
-    invariants (the single-fault ones for a case with a sensor fault)."""
-    prj = load_project(EXAMPLES / f"{name}.toml")
-    files = sorted((CORPUS / name).glob("*.toml"))
+    """``tests/corpus/NAME/`` holds cases found on ``examples/NAME.toml``, or on the design
+    in its own ``config.toml`` (one `pfcrig survey` drew); each must pass its invariants (the
+    single-fault ones for a case with a sensor fault)."""
+    own = CORPUS / name / "config.toml"
+    prj = load_project(own if own.is_file() else EXAMPLES / f"{name}.toml")
+    files = sorted(f for f in (CORPUS / name).glob("*.toml") if f != own)
     assert files
     scns = [scenario.load(f) for f in files]
     for f, v in zip(files, fuzz.run_cases(prj, scns), strict=True):
