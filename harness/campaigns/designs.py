@@ -20,7 +20,7 @@ from design.project import from_config
 
 from . import fuzz
 from .cases import no_local_constants
-from .pool import ordered_map, progress_line
+from .pool import batch_map, progress_line
 
 # line classes: (vin_rms_min, vin_rms_max, vin_rms_nominal) in V rms
 LINE_CLASSES = {
@@ -186,13 +186,14 @@ def survey(
     workers: int = 1,
     out_dir: str | Path | None = None,
     log: Callable[[str], None] = print,
+    scheduler: str | None = None,
 ) -> tuple[list[dict], float]:
     """``n`` drawn designs, each with ``cases`` fault cases: the records and the wall time."""
     t0 = time.perf_counter()
     ds = draw_designs(n, seed)
     log(f"survey: {len(ds)} designs x {cases} cases, {workers} worker(s), seed {seed}")
     jobs = [(i, d, cases, seed, str(out_dir) if out_dir else None) for i, d in enumerate(ds)]
-    results = ordered_map(survey_one, jobs, workers) if workers > 1 else map(survey_one, jobs)
+    results = batch_map(survey_one, jobs, workers, scheduler)
     out: list[dict] = []
     for k, rec in enumerate(results):
         out.append(rec)

@@ -18,7 +18,7 @@ from harness.closedloop.scenario import Scenario, dumps
 
 from .cases import Case, draw_cases, line_ranges
 from .invariants import INVARIANTS, check_lane
-from .pool import ordered_map, progress_line
+from .pool import batch_map, progress_line
 from .results import Recorder
 from .safety import SAFETY_INVARIANTS
 
@@ -147,11 +147,14 @@ def campaign(
     built=None,
     sensor_faults: bool = False,
     recorder: Recorder | None = None,
+    scheduler: str | None = None,
 ) -> CampaignResult:
     """``sensor_faults``: every case also fails one sensor (``cases.sensor_fault_of``) and is
     checked against the single-fault invariants (``campaigns.safety``).  ``recorder``: each
     batch's cases are committed to the results database as the batch finishes, and the cases
-    it already holds (a resumed campaign) are not run again."""
+    it already holds (a resumed campaign) are not run again.  Batches run on Dask
+    (``pool.batch_map``: an embedded cluster of ``workers`` processes, or the cluster at
+    ``scheduler``); cases are drawn and shrunk here, on the client."""
     t0 = time.perf_counter()
     vrms_range, freq_range = line_ranges(prj)
     full = prj.resolved.adc_full_counts if sensor_faults else 0
@@ -167,10 +170,13 @@ def campaign(
         + (f"; {len(by_idx)} already in the results database" if by_idx else "")
     )
     jobs = [[cases[i] for i in ch] for ch in chunks]
-    if workers > 1 and len(chunks) > 1:
-        results = ordered_map(_worker, [(prj.config, job) for job in jobs], workers)
-    else:
-        results = (run_cases(prj, job, built=built) for job in jobs)
+    results = batch_map(
+        _worker,
+        [(prj.config, job) for job in jobs],
+        workers,
+        scheduler,
+        local=lambda j: run_cases(prj, j[1], built=built),
+    )
     t_last = time.perf_counter()
     for k, vs in enumerate(results):
         by_idx.update(zip(chunks[k], vs, strict=True))

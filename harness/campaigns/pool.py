@@ -1,31 +1,11 @@
-"""Batches of closed-loop work in worker processes, results in submission order."""
+"""Batches of closed-loop work on Dask workers (or in this process), results in submission
+order, and the progress line of a batched campaign."""
 
 from __future__ import annotations
 
-import multiprocessing as mp
-import signal
 import time
-from collections.abc import Callable, Iterable, Iterator
-from concurrent.futures import ProcessPoolExecutor
+from collections.abc import Callable, Iterator, Sequence
 from typing import Any
-
-
-def _worker_init() -> None:
-    """A worker ends on SIGTERM at once (a handler inherited from an in-process CLI call
-    would turn it into KeyboardInterrupt in the middle of a batch); Ctrl-C is the client's."""
-    signal.signal(signal.SIGTERM, signal.SIG_DFL)
-    signal.signal(signal.SIGINT, signal.SIG_IGN)
-
-
-def ordered_map(fn: Callable[[Any], Any], jobs: Iterable[Any], workers: int) -> Iterator[Any]:
-    """``fn`` over ``jobs`` on ``workers`` forked processes, yielding each result in the
-    jobs' order as soon as it and those before it are done.  A worker that dies raises
-    ``BrokenProcessPool`` here instead of leaving the client waiting for its batch for ever
-    (as ``multiprocessing.Pool`` does)."""
-    with ProcessPoolExecutor(
-        workers, mp_context=mp.get_context("fork"), initializer=_worker_init
-    ) as pool:
-        yield from pool.map(fn, jobs)
 
 
 def progress_line(
@@ -40,3 +20,60 @@ def progress_line(
         f"  batch {k + 1}/{batches} done: {done}/{total} {unit}, {tally}, {el:.0f} s, "
         f"{rate:.1f} {unit}/s, {left}"
     )
+
+
+def dask_map(
+    fn: Callable[[Any], Any],
+    jobs: Sequence[Any],
+    workers: int,
+    scheduler: str | None = None,
+) -> Iterator[Any]:
+    """``fn`` over ``jobs`` on Dask (``dask.distributed``), each result in the jobs' order.
+    ``scheduler`` (``tcp://HOST:PORT``): an existing cluster; else an embedded
+    ``LocalCluster`` of ``workers`` single-threaded processes, closed at the end.  Dask
+    re-runs the job of a worker lost mid-way on another (up to its ``allowed-failures``), so
+    the results do not depend on where or how often a job ran: the jobs are deterministic."""
+    import logging
+
+    from distributed import Client, LocalCluster
+
+    cluster = None
+    if scheduler:
+        try:
+            client = Client(scheduler, timeout="20s")
+        except OSError as exc:
+            raise OSError(
+                f"--scheduler {scheduler}: cannot reach the Dask scheduler ({exc})"
+            ) from None
+    else:
+        cluster = LocalCluster(
+            n_workers=workers,
+            threads_per_worker=1,
+            processes=True,
+            dashboard_address=None,
+            silence_logs=logging.ERROR,
+        )
+        client = Client(cluster)
+    try:
+        futures = client.map(fn, list(jobs), pure=False)
+        for f in futures:
+            yield f.result()
+    finally:
+        client.close()
+        if cluster is not None:
+            cluster.close()
+
+
+def batch_map(
+    fn: Callable[[Any], Any],
+    jobs: Sequence[Any],
+    workers: int,
+    scheduler: str | None = None,
+    local: Callable[[Any], Any] | None = None,
+) -> Iterator[Any]:
+    """Where a campaign's batches run: on a Dask cluster (``scheduler``) or an embedded one
+    (``workers`` > 1 and more than one batch), else in this process (``local``, default
+    ``fn``)."""
+    if scheduler or (workers > 1 and len(jobs) > 1):
+        return dask_map(fn, jobs, workers, scheduler)
+    return map(local or fn, jobs)

@@ -15,7 +15,7 @@ from harness.closedloop.loop import run
 from harness.closedloop.report import lane_report
 from harness.closedloop.scenario import Scenario, dumps
 
-from .pool import ordered_map, progress_line
+from .pool import batch_map, progress_line
 from .results import Recorder
 
 GRID_STEPS = 8  # line voltages across the design's range by default
@@ -147,6 +147,7 @@ def sweep(
     workers: int = 1,
     log: Callable[[str], None] = print,
     recorder: Recorder | None = None,
+    scheduler: str | None = None,
 ) -> tuple[list[dict], float]:
     """Every point's record, in the grid's order, and the wall time (s).  ``recorder``: each
     batch's points are committed to the results database as it finishes (verdict: a steady
@@ -162,12 +163,13 @@ def sweep(
         + (f"; {len(by_idx)} already in the results database" if by_idx else "")
     )
     jobs = [[points[i] for i in ch] for ch in chunks]
-    if workers > 1 and len(chunks) > 1:
-        results = ordered_map(
-            _worker, [(prj.config, job, load_kind, duration_s) for job in jobs], workers
-        )
-    else:
-        results = (run_points(prj, job, load_kind, duration_s) for job in jobs)
+    results = batch_map(
+        _worker,
+        [(prj.config, job, load_kind, duration_s) for job in jobs],
+        workers,
+        scheduler,
+        local=lambda j: run_points(prj, j[1], load_kind, duration_s),
+    )
     t_last = time.perf_counter()
     for k, recs in enumerate(results):
         by_idx.update(zip(chunks[k], recs, strict=True))

@@ -7,6 +7,7 @@ from __future__ import annotations
 import argparse
 import math
 import os
+import re
 from collections.abc import Callable
 from pathlib import Path
 
@@ -81,6 +82,36 @@ def workers(text: str) -> int:
     """A worker count from 1 to the cores this machine has."""
     cores = os.cpu_count() or 1
     return int(number(int, 1, cores)(text))
+
+
+def scheduler_address(text: str) -> str:
+    """A Dask scheduler's address: tcp://HOST:PORT (or tls://), the port 1..65535."""
+    m = re.fullmatch(r"(tcp|tls)://([^:/\s]+):(\d{1,5})", text)
+    if not m or not 1 <= int(m.group(3)) <= 65535:
+        raise argparse.ArgumentTypeError(
+            f"{text!r} is not a scheduler address: expected tcp://HOST:PORT"
+        )
+    return text
+
+
+def add_cluster_options(q: argparse.ArgumentParser) -> None:
+    """``--cluster local`` (an embedded Dask cluster of ``--workers`` processes) or
+    ``--scheduler tcp://HOST:PORT`` (an existing one) for the commands that run batches."""
+    g = q.add_mutually_exclusive_group()
+    g.add_argument(
+        "--cluster",
+        choices=["local"],
+        default="local",
+        help="local (default): with --workers above 1, batches run on an embedded Dask "
+        "LocalCluster of that many processes (one batch each at a time)",
+    )
+    g.add_argument(
+        "--scheduler",
+        type=scheduler_address,
+        metavar="ADDR",
+        help="the address of an existing Dask scheduler (tcp://HOST:PORT): batches run on its "
+        "workers, which need pfcrig installed; cases are drawn and shrunk here",
+    )
 
 
 class UsageError(Exception):

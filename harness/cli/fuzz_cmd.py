@@ -66,6 +66,7 @@ def register(sub: argparse._SubParsersAction) -> None:
     q.add_argument("--json", metavar="OUT", help="write the campaign report as JSON")
     q.add_argument("--html", metavar="FILE", help="write a self-contained HTML report")
     add_db_options(q)
+    checks.add_cluster_options(q)
     q.set_defaults(func=fuzz_cmd)
 
 
@@ -94,6 +95,7 @@ def fuzz_cmd(args: argparse.Namespace) -> int:
         log=lambda m: print(m, file=sys.stderr),
         sensor_faults=args.sensor_faults,
         recorder=rec,
+        scheduler=args.scheduler,
     )
     counts = res.counts()
     rows = [(inv, len(res.verdicts) - counts[inv], counts[inv]) for inv in res.names]

@@ -50,6 +50,7 @@ def register(sub: argparse._SubParsersAction) -> None:
         "its failing scenario files",
     )
     q.add_argument("--json", metavar="OUT", help="write every design's record as JSON")
+    checks.add_cluster_options(q)
     q.set_defaults(func=survey_cmd)
 
 
@@ -82,6 +83,7 @@ def survey_cmd(args: argparse.Namespace) -> int:
         workers=args.workers,
         out_dir=args.out,
         log=lambda m: print(m, file=sys.stderr),
+        scheduler=args.scheduler,
     )
     head = ["#", "W", "line", "Hz", "vout V", "fsw kHz", "hold-up ms", "format", "verdict"]
     print(format_table(head, [_row(r) for r in recs]))

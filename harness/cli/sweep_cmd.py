@@ -72,6 +72,7 @@ def register(sub: argparse._SubParsersAction) -> None:
     q.add_argument("--plot", metavar="DIR", help="write PNG plots (figures against load, maps)")
     q.add_argument("--html", metavar="FILE", help="write a self-contained HTML report")
     add_db_options(q)
+    checks.add_cluster_options(q)
     q.set_defaults(func=sweep_cmd)
 
 
@@ -134,6 +135,7 @@ def sweep_cmd(args: argparse.Namespace) -> int:
         workers=args.workers,
         log=lambda m: print(m, file=sys.stderr),
         recorder=rec,
+        scheduler=args.scheduler,
     )
     head = ["V rms", "load %", "Hz", "PF", "THD(i) %", "eff %", "Class A h/limit", "ZC % rated"]
     print(format_table(head, [_row(r) for r in recs]))
