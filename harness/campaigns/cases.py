@@ -289,24 +289,16 @@ def no_local_constants() -> Iterator[None]:
         cache.cache.clear()
 
 
-def draw_cases(
-    n: int,
-    seed: int,
-    max_event_cycles: float = 12.0,
-    vrms_range: tuple[float, float] = (85.0, 265.0),
-    freq_range: tuple[float, float] = (45.0, 66.0),
-    sensor_full_counts: int = 0,
-) -> list[Case]:
-    """``n`` distinct cases drawn by hypothesis, reproducibly from ``seed`` (eight cases per
-    hypothesis example, so each example stays within hypothesis's size budget)."""
+def draw_distinct(strat: st.SearchStrategy[Any], n: int, seed: int, group: int = 8) -> list:
+    """``n`` distinct draws of ``strat``, reproducibly from ``seed`` (``group`` draws per
+    hypothesis example, so each example stays within hypothesis's size budget, and
+    hypothesis's mutation of one example into the next does not give runs of near-copies)."""
     from hypothesis import seed as hseed
 
-    out: list[Case] = []
-    seen: set[Case] = set()
-    strat = cases(max_event_cycles, vrms_range, freq_range, sensor_full_counts)
-    group = 8
+    out: list = []
+    seen: set = set()
 
-    # hypothesis opens with its simplest example (the same case drawn over and over, which
+    # hypothesis opens with its simplest example (the same value drawn over and over, which
     # the de-duplication drops): ask for a few more examples than the count alone needs
     @settings(
         max_examples=n // group + 10,
@@ -329,5 +321,18 @@ def draw_cases(
             hseed(seed * 1000 + rounds)(collect)()
             rounds += 1
     if len(out) < n:
-        raise RuntimeError(f"hypothesis produced {len(out)} of {n} cases")
+        raise RuntimeError(f"hypothesis produced {len(out)} of {n} distinct draws")
     return out[:n]
+
+
+def draw_cases(
+    n: int,
+    seed: int,
+    max_event_cycles: float = 12.0,
+    vrms_range: tuple[float, float] = (85.0, 265.0),
+    freq_range: tuple[float, float] = (45.0, 66.0),
+    sensor_full_counts: int = 0,
+) -> list[Case]:
+    """``n`` distinct cases drawn by hypothesis, reproducibly from ``seed``."""
+    strat = cases(max_event_cycles, vrms_range, freq_range, sensor_full_counts)
+    return draw_distinct(strat, n, seed, group=8)

@@ -10,7 +10,6 @@ from collections.abc import Callable
 from dataclasses import asdict, dataclass
 from pathlib import Path
 
-from hypothesis import HealthCheck, Phase, given, settings
 from hypothesis import strategies as st
 
 from codegen.build import BuildError
@@ -19,7 +18,7 @@ from design.config import ConfigError, from_dict
 from design.project import from_config
 
 from . import fuzz
-from .cases import no_local_constants
+from .cases import draw_distinct
 from .pool import batch_map, progress_line
 
 # line classes: (vin_rms_min, vin_rms_max, vin_rms_nominal) in V rms
@@ -106,34 +105,9 @@ def designs() -> st.SearchStrategy[Design]:
 
 
 def draw_designs(n: int, seed: int) -> list[Design]:
-    """``n`` distinct designs, reproducibly from ``seed``."""
-    from hypothesis import seed as hseed
-
-    out: list[Design] = []
-    strat = designs()
-    group = 4  # designs per hypothesis example: hypothesis mutates one example into the next,
-    # and one design per example gave runs of near-copies (five of 40 at 6881 W, 199.8 kHz)
-
-    @settings(
-        max_examples=n // group + 10,
-        database=None,
-        phases=[Phase.generate],
-        deadline=None,
-        suppress_health_check=list(HealthCheck),
-    )
-    @given(st.data())
-    def collect(data: st.DataObject) -> None:
-        for _ in range(group):
-            d = data.draw(strat)
-            if d not in out:
-                out.append(d)
-
-    rounds = 0
-    with no_local_constants():
-        while len(out) < n and rounds < 20:
-            hseed(seed * 1000 + rounds)(collect)()
-            rounds += 1
-    return out[:n]
+    """``n`` distinct designs, reproducibly from ``seed`` (four per hypothesis example: one
+    per example gave runs of near-copies, five of 40 at 6881 W and 199.8 kHz)."""
+    return draw_distinct(designs(), n, seed, group=4)
 
 
 def survey_one(args: tuple) -> dict:

@@ -94,6 +94,26 @@ def scheduler_address(text: str) -> str:
     return text
 
 
+def add_seed(q: argparse.ArgumentParser) -> None:
+    q.add_argument(
+        "--seed",
+        type=number(int, 0, 2**32 - 1),
+        default=0,
+        metavar="S",
+        help="hypothesis seed: a seed draws the same cases on every run (default 0)",
+    )
+
+
+def add_workers(q: argparse.ArgumentParser, each: str) -> None:
+    q.add_argument(
+        "--workers",
+        type=workers,
+        default=min(2, os.cpu_count() or 1),
+        metavar="K",
+        help=f"processes, at most this machine's cores, {each} (default 2)",
+    )
+
+
 def add_cluster_options(q: argparse.ArgumentParser) -> None:
     """``--cluster local`` (an embedded Dask cluster of ``--workers`` processes) or
     ``--scheduler tcp://HOST:PORT`` (an existing one) for the commands that run batches."""

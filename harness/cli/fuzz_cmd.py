@@ -3,7 +3,6 @@
 from __future__ import annotations
 
 import argparse
-import os
 import sys
 from dataclasses import asdict
 from pathlib import Path
@@ -28,14 +27,8 @@ def register(sub: argparse._SubParsersAction) -> None:
         metavar="N",
         help="cases to draw (default 200)",
     )
-    q.add_argument("--seed", type=checks.number(int, 0, 2**32 - 1), default=0, metavar="S")
-    q.add_argument(
-        "--workers",
-        type=checks.workers,
-        default=min(2, os.cpu_count() or 1),
-        metavar="K",
-        help="processes, at most this machine's cores (default 2)",
-    )
+    checks.add_seed(q)
+    checks.add_workers(q, "one batch at a time each")
     q.add_argument(
         "--batch",
         type=checks.number(int, 1, 4096),

@@ -4,7 +4,6 @@ build and a short fault campaign."""
 from __future__ import annotations
 
 import argparse
-import os
 import sys
 
 from harness.campaigns import designs
@@ -34,14 +33,8 @@ def register(sub: argparse._SubParsersAction) -> None:
         metavar="K",
         help="fault cases per design, every invariant checked (default 16)",
     )
-    q.add_argument("--seed", type=checks.number(int, 0, 2**32 - 1), default=0, metavar="S")
-    q.add_argument(
-        "--workers",
-        type=checks.workers,
-        default=min(2, os.cpu_count() or 1),
-        metavar="K",
-        help="processes, one design at a time each (default 2)",
-    )
+    checks.add_seed(q)
+    checks.add_workers(q, "one design at a time each")
     q.add_argument(
         "--out",
         default="survey_failures",

@@ -3,7 +3,6 @@
 from __future__ import annotations
 
 import argparse
-import os
 import sys
 
 from design.project import load_project
@@ -61,13 +60,7 @@ def register(sub: argparse._SubParsersAction) -> None:
         metavar="B",
         help="points per lockstep batch (default 8)",
     )
-    q.add_argument(
-        "--workers",
-        type=checks.workers,
-        default=min(2, os.cpu_count() or 1),
-        metavar="K",
-        help="processes, at most this machine's cores (default 2)",
-    )
+    checks.add_workers(q, "one batch at a time each")
     q.add_argument("--json", metavar="OUT", help="write the points as JSON")
     q.add_argument("--plot", metavar="DIR", help="write PNG plots (figures against load, maps)")
     q.add_argument("--html", metavar="FILE", help="write a self-contained HTML report")
