@@ -104,13 +104,14 @@ def add_seed(q: argparse.ArgumentParser) -> None:
     )
 
 
-def add_workers(q: argparse.ArgumentParser, each: str) -> None:
+def add_workers(q: argparse.ArgumentParser, each: str, default: int = 2) -> None:
     q.add_argument(
         "--workers",
         type=workers,
-        default=min(2, os.cpu_count() or 1),
+        default=min(default, os.cpu_count() or 1),
         metavar="K",
-        help=f"processes, at most this machine's cores, {each} (default 2)",
+        help=f"processes, at most this machine's cores, {each} (default {default}; above 1 "
+        "an embedded Dask cluster, about 4 s to start here)",
     )
 
 

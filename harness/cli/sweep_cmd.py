@@ -60,7 +60,7 @@ def register(sub: argparse._SubParsersAction) -> None:
         metavar="B",
         help="points per lockstep batch (default 8)",
     )
-    checks.add_workers(q, "one batch at a time each")
+    checks.add_workers(q, "one batch at a time each", default=1)
     q.add_argument("--json", metavar="OUT", help="write the points as JSON")
     q.add_argument("--plot", metavar="DIR", help="write PNG plots (figures against load, maps)")
     q.add_argument("--html", metavar="FILE", help="write a self-contained HTML report")
