@@ -19,9 +19,14 @@ MANIFEST = ".pfcrig-manifest"
 def atomic_path(path: str | Path) -> Iterator[Path]:
     """A temporary path beside ``path`` to write to; renamed onto ``path`` on success,
     removed on any failure (KeyboardInterrupt included)."""
-    path = Path(path)
+    path = Path(os.path.realpath(path))  # a symlink's target is written, the link kept
+    if path.exists() and not path.is_file():
+        raise IsADirectoryError(f"{path}: exists and is not a regular file; not replaced")
     fd, tmp = tempfile.mkstemp(prefix=f".{path.name}.", suffix=".tmp", dir=path.parent)
     os.close(fd)
+    umask = os.umask(0)
+    os.umask(umask)
+    os.chmod(tmp, 0o666 & ~umask)  # as an ordinary new file gets, not mkstemp's 0600
     try:
         yield Path(tmp)
         os.replace(tmp, path)

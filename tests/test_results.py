@@ -168,7 +168,7 @@ def test_results_show_and_compare(tmp_path, demo_project):
     assert db.compare(con, 1, 2, 0.10)["figures_moved"] == []  # 9 % is inside 10 %
 
     r = pfcrig("results", "--db", str(path), "show", "2")
-    assert r.returncode == 0 and "case 1: ov_oc: bus 460 V" in r.stdout
+    assert r.returncode == 0 and "case 1 (unnamed): ov_oc: bus 460 V" in r.stdout
     r = pfcrig("results", "--db", str(path), "compare", "1", "2")
     assert r.returncode == 0 and "1 changed verdict" in r.stdout
     r = pfcrig("results", "--db", str(path), "show", "9")
@@ -179,3 +179,53 @@ def test_results_show_and_compare(tmp_path, demo_project):
     bad.write_text("not a database")
     r = pfcrig("results", "--db", str(bad), "list")
     assert r.returncode == 2 and "not a usable results database" in r.stderr
+
+
+def test_outputs_and_databases_that_are_not_ours_are_refused(tmp_path):
+    """A device or pipe at an output path is refused, not replaced; a symlink's target is
+    written and the link kept; a SQLite file whose tables are not ours is left untouched;
+    ':memory:' is refused (nothing would be kept)."""
+    import os
+    import sqlite3 as sq
+
+    fifo = tmp_path / "pipe"
+    os.mkfifo(fifo)
+    r = pfcrig("results", "--db", str(tmp_path / "x.sqlite"), "list", "--json", str(fifo))
+    assert r.returncode == 2
+    r = pfcrig("sweep", str(APPLIANCE), "--vrms", "115", "--load", "50", "--json", str(fifo))
+    assert r.returncode == 2 and "not a regular file" in r.stderr and fifo.is_fifo()
+    other = tmp_path / "other.sqlite"
+    con = sq.connect(other)
+    con.execute("CREATE TABLE campaigns (id INTEGER PRIMARY KEY, name TEXT)")
+    con.commit()
+    con.close()
+    r = pfcrig("results", "--db", str(other), "list")
+    assert r.returncode == 2 and "not a pfcrig results table" in r.stderr
+    r = pfcrig("sweep", str(APPLIANCE), "--vrms", "115", "--load", "50", "--db", str(other))
+    assert r.returncode == 2 and "not touched" in r.stderr
+    tables = sq.connect(other).execute("SELECT name FROM sqlite_master").fetchall()
+    assert tables == [("campaigns",)]
+    r = pfcrig("sweep", str(APPLIANCE), "--vrms", "115", "--load", "50", "--db", ":memory:")
+    assert r.returncode == 2 and "a file name is needed" in r.stderr
+    r = pfcrig("sweep", str(APPLIANCE), "--load", "50,50")
+    assert r.returncode == 2 and "--load lists 50 twice" in r.stderr
+
+
+def test_an_output_through_a_symlink_keeps_the_link(tmp_path):
+    from codegen.files import atomic_path
+
+    target, link = tmp_path / "t.json", tmp_path / "l.json"
+    target.write_text("old")
+    link.symlink_to(target)
+    with atomic_path(link) as tmp:
+        tmp.write_text("new")
+    assert link.is_symlink() and target.read_text() == "new"
+    assert (target.stat().st_mode & 0o777) == 0o666 & ~_umask()
+
+
+def _umask() -> int:
+    import os
+
+    m = os.umask(0)
+    os.umask(m)
+    return m

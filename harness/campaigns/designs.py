@@ -19,7 +19,7 @@ from design.project import from_config
 
 from . import fuzz
 from .cases import draw_distinct
-from .pool import batch_map, progress_line
+from .pool import batch_map, progress_line, where
 
 # line classes: (vin_rms_min, vin_rms_max, vin_rms_nominal) in V rms
 LINE_CLASSES = {
@@ -165,7 +165,7 @@ def survey(
     """``n`` drawn designs, each with ``cases`` fault cases: the records and the wall time."""
     t0 = time.perf_counter()
     ds = draw_designs(n, seed)
-    log(f"survey: {len(ds)} designs x {cases} cases, {workers} worker(s), seed {seed}")
+    log(f"survey: {len(ds)} designs x {cases} cases, on {where(workers, scheduler)}, seed {seed}")
     jobs = [(i, d, cases, seed, str(out_dir) if out_dir else None) for i, d in enumerate(ds)]
     results = batch_map(survey_one, jobs, workers, scheduler)
     out: list[dict] = []

@@ -18,7 +18,7 @@ from harness.closedloop.scenario import Scenario, dumps
 
 from .cases import Case, draw_cases, line_ranges
 from .invariants import INVARIANTS, check_lane
-from .pool import batch_map, progress_line
+from .pool import batch_map, progress_line, where
 from .results import Recorder
 from .safety import SAFETY_INVARIANTS
 
@@ -164,8 +164,8 @@ def campaign(
     todo = [i for i in range(len(cases)) if i not in by_idx]
     chunks = [todo[i : i + batch] for i in range(0, len(todo), batch)]
     log(
-        f"fuzz: {n} cases in {len(chunks)} batch(es) of <= {batch}, {workers} worker(s), seed "
-        f"{seed}; line "
+        f"fuzz: {n} cases in {len(chunks)} batch(es) of <= {batch}, on "
+        f"{where(workers, scheduler)}, seed {seed}; line "
         f"{vrms_range[0]:.1f}..{vrms_range[1]:.1f} Vrms, {freq_range[0]:g}..{freq_range[1]:g} Hz"
         + (f"; {len(by_idx)} already in the results database" if by_idx else "")
     )
@@ -178,17 +178,22 @@ def campaign(
         local=lambda j: run_cases(prj, j[1], built=built),
     )
     t_last = time.perf_counter()
-    for k, vs in enumerate(results):
-        by_idx.update(zip(chunks[k], vs, strict=True))
+    try:
+        for k, vs in enumerate(results):
+            by_idx.update(zip(chunks[k], vs, strict=True))
+            if recorder is not None:
+                rows = [
+                    (i, dumps(cases[i].to_scenario(prj, f"case{i}")), v.failed, v.figures)
+                    for i, v in zip(chunks[k], vs, strict=True)
+                ]
+                recorder.add(rows, time.perf_counter() - t_last)
+            t_last = time.perf_counter()
+            bad = sum(not v.ok for v in by_idx.values())
+            log(progress_line(k, len(chunks), len(by_idx), n, "cases", f"{bad} failing so far", t0))
+    except BaseException:
         if recorder is not None:
-            rows = [
-                (i, dumps(cases[i].to_scenario(prj, f"case{i}")), v.failed, v.figures)
-                for i, v in zip(chunks[k], vs, strict=True)
-            ]
-            recorder.add(rows, time.perf_counter() - t_last)
-        t_last = time.perf_counter()
-        bad = sum(not v.ok for v in by_idx.values())
-        log(progress_line(k, len(chunks), len(by_idx), n, "cases", f"{bad} failing so far", t0))
+            recorder.discard_if_empty()
+        raise
     if recorder is not None:
         recorder.finish()
     verdicts = [by_idx[i] for i in range(len(cases))]

@@ -41,9 +41,10 @@ def dask_map(
     if scheduler:
         try:
             client = Client(scheduler, timeout="20s")
-        except OSError as exc:
+        except Exception as exc:  # refused, timed out, or not a Dask scheduler at all
             raise OSError(
-                f"--scheduler {scheduler}: cannot reach the Dask scheduler ({exc})"
+                f"--scheduler {scheduler}: no Dask scheduler answered there "
+                f"({type(exc).__name__}: {str(exc)[:200]})"
             ) from None
     else:
         cluster = LocalCluster(
@@ -62,6 +63,13 @@ def dask_map(
         client.close()
         if cluster is not None:
             cluster.close()
+
+
+def where(workers: int, scheduler: str | None) -> str:
+    """Where the batches run, for a campaign's first log line."""
+    if scheduler:
+        return f"the Dask scheduler at {scheduler}"
+    return f"{workers} Dask worker(s)" if workers > 1 else "this process"
 
 
 def batch_map(

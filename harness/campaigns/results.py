@@ -74,13 +74,49 @@ def _utc() -> str:
     return time.strftime("%Y-%m-%dT%H:%M:%SZ", time.gmtime())
 
 
-def connect(path: str | Path) -> sqlite3.Connection:
-    """Open (creating it and its tables if need be) the database at ``path``, in WAL mode."""
+COLUMNS = {
+    "campaigns": {
+        "id",
+        "kind",
+        "key",
+        "config_path",
+        "config_digest",
+        "firmware_digest",
+        "pfcrig_version",
+        "params",
+        "planned",
+        "host",
+        "started_utc",
+        "finished_utc",
+    },
+    "cases": {"campaign_id", "idx", "scenario", "ok", "failed", "figures", "wall_s", "host"},
+}
+
+
+def _tables(con: sqlite3.Connection) -> dict[str, set[str]]:
+    names = [r[0] for r in con.execute("SELECT name FROM sqlite_master WHERE type = 'table'")]
+    return {n: {r[1] for r in con.execute(f"PRAGMA table_info({n})")} for n in names}
+
+
+def connect(path: str | Path, create: bool = True) -> sqlite3.Connection:
+    """Open the results database at ``path`` in WAL mode, creating its tables in a new or
+    empty file when ``create``; a database with other tables of these names, or (not
+    ``create``) one without them, is refused and left as it was."""
     try:
         con = sqlite3.connect(str(path), timeout=30.0)
-        con.execute("PRAGMA journal_mode=WAL")
-        con.execute("PRAGMA synchronous=NORMAL")
-        con.executescript(SCHEMA)
+        have = _tables(con)
+        for table, cols in COLUMNS.items():
+            if table in have and not cols <= have[table]:
+                raise ResultsError(
+                    f"{path}: its table {table} is not a pfcrig results table (no column "
+                    f"{', '.join(sorted(cols - have[table]))}); not touched"
+                )
+        if not create and not all(t in have for t in COLUMNS):
+            raise ResultsError(f"{path}: not a pfcrig results database (no campaigns in it)")
+        if create:
+            con.execute("PRAGMA journal_mode=WAL")
+            con.execute("PRAGMA synchronous=NORMAL")
+            con.executescript(SCHEMA)
     except sqlite3.DatabaseError as exc:
         raise ResultsError(f"{path}: not a usable results database ({exc})") from None
     con.row_factory = sqlite3.Row
@@ -124,6 +160,18 @@ class Recorder:
                     for i, toml, failed, fig in rows
                 ],
             )
+
+    def discard_if_empty(self) -> None:
+        """A new campaign that ended before its first batch (a scheduler that never answered,
+        Ctrl-C at once) leaves no row for a later ``--resume`` to pick up."""
+        if self.resumed:
+            return
+        with self.con:
+            n = self.con.execute(
+                "SELECT COUNT(*) FROM cases WHERE campaign_id = ?", (self.campaign_id,)
+            ).fetchone()[0]
+            if n == 0:
+                self.con.execute("DELETE FROM campaigns WHERE id = ?", (self.campaign_id,))
 
     def finish(self) -> None:
         with self.con:

@@ -15,7 +15,7 @@ from harness.closedloop.loop import run
 from harness.closedloop.report import lane_report
 from harness.closedloop.scenario import Scenario, dumps
 
-from .pool import batch_map, progress_line
+from .pool import batch_map, progress_line, where
 from .results import Recorder
 
 GRID_STEPS = 8  # line voltages across the design's range by default
@@ -158,8 +158,8 @@ def sweep(
     todo = [i for i in range(len(points)) if i not in by_idx]
     chunks = [todo[i : i + batch] for i in range(0, len(todo), batch)]
     log(
-        f"sweep: {len(points)} points in {len(chunks)} batch(es) of <= {batch}, {workers} "
-        f"worker(s), {duration_s:g} s each, {load_kind} load"
+        f"sweep: {len(points)} points in {len(chunks)} batch(es) of <= {batch}, "
+        f"on {where(workers, scheduler)}, {duration_s:g} s each, {load_kind} load"
         + (f"; {len(by_idx)} already in the results database" if by_idx else "")
     )
     jobs = [[points[i] for i in ch] for ch in chunks]
@@ -171,22 +171,27 @@ def sweep(
         local=lambda j: run_points(prj, j[1], load_kind, duration_s),
     )
     t_last = time.perf_counter()
-    for k, recs in enumerate(results):
-        by_idx.update(zip(chunks[k], recs, strict=True))
+    try:
+        for k, recs in enumerate(results):
+            by_idx.update(zip(chunks[k], recs, strict=True))
+            if recorder is not None:
+                rows = [
+                    (
+                        i,
+                        dumps(scenario_of(prj, points[i], load_kind, duration_s)),
+                        {} if r["steady"] else {"steady": r["steady_reason"]},
+                        r,
+                    )
+                    for i, r in zip(chunks[k], recs, strict=True)
+                ]
+                recorder.add(rows, time.perf_counter() - t_last)
+            t_last = time.perf_counter()
+            tally = f"{sum(not r['steady'] for r in by_idx.values())} not steady"
+            log(progress_line(k, len(chunks), len(by_idx), len(points), "points", tally, t0))
+    except BaseException:
         if recorder is not None:
-            rows = [
-                (
-                    i,
-                    dumps(scenario_of(prj, points[i], load_kind, duration_s)),
-                    {} if r["steady"] else {"steady": r["steady_reason"]},
-                    r,
-                )
-                for i, r in zip(chunks[k], recs, strict=True)
-            ]
-            recorder.add(rows, time.perf_counter() - t_last)
-        t_last = time.perf_counter()
-        tally = f"{sum(not r['steady'] for r in by_idx.values())} not steady"
-        log(progress_line(k, len(chunks), len(by_idx), len(points), "points", tally, t0))
+            recorder.discard_if_empty()
+        raise
     if recorder is not None:
         recorder.finish()
     return [by_idx[i] for i in range(len(points))], time.perf_counter() - t0

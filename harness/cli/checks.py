@@ -28,6 +28,11 @@ MAX_RUN_S = 60.0  # longest simulated run a command takes (s)
 MEMORY_LIMIT_B = 8 << 30  # records of one run in memory at most (bytes)
 
 
+def _num(x: float, kind: type) -> str:
+    """A limit as the user types it: whole numbers in full, reals in short form."""
+    return str(int(x)) if kind is int else f"{x:g}"
+
+
 def number(
     kind: type, lo: float | None = None, hi: float | None = None, lo_open: bool = False
 ) -> Callable[[str], float]:
@@ -47,8 +52,8 @@ def number(
             rng = " and ".join(
                 p
                 for p in (
-                    (f"{sign} {lo:g}" if lo is not None else ""),
-                    (f"<= {hi:g}" if hi is not None else ""),
+                    (f"{sign} {_num(lo, kind)}" if lo is not None else ""),
+                    (f"<= {_num(hi, kind)}" if hi is not None else ""),
                 )
                 if p
             )
@@ -85,8 +90,9 @@ def workers(text: str) -> int:
 
 
 def scheduler_address(text: str) -> str:
-    """A Dask scheduler's address: tcp://HOST:PORT (or tls://), the port 1..65535."""
-    m = re.fullmatch(r"(tcp|tls)://([^:/\s]+):(\d{1,5})", text)
+    """A Dask scheduler's address: tcp://HOST:PORT, the port 1..65535 (TLS would need
+    certificates pfcrig has no options for)."""
+    m = re.fullmatch(r"(tcp)://([^:/\s]+):(\d{1,5})", text)
     if not m or not 1 <= int(m.group(3)) <= 65535:
         raise argparse.ArgumentTypeError(
             f"{text!r} is not a scheduler address: expected tcp://HOST:PORT"
@@ -149,6 +155,10 @@ def output_file(path: str | None, what: str) -> None:
         raise UsageError(f"{what}: an empty path")
     if p.is_dir():
         raise UsageError(f"{what} {path}: is a folder, a file is needed")
+    if p.exists() and not Path(os.path.realpath(p)).is_file():
+        raise UsageError(f"{what} {path}: exists and is not a regular file (a device, a pipe?)")
+    if path.startswith(":") or path.startswith("file:"):
+        raise UsageError(f"{what} {path}: a file name is needed (no ':memory:' or URI)")
     parent = p.parent if str(p.parent) else Path(".")
     if not parent.is_dir():
         raise UsageError(f"{what} {path}: the folder {parent} does not exist")

@@ -4,6 +4,7 @@ from __future__ import annotations
 
 import argparse
 import json
+import re
 
 from harness.campaigns import results as db
 
@@ -56,7 +57,7 @@ def register(sub: argparse._SubParsersAction) -> None:
     verbs = q.add_subparsers(dest="verb", required=True, metavar="VERB")
     verbs.add_parser("list", help="every campaign: kind, config, firmware, cases done, failing")
     s = verbs.add_parser("show", help="one campaign: parameters, failing cases")
-    s.add_argument("id", type=checks.number(int, 1))
+    s.add_argument("id", type=checks.number(int, 1, 2**63 - 1))
     s.add_argument("--json", metavar="OUT", help="write the campaign and its cases as JSON")
     s.add_argument("--html", metavar="FILE", help="write a self-contained HTML report")
     c = verbs.add_parser(
@@ -64,8 +65,8 @@ def register(sub: argparse._SubParsersAction) -> None:
         help="two campaigns case by case (matched by scenario): verdicts that changed, "
         "figures that moved",
     )
-    c.add_argument("a", type=checks.number(int, 1))
-    c.add_argument("b", type=checks.number(int, 1))
+    c.add_argument("a", type=checks.number(int, 1, 2**63 - 1))
+    c.add_argument("b", type=checks.number(int, 1, 2**63 - 1))
     c.add_argument(
         "--tol",
         type=checks.number(float, 0.0, 10.0),
@@ -109,7 +110,8 @@ def _show(con, args: argparse.Namespace) -> None:
     print(f"  {len(c['cases'])}/{c['planned']} cases, {len(failing)} failing")
     for k in failing:
         why = "; ".join(f"{n}: {r}" for n, r in k["failed"].items())
-        print(f"  case {k['idx']}: {why}")
+        name = re.search(r'^name = "([^"]*)"', k["scenario"], re.M)
+        print(f"  case {k['idx']} ({name.group(1) if name else 'unnamed'}): {why}")
     if args.json:
         write_json(args.json, c)
     if args.html:
@@ -122,6 +124,12 @@ def _compare(con, args: argparse.Namespace) -> None:
         f"campaigns {args.a} and {args.b}: {out['matched']} cases matched by scenario, "
         f"{out['only_a']} only in {args.a}, {out['only_b']} only in {args.b}"
     )
+    if out["a"]["kind"] != out["b"]["kind"]:
+        print(
+            f"  warning: a {out['a']['kind']} compared with a {out['b']['kind']}: no case matches"
+        )
+    elif out["matched"] == 0:
+        print("  warning: no case matches: different configs, seeds or grids, or an empty one")
     print(f"  {len(out['verdict_changed'])} changed verdict:")
     for d in out["verdict_changed"]:
         print(
@@ -140,12 +148,14 @@ def _compare(con, args: argparse.Namespace) -> None:
 def results_cmd(args: argparse.Namespace) -> int:
     from pathlib import Path
 
+    if Path(args.db).is_dir():
+        raise checks.UsageError(f"--db {args.db}: is a folder, not a results database")
     if not Path(args.db).is_file():
         raise checks.UsageError(f"--db {args.db}: no such results database")
     for opt in ("json", "html"):
         checks.output_file(getattr(args, opt, None), f"--{opt}")
     try:
-        con = db.connect(args.db)
+        con = db.connect(args.db, create=False)
         if args.verb == "list":
             _list(con)
         elif args.verb == "show":

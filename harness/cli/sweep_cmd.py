@@ -32,10 +32,10 @@ def register(sub: argparse._SubParsersAction) -> None:
     )
     q.add_argument(
         "--load",
-        type=checks.numbers(float, 0.0, 100.0, lo_open=True),
+        type=checks.numbers(float, 1.0, 100.0),
         metavar="LIST",
-        help="loads in %% of rated output power, comma-separated, each > 0 and <= 100 "
-        "(default 10,20,50,75,100)",
+        help="loads in %% of rated output power, comma-separated, each 1..100 (below 1 %% a "
+        "stage bursts or idles: no steady figures to sign off) (default 10,20,50,75,100)",
     )
     q.add_argument(
         "--freq",
@@ -106,6 +106,10 @@ def sweep_cmd(args: argparse.Namespace) -> int:
     vrms = args.vrms or sweep.default_vrms(prj)
     loads = tuple(x / 100.0 for x in (args.load or sweep.DEFAULT_LOADS_PCT))
     freqs = args.freq or (prj.config.spec.line_freq,)
+    for name, vals in (("--vrms", vrms), ("--load", args.load or ()), ("--freq", freqs)):
+        twice = sorted({v for v in vals if list(vals).count(v) > 1})
+        if twice:
+            raise checks.UsageError(f"{name} lists {', '.join(f'{v:g}' for v in twice)} twice")
     errs = sweep.check_grid(prj, vrms, freqs)
     if errs:
         raise checks.UsageError("; ".join(errs))
@@ -137,7 +141,8 @@ def sweep_cmd(args: argparse.Namespace) -> int:
     print(f"{len(recs)} points, {len(bad)} without a steady window, {wall:.1f} s")
     for r in bad:
         print(
-            f"  not steady at {r['vrms_V']:g} V, {100 * r['load_frac']:g} %: {r['steady_reason']}"
+            f"  not steady at {r['vrms_V']:g} V, {100 * r['load_frac']:g} %, {r['freq_Hz']:g} Hz: "
+            f"{r['steady_reason']}"
         )
     if args.json:
         doc = {
@@ -156,4 +161,4 @@ def sweep_cmd(args: argparse.Namespace) -> int:
         print("wrote " + ", ".join(map(str, paths)))
     if args.html:
         html_pages.sweep_page(args.html, prj, recs, wall)
-    return 0
+    return 1 if bad else 0  # a map with points missing is not one to sign off
