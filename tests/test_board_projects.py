@@ -71,3 +71,14 @@ def test_board_project_builds_boots_and_equals_the_in_process_run(
     cmp = compare_outputs(ref, pil.result)
     assert cmp.equal, cmp
     assert pil.result.extras["final_states"][0] == ref.extras["final_states"][0]
+    if not shutil.which("cmake"):
+        pytest.skip("cmake not installed: the CMakeLists.txt build is not checked")
+    # the CMakeLists.txt builds the same image: it boots and equals the in-process run too
+    build = tmp_path / "cmake-build"
+    for cmd in (["cmake", "-S", str(out), "-B", str(build)], ["cmake", "--build", str(build)]):
+        r = subprocess.run(cmd, capture_output=True, text=True)
+        assert r.returncode == 0, r.stdout + r.stderr
+    elf2 = build / "pfc_pil.elf"
+    assert elf2.is_file() and (build / "CMakeFiles").is_dir()
+    pil2 = run_over(prj, s, qemu_transport(elf2, board), elf2)
+    assert compare_outputs(ref, pil2.result).equal
