@@ -3,6 +3,7 @@ order, and the progress line of a batched campaign."""
 
 from __future__ import annotations
 
+import threading
 import time
 from collections.abc import Callable, Iterator, Sequence
 from typing import Any
@@ -22,6 +23,31 @@ def progress_line(
     )
 
 
+CONNECT_S = 30.0  # longest wait for a scheduler's answer (s)
+
+
+def _connect(address: str, client_type: Any) -> Any:
+    """A client of the scheduler at ``address``, or OSError naming it: refused, timed out, or
+    not a Dask scheduler at all (a service that accepts the connection and never answers
+    would otherwise hold the handshake for ever)."""
+    box: dict[str, Any] = {}
+
+    def attempt() -> None:
+        try:
+            box["client"] = client_type(address, timeout=f"{CONNECT_S:g}s")
+        except Exception as exc:  # noqa: BLE001 - reported below with its type
+            box["error"] = exc
+
+    t = threading.Thread(target=attempt, daemon=True)
+    t.start()
+    t.join(CONNECT_S + 5.0)
+    if "client" in box:
+        return box["client"]
+    why = box.get("error")
+    detail = f"{type(why).__name__}: {str(why)[:200]}" if why else f"no answer in {CONNECT_S:g} s"
+    raise OSError(f"--scheduler {address}: no Dask scheduler answered there ({detail})")
+
+
 def dask_map(
     fn: Callable[[Any], Any],
     jobs: Sequence[Any],
@@ -39,13 +65,7 @@ def dask_map(
 
     cluster = None
     if scheduler:
-        try:
-            client = Client(scheduler, timeout="20s")
-        except Exception as exc:  # refused, timed out, or not a Dask scheduler at all
-            raise OSError(
-                f"--scheduler {scheduler}: no Dask scheduler answered there "
-                f"({type(exc).__name__}: {str(exc)[:200]})"
-            ) from None
+        client = _connect(scheduler, Client)
     else:
         cluster = LocalCluster(
             n_workers=workers,
