@@ -19,7 +19,7 @@ from harness.closedloop.scenario import Scenario, dumps
 from .cases import Case, draw_cases, line_ranges
 from .invariants import INVARIANTS, check_lane
 from .pool import batch_map, progress_line, where
-from .results import Recorder
+from .results import Recorder, collect
 from .safety import SAFETY_INVARIANTS
 
 
@@ -177,25 +177,18 @@ def campaign(
         scheduler,
         local=lambda j: run_cases(prj, j[1], built=built),
     )
-    t_last = time.perf_counter()
-    try:
-        for k, vs in enumerate(results):
-            by_idx.update(zip(chunks[k], vs, strict=True))
-            if recorder is not None:
-                rows = [
-                    (i, dumps(cases[i].to_scenario(prj, f"case{i}")), v.failed, v.figures)
-                    for i, v in zip(chunks[k], vs, strict=True)
-                ]
-                recorder.add(rows, time.perf_counter() - t_last)
-            t_last = time.perf_counter()
-            bad = sum(not v.ok for v in by_idx.values())
-            log(progress_line(k, len(chunks), len(by_idx), n, "cases", f"{bad} failing so far", t0))
-    except BaseException:
-        if recorder is not None:
-            recorder.discard_if_empty()
-        raise
-    if recorder is not None:
-        recorder.finish()
+
+    def rows(idx: list[int], vs: list[Verdict]) -> list:
+        return [
+            (i, dumps(cases[i].to_scenario(prj, f"case{i}")), v.failed, v.figures)
+            for i, v in zip(idx, vs, strict=True)
+        ]
+
+    def progress(k: int) -> None:
+        bad = sum(not v.ok for v in by_idx.values())
+        log(progress_line(k, len(chunks), len(by_idx), n, "cases", f"{bad} failing so far", t0))
+
+    collect(results, chunks, by_idx, recorder, rows, progress)
     verdicts = [by_idx[i] for i in range(len(cases))]
     saved, shrunk = [], []
     failing = [v for v in verdicts if not v.ok]

@@ -14,7 +14,7 @@ import math
 import socket
 import sqlite3
 import time
-from collections.abc import Iterable
+from collections.abc import Callable, Iterable
 from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
@@ -178,6 +178,34 @@ class Recorder:
             self.con.execute(
                 "UPDATE campaigns SET finished_utc = ? WHERE id = ?", (_utc(), self.campaign_id)
             )
+
+
+def collect(
+    results: Iterable[list],
+    chunks: list[list[int]],
+    by_idx: dict[int, Any],
+    recorder: Recorder | None,
+    rows_of: Callable[[list[int], list], list[tuple[int, str, dict, dict]]],
+    after_batch: Callable[[int], None],
+) -> None:
+    """Take each batch's results into ``by_idx`` (index in the campaign -> result) as the
+    batch finishes, commit its rows (``rows_of(indices, results)``) to ``recorder``, then call
+    ``after_batch(k)``; a new campaign that ends before its first batch leaves no row, one
+    that ends after its last is marked finished."""
+    t_last = time.perf_counter()
+    try:
+        for k, res in enumerate(results):
+            by_idx.update(zip(chunks[k], res, strict=True))
+            if recorder is not None:
+                recorder.add(rows_of(chunks[k], res), time.perf_counter() - t_last)
+            t_last = time.perf_counter()
+            after_batch(k)
+    except BaseException:
+        if recorder is not None:
+            recorder.discard_if_empty()
+        raise
+    if recorder is not None:
+        recorder.finish()
 
 
 def recorder(

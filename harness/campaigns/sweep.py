@@ -16,7 +16,7 @@ from harness.closedloop.report import lane_report
 from harness.closedloop.scenario import Scenario, dumps
 
 from .pool import batch_map, progress_line, where
-from .results import Recorder
+from .results import Recorder, collect
 
 GRID_STEPS = 8  # line voltages across the design's range by default
 DEFAULT_LOADS_PCT = (10.0, 20.0, 50.0, 75.0, 100.0)  # of rated output power
@@ -170,28 +170,21 @@ def sweep(
         scheduler,
         local=lambda j: run_points(prj, j[1], load_kind, duration_s),
     )
-    t_last = time.perf_counter()
-    try:
-        for k, recs in enumerate(results):
-            by_idx.update(zip(chunks[k], recs, strict=True))
-            if recorder is not None:
-                rows = [
-                    (
-                        i,
-                        dumps(scenario_of(prj, points[i], load_kind, duration_s)),
-                        {} if r["steady"] else {"steady": r["steady_reason"]},
-                        r,
-                    )
-                    for i, r in zip(chunks[k], recs, strict=True)
-                ]
-                recorder.add(rows, time.perf_counter() - t_last)
-            t_last = time.perf_counter()
-            tally = f"{sum(not r['steady'] for r in by_idx.values())} not steady"
-            log(progress_line(k, len(chunks), len(by_idx), len(points), "points", tally, t0))
-    except BaseException:
-        if recorder is not None:
-            recorder.discard_if_empty()
-        raise
-    if recorder is not None:
-        recorder.finish()
+
+    def rows(idx: list[int], recs: list[dict]) -> list:
+        return [
+            (
+                i,
+                dumps(scenario_of(prj, points[i], load_kind, duration_s)),
+                {} if r["steady"] else {"steady": r["steady_reason"]},
+                r,
+            )
+            for i, r in zip(idx, recs, strict=True)
+        ]
+
+    def progress(k: int) -> None:
+        tally = f"{sum(not r['steady'] for r in by_idx.values())} not steady"
+        log(progress_line(k, len(chunks), len(by_idx), len(points), "points", tally, t0))
+
+    collect(results, chunks, by_idx, recorder, rows, progress)
     return [by_idx[i] for i in range(len(points))], time.perf_counter() - t0
