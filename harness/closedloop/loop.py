@@ -255,7 +255,14 @@ def run(
         dc_V=[s.dc_V for s in scenarios],
         harmonics_per_lane=[s.harmonics for s in scenarios],
     )
-    load = Load(n, [s.load_kind for s in scenarios], [s.load_power_W for s in scenarios], spec.vout)
+    # the downstream converter stops at its minimum input, the level its hold-up was sized for
+    load = Load(
+        n,
+        [s.load_kind for s in scenarios],
+        [s.load_power_W for s in scenarios],
+        spec.vout,
+        uvlo_V=spec.vout_min_holdup,
+    )
     sens = Sensors(
         adc_scaling(prj),
         n,
