@@ -5,6 +5,7 @@ from __future__ import annotations
 
 import math
 
+from .derive import ramp_charge_W
 from .project import Project
 from .rules import (
     DIODE_MARGIN_OF_VOUT,
@@ -13,6 +14,8 @@ from .rules import (
     LINE_LOSS_RESET_S,
     PCMD_MAX_OF_RATED,
     PRECHARGE_OF_PEAK,
+    SOFT_START_CHARGE_OF_RATED,
+    SOFT_START_MIN_S,
     TRIP_DECAY_S,
     VBUS_GUARD_OF_SPAN,
     Add,
@@ -25,7 +28,14 @@ def vloop(add: Add, prj: Project) -> None:
     s, c, r, v = prj.config.spec, prj.config.control, prj.resolved, prj.tuning.voltage
     fsw, vb, pb = s.fsw, r.vbus_range_V, r.vbus_range_V * r.il_range_A
     shift = BUS_BLOCKS.bit_length() - 1
-    step = s.vout / (c.soft_start_time * fsw)
+    t_ss = r.soft_start_s
+    step = s.vout / (t_ss * fsw)
+    ss_rule = (
+        "[control] soft_start_time"
+        if c.soft_start_time is not None
+        else f"rule: charging power C vout^2/time <= {SOFT_START_CHARGE_OF_RATED:g} x "
+        f"[spec] power, time >= {SOFT_START_MIN_S:g} s"
+    )
     add(
         "BUS_BLOCKS",
         BUS_BLOCKS,
@@ -57,16 +67,17 @@ def vloop(add: Add, prj: Project) -> None:
         "f",
         "V/period",
         "soft-start reference slope",
-        "vout/([control] soft_start_time x fsw)",
+        f"vout/(soft start time x fsw), time = {t_ss:.4g} s from {ss_rule}; the capacitor "
+        f"then charges at {ramp_charge_W(r.capacitance_F, s.vout, t_ss):.0f} W at most",
         (vb, 31),
     )
     add(
         "RAMP_FF_W_PER_V",
-        r.capacitance_F * (s.vout / c.soft_start_time) / s.efficiency,
+        r.capacitance_F * (s.vout / t_ss) / s.efficiency,
         "f",
         "W/V",
         "ramp feedforward: capacitor charging power per volt of reference",
-        f"C x vout/soft_start_time / efficiency, C = {r.capacitance_F:.6g} F",
+        f"C x vout/soft start time / efficiency, C = {r.capacitance_F:.6g} F",
         (pb / vb, 15),
     )
     add(

@@ -22,6 +22,8 @@ from .rules import (
     OC_TRIP_OF_PEAK,
     OV_TRIP_OF_VOUT,
     RANGE_MARGIN,
+    SOFT_START_CHARGE_OF_RATED,
+    SOFT_START_MIN_S,
 )
 
 
@@ -32,6 +34,7 @@ class Resolved:
     inductance_H: float
     capacitance_F: float
     current_bandwidth_Hz: float
+    soft_start_s: float
     zc_hysteresis_V: float
     zc_blank_V: float
     ov_trip_V: float
@@ -84,10 +87,12 @@ def resolve(cfg: Config, inductance_H: float, capacitance_F: float, il_peak_A: f
     oc = _pick(pr.oc_trip, OC_TRIP_OF_PEAK * il_peak_A)
     ov = _pick(pr.ov_trip, OV_TRIP_OF_VOUT * s.vout)
     mid = float(2 ** (se.adc_bits - 1))
+    cap = _pick(cfg.plant.capacitance, capacitance_F)
     r = Resolved(
         inductance_H=_pick(cfg.plant.inductance, inductance_H),
-        capacitance_F=_pick(cfg.plant.capacitance, capacitance_F),
+        capacitance_F=cap,
         current_bandwidth_Hz=_pick(c.current_bandwidth, s.fsw / CURRENT_BW_DIVISOR),
+        soft_start_s=_pick(c.soft_start_time, soft_start_s(cap, s.vout, s.power)),
         zc_hysteresis_V=_pick(c.zc_hysteresis, HYST_OF_VPK_MIN * vpk_min),
         zc_blank_V=_pick(c.zc_blank_voltage, BLANK_OF_VPK_MIN * vpk_min),
         ov_trip_V=ov,
@@ -108,9 +113,31 @@ def resolve(cfg: Config, inductance_H: float, capacitance_F: float, il_peak_A: f
     return r
 
 
+def ramp_charge_W(capacitance_F: float, vout_V: float, time_s: float) -> float:
+    """The bus capacitor's charging power at the end of a ramp to ``vout_V`` at the slope
+    vout/time: C vout dv/dt (W)."""
+    return capacitance_F * vout_V * vout_V / time_s
+
+
+def soft_start_s(capacitance_F: float, vout_V: float, power_W: float) -> float:
+    """The default ramp time (s): the charging power at most SOFT_START_CHARGE_OF_RATED of
+    the rated power, and never under SOFT_START_MIN_S."""
+    t = capacitance_F * vout_V * vout_V / (SOFT_START_CHARGE_OF_RATED * power_W)
+    return max(SOFT_START_MIN_S, t)
+
+
 def _check(cfg: Config, r: Resolved) -> None:
     src = cfg.source
     s = cfg.spec
+    p_ramp = ramp_charge_W(r.capacitance_F, s.vout, r.soft_start_s)
+    if p_ramp > s.power:
+        raise ConfigError(
+            f"{src}: [control] soft_start_time = {r.soft_start_s:g} s: the ramp alone would ask "
+            f"{p_ramp:.0f} W to charge the bus (C x vout^2/time, C = {r.capacitance_F:.4g} F), "
+            f"more than the rated {s.power:g} W; use at least "
+            f"{r.capacitance_F * s.vout**2 / s.power:.3g} s (the default rule gives "
+            f"{soft_start_s(r.capacitance_F, s.vout, s.power):.3g} s)"
+        )
     vpk_max = math.sqrt(2.0) * s.vin_rms_max
     if r.zc_blank_V <= r.zc_hysteresis_V:
         raise ConfigError(

@@ -16,6 +16,12 @@ BROWNOUT_OFF_OF_VMIN = 0.85  # brown-out stop: of vin_rms_min
 BROWNOUT_ON_OF_VMIN = 0.92  # brown-out restart: of vin_rms_min
 RANGE_MARGIN = 1.25  # ADC full scale: of the largest value the channel must read
 CURRENT_BW_DIVISOR = 15.0  # current-loop crossover: fsw over this
+# soft start: the ramp's capacitor charging power C vout dv/dt at its end, of rated output
+# power, at most this (the load waits for power good near the ramp's end, and the command's
+# cap PCMD_MAX_OF_RATED must still hold the load and the ramp's last part) ...
+SOFT_START_CHARGE_OF_RATED = 0.5
+SOFT_START_MIN_S = 0.1  # ... and the ramp never shorter than this (s), a common practice value
+# a soft_start_time set in the config is refused when the ramp alone asks more than the rating
 MIN_PERIOD_COUNTS = 100  # timer counts per PWM period at least (duty resolution 1 %)
 MAX_PERIOD_COUNTS = 65535  # the compare is 16 bits
 
@@ -35,9 +41,13 @@ IREF_MAX_OF_OC = 0.85  # ... and of the over-current trip, the smaller of the tw
 VBUS_GUARD_OF_SPAN = 0.6  # reference zeroed above vout + this x (ov_trip - vout)
 DIODE_MARGIN_OF_VOUT = 0.02  # |v| within this of the bus: the line rectified by the diodes
 PRECHARGE_OF_PEAK = 0.85  # bus precharged at this fraction of the line peak ...
-RELAY_RISE_OF_VOUT = 0.01  # ... and steady: moving less than this (of vout) in a half cycle
+RELAY_RISE_OF_VOUT = 0.01  # relay closes with the bus steady: moving less than this (of vout)
+RELAY_CLOSE_OF_PEAK = 0.95  # ... in a half cycle, and at this fraction of the line peak
+RELAY_HOLD_HALVES = 4  # ... or flat this many crossings at PRECHARGE_OF_PEAK (a load holds it):
+RELAY_FLAT_OF_VOUT = 0.0025  # ... moving less than this (of vout) per half cycle
 RELAY_WAIT_OF_DELAY = 1.5  # switching waits this many relay contact times after closing it
 RELAY_OPEN_OF_PEAK = 0.6  # relay opened when, without the line, the bus falls below this
+RELAY_FLOOR_MARGIN = 1.03  # ... or below this x vout_min_holdup (the load's stop level)
 PG_ON_OF_VOUT = 0.95  # power good set in RUN at this fraction of vout ...
 PG_OFF_OF_VOUT = 0.85  # ... and cleared below this one, or on a stop
 LINE_LOSS_RESET_S = 0.5  # an outage longer than this (s) starts afresh
@@ -54,6 +64,11 @@ IL_TRACK_ERR_OF_PEAK = 0.03  # ... and off its reference by this (of the peak): 
 IL_IDLE_OF_PEAK = 0.1  # with the gates off and the line read below the bus, a current beyond this
 IL_IDLE_FALL_OF_SLOPE = 0.5  # ... (of the peak) falling by less than this x the least fall the
 IL_IDLE_PERIODS = 4  # ... diodes impose, this many periods in a row: line or current channel failed
+BAL_WINDOW_S = 0.0005  # energy check: the bus's rise over windows of this length (s) ...
+BAL_OF_PCMD = 2.5  # ... beyond this x the window's largest power command (a healthy line
+# draws at most twice its mean power at the peak, sin^2, plus a quarter) ...
+BAL_FLOOR_OF_PCMD_MAX = 0.1  # ... that command taken as at least this x PCMD_MAX_W ...
+BAL_NOISE_COUNTS = 8  # ... plus the bus reading's noise, this many codes at vout
 LINE_OFFSET_OF_VPK_MIN = 0.05  # line channel's cycle mean beyond this (of the lowest peak)
 LINE_OFFSET_CYCLES = 2  # ... in this many consecutive cycles: line channel failed
 BAD_HALVES_MAX = 2  # consecutive implausible half cycles that stop switching
@@ -79,6 +94,7 @@ COUNTER_LIMITS = {
     "LINE_LOSS_PERIODS": (1, 65535, ("protection", "line_loss_time"), "uint16_t low_cnt"),
     "RETRY_DELAY_PERIODS": (1, 0xFFFFFFFF, ("protection", "retry_delay"), "uint32_t timer"),
     "HALF_MAX_PERIODS": (1, 65535, ("spec", "fsw"), "uint16_t since_zc"),
+    "BAL_PERIODS": (1, 65534, ("spec", "fsw"), "uint16_t bal_n"),
     "STUCK_PERIODS": (1, 65535, ("spec", "fsw"), "uint16_t stuck_cnt"),
     "RMS_AGE_MAX_PERIODS": (1, 65535, ("spec", "fsw"), "uint16_t rms_age"),
     "RELAY_WAIT_PERIODS": (1, 0xFFFFFFFF, ("plant", "relay_delay"), "uint32_t relay_timer"),

@@ -180,8 +180,11 @@ class ControlTable:
     voltage_phase_margin_deg: float = key(
         "deg", "voltage-loop phase margin", 45.0, lo=20.0, hi=85.0
     )
-    soft_start_time: float = pos(
-        "s", "bus reference ramp from the precharged value to vout", 0.1, hi=10.0
+    soft_start_time: float | None = pos(
+        "s",
+        "bus reference ramp from the precharged value to vout (default: the capacitor's "
+        "charging power C x vout^2/time at most half the rated power, and at least 0.1 s)",
+        hi=10.0,
     )
     zc_hysteresis: float | None = pos(
         "V",

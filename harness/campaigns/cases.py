@@ -21,12 +21,16 @@ from hypothesis import HealthCheck, Phase, given, settings
 from hypothesis import strategies as st
 
 from design.project import Project
+from design.rules import SOFT_START_MIN_S
 from harness.closedloop.scenario import Event, Scenario
 from plant.sensor_faults import CHANNELS, FAULTS
 
 RECOVERY_CYCLES = 10  # line cycles after the line returns (or a load step) to be within 2 %
 RESTART_CYCLES = 20  # the same when the stage had to stop and restart
-SETTLE_S = 0.22  # start-up, soft start and the power-good load connection settle by then
+# start-up settles by SETTLE_BASE_S + the design's soft-start time (``settle_s``): precharge
+# through the limiter, the relay's wait, and the power-good load connection take the base
+SETTLE_BASE_S = 0.12
+SETTLE_S = SETTLE_BASE_S + SOFT_START_MIN_S  # a design with the shortest ramp
 LINE_MARGIN = 1.03  # lowest line drawn: this much above the brown-out restart level
 # IEC 61000-4-11 test levels (from memory): residual and duration in cycles (50 Hz, 60 Hz)
 IEC_DIPS = [
@@ -68,12 +72,13 @@ class Case:
     sensor_value: float = 0.0
     sensor_periods: int = 1
     sensor_deg: float = 0.0
+    settle_s: float = SETTLE_S  # the design's start-up time (``settle_s``)
 
     def sensor_time_s(self) -> float:
         return self.sensor_deg / 360.0 / self.freq_Hz
 
     def event_time_s(self) -> float:
-        k = math.ceil(SETTLE_S * self.freq_Hz)
+        k = math.ceil(self.settle_s * self.freq_Hz)
         return (k + self.event_deg / 360.0) / self.freq_Hz
 
     def line_back_s(self) -> float:
@@ -124,11 +129,18 @@ class Case:
         return Event(self.sensor_time_s(), "sensor", vals, words)
 
 
-def sensor_fault_of(full_counts: int, freq_Hz: float) -> st.SearchStrategy[dict[str, Any]]:
+def settle_s(prj: Project) -> float:
+    """When a design's start-up has settled (s): SETTLE_BASE_S plus its soft-start time."""
+    return SETTLE_BASE_S + prj.resolved.soft_start_s
+
+
+def sensor_fault_of(
+    full_counts: int, freq_Hz: float, settle: float = SETTLE_S
+) -> st.SearchStrategy[dict[str, Any]]:
     """A failed sensor: each channel, each fault, any value the ADC can hold, at any phase
     and in any mode (from power-up to a line cycle after the settling time); the only fault
     of its case (no line or load event)."""
-    last = 360.0 * (math.ceil(SETTLE_S * freq_Hz) + 1)
+    last = 360.0 * (math.ceil(settle * freq_Hz) + 1)
     ch = st.sampled_from(CHANNELS)
     code = st.integers(0, full_counts).map(float)
     value = {
@@ -239,9 +251,10 @@ def cases(
     vrms_range: tuple[float, float] = (85.0, 265.0),
     freq_range: tuple[float, float] = (45.0, 66.0),
     sensor_full_counts: int = 0,
+    settle: float = SETTLE_S,
 ) -> st.SearchStrategy[Case]:
     """Whole cases: a line over ``vrms_range`` (Vrms) and ``freq_range`` (Hz), then the
-    other pieces joined with ``st.builds``."""
+    other pieces joined with ``st.builds``; events after ``settle`` (s, ``settle_s``)."""
 
     def around(line: tuple[float, float]) -> st.SearchStrategy[Case]:
         vrms, f = line
@@ -250,11 +263,11 @@ def cases(
             kw: dict[str, Any] = {}
             for part in parts:
                 kw.update(part)
-            return Case(vrms_V=vrms, freq_Hz=f, **kw)
+            return Case(vrms_V=vrms, freq_Hz=f, settle_s=settle, **kw)
 
         parts = [distortion(), sensor_errors(), loads(), events(f, max_event_cycles)]
         if sensor_full_counts:
-            parts.append(sensor_fault_of(sensor_full_counts, f))
+            parts.append(sensor_fault_of(sensor_full_counts, f, settle))
         return st.builds(join, *parts)
 
     return st.tuples(_floats(*vrms_range), _floats(*freq_range)).flatmap(around)
@@ -332,7 +345,8 @@ def draw_cases(
     vrms_range: tuple[float, float] = (85.0, 265.0),
     freq_range: tuple[float, float] = (45.0, 66.0),
     sensor_full_counts: int = 0,
+    settle: float = SETTLE_S,
 ) -> list[Case]:
     """``n`` distinct cases drawn by hypothesis, reproducibly from ``seed``."""
-    strat = cases(max_event_cycles, vrms_range, freq_range, sensor_full_counts)
+    strat = cases(max_event_cycles, vrms_range, freq_range, sensor_full_counts, settle)
     return draw_distinct(strat, n, seed, group=8)

@@ -31,7 +31,7 @@ from design.project import Project
 from harness.closedloop import metrics
 from harness.closedloop.scenario import Scenario
 
-from .cases import RECOVERY_CYCLES, RESTART_CYCLES, SETTLE_S
+from .cases import RECOVERY_CYCLES, RESTART_CYCLES, settle_s
 
 # of the rated peak line current: at rated current the fundamental itself is at most this
 # inside the zero-crossing region (|v| < metrics.ZC_REGION_OF_PEAK of the peak), so current
@@ -54,7 +54,7 @@ class Timing:
 
 
 def timing_of(prj: Project, s: Scenario) -> Timing:
-    back, first, bound = SETTLE_S, math.inf, RECOVERY_CYCLES
+    back, first, bound = settle_s(prj), math.inf, RECOVERY_CYCLES
     f = s.freq_Hz
     dip = False
     for ev in s.events:
