@@ -8,6 +8,10 @@ import math
 from .project import Project
 from .rules import (
     BAD_HALVES_MAX,
+    BAL_FLOOR_OF_PCMD_MAX,
+    BAL_NOISE_COUNTS,
+    BAL_OF_PCMD,
+    BAL_WINDOW_S,
     BUS_LOW_PERIODS,
     BUS_PLAUS_OF_PEAK,
     IL_IDLE_FALL_OF_SLOPE,
@@ -21,9 +25,14 @@ from .rules import (
     IL_ZERO_OF_PEAK,
     LINE_OFFSET_CYCLES,
     LINE_OFFSET_OF_VPK_MIN,
+    PCMD_MAX_OF_RATED,
     PG_OFF_OF_VOUT,
     PG_ON_OF_VOUT,
     PRECHARGE_OF_PEAK,
+    RELAY_CLOSE_OF_PEAK,
+    RELAY_FLAT_OF_VOUT,
+    RELAY_FLOOR_MARGIN,
+    RELAY_HOLD_HALVES,
     RELAY_OPEN_OF_PEAK,
     RELAY_RISE_OF_VOUT,
     RELAY_WAIT_OF_DELAY,
@@ -39,6 +48,7 @@ from .rules import HALF_MAX_FREQ_MARGIN as HALF_MAX_MARGIN
 def plausibility(add: Add, prj: Project) -> None:
     s, r = prj.config.spec, prj.resolved
     vb, ib, ipk = r.vbus_range_V, r.il_range_A, prj.sizing.iline_peak_A
+    pb = vb * ib
     vpk_max = math.sqrt(2.0) * s.vin_rms_max
     vpk_min = math.sqrt(2.0) * s.vin_rms_min
     margin = (1.0 - PRECHARGE_OF_PEAK) * vpk_max
@@ -167,6 +177,58 @@ def plausibility(add: Add, prj: Project) -> None:
         "shortest at-rest stretch whose mean counts",
         f"rule: {IL_ZERO_MIN_PERIODS}",
     )
+    bal_n = max(1, math.ceil(BAL_WINDOW_S * s.fsw))
+    p_max = PCMD_MAX_OF_RATED * s.power / s.efficiency
+    noise = BAL_NOISE_COUNTS * r.vbus_V_per_count
+    add(
+        "BAL_PERIODS",
+        bal_n,
+        "u",
+        "periods",
+        "window of the energy check: switching periods with the line below the bus",
+        f"rule: ceil({BAL_WINDOW_S * 1e3:g} ms x fsw)",
+    )
+    add(
+        "BAL_V2_PER_W",
+        2.0 * BAL_OF_PCMD * bal_n / (s.fsw * r.capacitance_F),
+        "f",
+        "V^2/W",
+        "largest rise of vbus^2 over such a window per watt of the window's largest power "
+        "command: the bus energy C v^2/2 cannot rise faster than the stage draws from the "
+        "line, at most twice the command at the line's peak; a faster rise is a current the "
+        "channel does not show (the loop closes around a reading that is too low and drives "
+        "the real current up)",
+        f"rule: 2 x {BAL_OF_PCMD:g} x BAL_PERIODS/(fsw C), C = {r.capacitance_F:.4g} F",
+        (16.0 * vb * vb / pb, 15),
+    )
+    add(
+        "BAL_V2_PER_A2",
+        r.inductance_H / r.capacitance_F,
+        "f",
+        "V^2/A^2",
+        "added to that bound per ampere squared of the current at the window's start: the "
+        "inductor's energy L i^2/2 may go into the bus as well",
+        "L/C",
+        (16.0 * vb * vb / (ib * ib), 15),
+    )
+    add(
+        "BAL_P_FLOOR_W",
+        BAL_FLOOR_OF_PCMD_MAX * p_max,
+        "f",
+        "W",
+        "the command the energy check takes at least (light load: the bus reading's noise)",
+        f"rule: {BAL_FLOOR_OF_PCMD_MAX:g} x PCMD_MAX_W",
+        (pb, 15),
+    )
+    add(
+        "BAL_NOISE_V2",
+        2.0 * s.vout * noise,
+        "f",
+        "V^2",
+        "added to the energy check's bound: the bus reading's noise",
+        f"rule: 2 vout x {BAL_NOISE_COUNTS} codes",
+        (vb * vb, 30),
+    )
     add(
         "LINE_OFFSET_MAX_V",
         LINE_OFFSET_OF_VPK_MIN * vpk_min,
@@ -252,6 +314,42 @@ def relay(add: Add, prj: Project) -> None:
         (vb, 15),
     )
     add(
+        "RELAY_CLOSE_K",
+        2.0 * RELAY_CLOSE_OF_PEAK**2,
+        "f",
+        "1",
+        "the relay closes only with vbus^2 >= K x ms "
+        f"({100 * RELAY_CLOSE_OF_PEAK:g} % of the line peak) as well: the step left across the "
+        "inductors when the contacts short the limiter drives a resonant inrush of about "
+        "step x sqrt(C/L), so the limiter must first have charged the bus close to the peak "
+        "(a large bus capacitor settles, by RELAY_RISE_V, further below it)",
+        f"rule: {RELAY_CLOSE_OF_PEAK:g} x line peak",
+        (1.0, 15),
+    )
+    add(
+        "RELAY_FLAT_V",
+        RELAY_FLAT_OF_VOUT * s.vout,
+        "f",
+        "V",
+        "the bus counts as held (not still charging through the limiter) when it moves less "
+        "than this from one crossing to the next: a large capacitor creeps toward the peak by "
+        "more than this while the limiter still charges it",
+        f"rule: {RELAY_FLAT_OF_VOUT:g} x vout",
+        (vb, 15),
+    )
+    add(
+        "RELAY_HOLD_HALVES",
+        RELAY_HOLD_HALVES,
+        "u",
+        "crossings",
+        "or the relay closes once the bus has been flat (RELAY_FLAT_V) at the precharge "
+        "level (below RELAY_CLOSE_K) this many crossings in a row: a load left on the bus "
+        "holds it there through the limiter, waiting longer cannot lift it, and the stage "
+        "must start; the step left then drives an inrush of up to "
+        "(1 - PRECHARGE_OF_PEAK) x peak x sqrt(C/L)",
+        f"rule: {RELAY_HOLD_HALVES} crossings",
+    )
+    add(
         "RELAY_WAIT_PERIODS",
         math.ceil(RELAY_WAIT_OF_DELAY * pl.relay_delay * s.fsw),
         "u",
@@ -269,6 +367,21 @@ def relay(add: Add, prj: Project) -> None:
         "inrush the limiter must take",
         f"rule: {RELAY_OPEN_OF_PEAK:g} x line peak",
         (1.0, 15),
+    )
+    floor = min(math.sqrt(2.0) * s.vin_rms_max, RELAY_FLOOR_MARGIN * s.vout_min_holdup)
+    add(
+        "RELAY_OPEN_V",
+        floor,
+        "f",
+        "V",
+        "with the gates off and the line lost or low, the relay also opens when the bus falls "
+        "below this: the downstream converter stops at [spec] vout_min_holdup and leaves the bus "
+        "there, under a line that may return at up to the highest rated peak (a return through "
+        "the closed relay would drive the rectified inrush through the diodes); above it the "
+        "relay stays closed, so a dropout the hold-up rides through needs no re-close",
+        f"rule: min(highest line peak, {RELAY_FLOOR_MARGIN:g} x vout_min_holdup; the margin "
+        "covers the bus reading's gain error)",
+        (vb, 15),
     )
     add(
         "PG_ON_V",

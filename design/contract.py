@@ -156,6 +156,7 @@ class SenseFault(IntFlag):
     LINE_OFFSET = 64
     IL_OFFSET = 128
     IDLE_CURRENT = 256
+    ENERGY = 512
 
 
 SENSE_FAULT_DOCS = {
@@ -174,6 +175,10 @@ SENSE_FAULT_DOCS = {
     "below the bus by {P}_BUS_LOW_MARGIN_V, longer than the inductor takes to empty: the line "
     "channel misses a line that is there (or the current channel reads a flow that is not) "
     "(plausibility block)",
+    SenseFault.ENERGY: "bus energy rising, while switching with the line well below the bus, "
+    "faster than {P}_BAL_V2_PER_W x the window's largest command allows over {P}_BAL_PERIODS "
+    "periods (more power than the command can draw): the current channel reads low (or the "
+    "bus channel moves on its own) (plausibility block)",
 }
 # the channels each sense fault names (a bus reading below the line: one of the two is wrong)
 SENSE_CHANNEL: dict[SenseFault, tuple[Channel, ...]] = {
@@ -185,6 +190,7 @@ SENSE_CHANNEL: dict[SenseFault, tuple[Channel, ...]] = {
     SenseFault.LINE_OFFSET: (Channel.VAC,),
     SenseFault.IL_OFFSET: (Channel.IL,),
     SenseFault.IDLE_CURRENT: (Channel.VAC, Channel.IL),
+    SenseFault.ENERGY: (Channel.IL, Channel.VBUS),
 }
 
 
