@@ -11,6 +11,7 @@ import pytest
 
 from design.config import from_dict
 from harness.campaigns import designs
+from harness.campaigns.invariants import ZC_LIMIT_OF_RATED
 
 from .test_cli_design import pfcrig
 
@@ -47,7 +48,10 @@ def test_a_design_config_reads_back_as_its_tables():
 @pytest.mark.slow
 def test_bounded_survey(tmp_path):
     """Three designs (seed 0), eight fault cases each: every design is refused with a rule or
-    built, and every built design's firmware holds every invariant."""
+    built, every built design's firmware holds every invariant, and the light-load
+    zero-crossing figure is within the zc_spike bound.  (Eight designs x 25 cases of the same
+    seed find design 5, 8.7 kW universal, latching a current-channel fault when the line
+    returns from a 40 % dip: an open failure of the firmware, not of this test.)"""
     out = tmp_path / "s.json"
     r = pfcrig(
         "survey",
@@ -64,7 +68,11 @@ def test_bounded_survey(tmp_path):
     )
     doc = json.loads(out.read_text())
     assert len(doc["designs"]) == 3
+    light = []
     for rec in doc["designs"]:
         assert rec["build_error"] is None
         assert rec["refused"] or rec["cases"] == 8
+        if rec.get("light_load_zc_of_rated") is not None:
+            light.append(rec["light_load_zc_of_rated"])
+    assert light and max(light) <= ZC_LIMIT_OF_RATED
     assert r.returncode == 0, r.stdout

@@ -110,6 +110,21 @@ def draw_designs(n: int, seed: int) -> list[Design]:
     return draw_distinct(designs(), n, seed, group=4)
 
 
+LIGHT_LOAD_FRAC = 0.2  # a case at or below this fraction of rated load counts as light
+
+
+def light_load_zc(verdicts: list) -> float | None:
+    """The largest zero-crossing distortion (of the rated peak current, ``zc_spike_of_rated``)
+    over a design's steady light-load cases (load at most LIGHT_LOAD_FRAC of rating); None
+    when it had none."""
+    vals = [
+        float(v.figures["zc_spike_of_rated"])
+        for v in verdicts
+        if v.case.load_frac <= LIGHT_LOAD_FRAC and v.figures.get("zc_spike_of_rated") is not None
+    ]
+    return max(vals) if vals else None
+
+
 def survey_one(args: tuple) -> dict:
     """Design, generate, build and campaign one design; its record."""
     idx, d, cases, seed, out_dir = args
@@ -140,6 +155,7 @@ def survey_one(args: tuple) -> dict:
         rec["failures"] = [
             {"failed": v.failed, "case": asdict(v.case)} for v in res.verdicts if not v.ok
         ]
+        rec["light_load_zc_of_rated"] = light_load_zc(res.verdicts)
         if rec["failing"] and folder is not None:
             path = folder / "config.toml"
             head = (

@@ -7,6 +7,7 @@ import argparse
 import sys
 
 from harness.campaigns import designs
+from harness.campaigns.invariants import ZC_LIMIT_OF_RATED
 
 from . import checks
 from .output import write_json
@@ -62,6 +63,9 @@ def _row(r: dict) -> tuple:
         f"{d['fsw_Hz'] / 1e3:g}",
         f"{d['holdup_s'] * 1e3:g}",
         d["number_format"],
+        "-"
+        if r.get("light_load_zc_of_rated") is None
+        else f"{100 * r['light_load_zc_of_rated']:.1f}",
         verdict,
     )
 
@@ -78,7 +82,18 @@ def survey_cmd(args: argparse.Namespace) -> int:
         log=lambda m: print(m, file=sys.stderr),
         scheduler=args.scheduler,
     )
-    head = ["#", "W", "line", "Hz", "vout V", "fsw kHz", "hold-up ms", "format", "verdict"]
+    head = [
+        "#",
+        "W",
+        "line",
+        "Hz",
+        "vout V",
+        "fsw kHz",
+        "hold-up ms",
+        "format",
+        "zc@<=20% %",
+        "verdict",
+    ]
     print(format_table(head, [_row(r) for r in recs]))
     failing = [r for r in recs if r.get("failing") or r["build_error"]]
     refused = [r for r in recs if r["refused"]]
@@ -88,6 +103,15 @@ def survey_cmd(args: argparse.Namespace) -> int:
         f"{len(recs)} designs: {len(failing)} with failing firmware, {len(refused)} refused at "
         f"design time; {bad_cases} of {cases} cases failing; {wall:.1f} s"
     )
+    light = [
+        r["light_load_zc_of_rated"] for r in recs if r.get("light_load_zc_of_rated") is not None
+    ]
+    if light:
+        print(
+            f"zero-crossing distortion at <= {100 * designs.LIGHT_LOAD_FRAC:g} % load, of the "
+            f"rated peak current: worst {100 * max(light):.1f} % over {len(light)} designs (bound "
+            f"{100 * ZC_LIMIT_OF_RATED:g} %)"
+        )
     for r in refused:
         print(f"  design {r['index']} refused: {r['refused']}")
     for r in failing:
