@@ -26,6 +26,10 @@ from .rules import (
     SOFT_START_MIN_S,
 )
 
+MU_0 = 4e-7 * math.pi  # H/m
+NODE_C_OHM_F = 8e-12  # default node capacitance x rds_on_fast (ohm F), illustrative
+CORE_MU_E = 60.0  # effective permeability of the default gapped core, illustrative
+
 
 @dataclass(frozen=True)
 class Resolved:
@@ -35,6 +39,9 @@ class Resolved:
     capacitance_F: float
     current_bandwidth_Hz: float
     soft_start_s: float
+    node_capacitance_F: float
+    core_volume_m3: float
+    core_flux_per_A: float  # T per ampere of inductor current
     zc_hysteresis_V: float
     zc_blank_V: float
     ov_trip_V: float
@@ -93,6 +100,19 @@ def resolve(cfg: Config, inductance_H: float, capacitance_F: float, il_peak_A: f
         capacitance_F=cap,
         current_bandwidth_Hz=_pick(c.current_bandwidth, s.fsw / CURRENT_BW_DIVISOR),
         soft_start_s=_pick(c.soft_start_time, soft_start_s(cap, s.vout, s.power)),
+        node_capacitance_F=_pick(
+            cfg.plant.node_capacitance,
+            NODE_C_OHM_F / cfg.plant.rds_on_fast if cfg.plant.rds_on_fast > 0.0 else 0.0,
+        ),
+        core_volume_m3=_pick(
+            cfg.plant.core_volume,
+            CORE_MU_E
+            * MU_0
+            * _pick(cfg.plant.inductance, inductance_H)
+            * il_peak_A**2
+            / cfg.plant.core_peak_flux**2,
+        ),
+        core_flux_per_A=cfg.plant.core_peak_flux / il_peak_A,
         zc_hysteresis_V=_pick(c.zc_hysteresis, HYST_OF_VPK_MIN * vpk_min),
         zc_blank_V=_pick(c.zc_blank_voltage, BLANK_OF_VPK_MIN * vpk_min),
         ov_trip_V=ov,

@@ -157,6 +157,49 @@ class PlantTable:
         0.01,
         hi=1.0,
     )
+    node_capacitance: float | None = nonneg(
+        "F",
+        "energy-equivalent capacitance of the fast leg's switch node, both devices (default "
+        "8e-12 ohm F / rds_on_fast: a 650 V wide-bandgap class whose output capacitance "
+        "scales inversely with on-resistance; illustrative)",
+        hi=1e-6,
+    )
+    transition_time: float = nonneg(
+        "s", "voltage-current overlap of a hard transition (illustrative)", 10e-9, hi=1e-6
+    )
+    reverse_drop: float = nonneg(
+        "V",
+        "fast leg's reverse conduction drop while neither switch is on: body diode or third "
+        "quadrant (3 V: a SiC MOSFET class; illustrative)",
+        3.0,
+        hi=20.0,
+    )
+    core_k: float = nonneg(
+        "W/m^3",
+        "Steinmetz coefficient k of P_v = k f^alpha B^beta, f in Hz, B in T (default: a MnZn "
+        "power ferrite class near 100 C, about 100 kW/m^3 at 100 kHz and 100 mT; from memory, "
+        "illustrative)",
+        3.2,
+        hi=1e6,
+    )
+    core_alpha: float = key("1", "Steinmetz frequency exponent", 1.4, lo=1.0, hi=3.0)
+    core_beta: float = key("1", "Steinmetz flux exponent", 2.5, lo=1.0, hi=4.0)
+    core_peak_flux: float = pos(
+        "T", "core flux density at the sized peak inductor current", 0.3, hi=2.0
+    )
+    core_volume: float | None = nonneg(
+        "m^3",
+        "core volume (default: a gapped core storing L I_peak^2 / 2 at core_peak_flux with "
+        "an effective permeability of 60, mu_e mu_0 L I_peak^2 / B^2; illustrative)",
+        hi=1.0,
+    )
+    inductor_ac_factor: float = key(
+        "1",
+        "winding's resistance to the switching ripple over its DC resistance (illustrative)",
+        2.0,
+        lo=1.0,
+        hi=100.0,
+    )
 
 
 @dataclass(frozen=True, kw_only=True)

@@ -22,10 +22,14 @@ from .layout import (
     P_T,
     P_TDEAD,
     PLAN_PERIOD,
+    R_EACU,
+    R_ECORE,
+    R_EDT,
     R_EESR,
     R_EIN,
     R_ELOSS,
     R_EOUT,
+    R_ESW,
     R_I2,
     R_IAVG,
     R_IEND,
@@ -88,4 +92,6 @@ def period_averaged(par, plans, lane, harm, j, scale, compare, gates, G, Icp, r_
     i_load = G * vb + Icp
     out[R_EESR] = rc * (abs(m) * q2 - 2.0 * i_load * qm + i_load * i_load * T)
     out[R_VC], out[R_IEND] = vc1, i1
+    # the averaged model has no transitions: no switching, dead-time, core or AC copper loss
+    out[R_ESW] = out[R_EDT] = out[R_ECORE] = out[R_EACU] = 0.0
     return i1, vc1

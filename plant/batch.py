@@ -43,6 +43,13 @@ def stage_par(p: StageParams, load: Load) -> np.ndarray:
     par[LY.P_VOUT], par[LY.P_CONNECT], par[LY.P_UVLO] = load.vout, load.connect_V, load.uvlo_V
     par[LY.P_FULL] = 65535.0
     par[LY.P_VAC_CPV] = par[LY.P_IL_CPA] = par[LY.P_VBUS_CPV] = 1.0
+    par[LY.P_CNODE], par[LY.P_TTR], par[LY.P_VREV] = (
+        p.node_capacitance_F,
+        p.transition_time_s,
+        p.reverse_drop_V,
+    )
+    par[LY.P_CORE_C], par[LY.P_CORE_BETA] = p.core_energy_coeff, p.core_beta
+    par[LY.P_ACX] = p.ac_copper_ohm / 12.0  # the triangle's mean square: di^2/12
     return par
 
 

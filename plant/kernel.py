@@ -11,6 +11,8 @@ bits alone or inside any batch.  Circuit and notation as in ``plant.stage``.
 
 from __future__ import annotations
 
+import math
+
 from .adc import adc_channel
 from .averaged import period_averaged
 from .jit import jit, jit_inline
@@ -46,12 +48,17 @@ from .layout import (
     P_TDEAD,
     P_UVLO,
     P_VOUT,
+    P_VREV,
     PLAN_DEAD,
     PLAN_HALF,
+    R_EACU,
+    R_ECORE,
+    R_EDT,
     R_EESR,
     R_EIN,
     R_ELOSS,
     R_EOUT,
+    R_ESW,
     R_I2,
     R_IAVG,
     R_IEND,
@@ -69,21 +76,27 @@ from .layout import (
     W_A22,
     W_B1,
     W_B2,
+    W_B2LATE,
     W_DT,
+    W_EDT,
     W_EIN,
     W_G,
+    W_GHI,
+    W_GLO,
     W_H,
     W_I,
     W_ICP,
     W_IMAX,
     W_IMIN,
     W_IS,
+    W_ISEG,
     W_ISTART,
     W_K,
     W_M,
     W_MN,
     W_MP,
     W_MPREV,
+    W_NOSW,
     W_P11,
     W_P12,
     W_P21,
@@ -107,6 +120,7 @@ from .layout import (
     W_Y1,
     W_Y2,
 )
+from .losses import ac_copper_energy, core_energy, switching_energy
 from .solver import INV, INV_FACT, _m_pair, bus_k, circuit, conduction, piece_integrals, segment
 from .source import advance_phase, source_at
 
@@ -179,6 +193,9 @@ def _period_setup(par, lane, harm, t, compare, gates, relay, ws, switching):
         b2_ = min(t1 + td, t2)
         b4 = min(t2 + td, T)
         g = int(gates[j])
+        ws[W_GLO, j] = 1.0 if ((g & GATE_FAST_LO) != 0 and t1 > 0.0) else 0.0
+        ws[W_GHI, j] = 1.0 if ((g & GATE_FAST_HI) != 0 and t2 > b2_) else 0.0
+        ws[W_B2LATE, j] = 1.0 if b2_ > half else 0.0
         s_lo = (g & GATE_SLOW_LO) != 0
         s_hi = (g & GATE_SLOW_HI) != 0
         qb = 0 if (s_lo and not s_hi) else (1 if (s_hi and not s_lo) else -1)
@@ -202,6 +219,7 @@ def _period_setup(par, lane, harm, t, compare, gates, relay, ws, switching):
                 a, b, qa = b4, T, qa_low
             dt = max(b - a, 0.0)
             m_pos, m_neg = _m_pair(qa, qb)
+            ws[W_NOSW + seg, j] = 1.0 if qa < 0 else 0.0
             ws[W_DT + seg, j] = dt
             ws[W_VS + seg, j] = (
                 source_at(lane, harm, j, scale, a + 0.5 * dt, s0, c0) if dt > 0.0 else 0.0
@@ -232,6 +250,7 @@ def _solve_segment(par, plans, ws, n, seg, kind, pieces, order):
     Q, Q2, EIN, VB, IMAX, IMIN = ws[W_Q], ws[W_Q2], ws[W_EIN], ws[W_VB], ws[W_IMAX], ws[W_IMIN]
     QM, QM2 = ws[W_QM], ws[W_QM2]
     DT, VS, MP, MN = ws[W_DT + seg], ws[W_VS + seg], ws[W_MP + seg], ws[W_MN + seg]
+    NOSW, EDT, vrev = ws[W_NOSW + seg], ws[W_EDT], par[P_VREV]
     # matrices for conduction in the current's direction (forced: switches both ways), and
     # the first term of the series
     for j in range(n):
@@ -303,6 +322,8 @@ def _solve_segment(par, plans, ws, n, seg, kind, pieces, order):
             qm, qm2 = m * q, m * m * q2
         Q[j] += q
         Q2[j] += q2
+        if NOSW[j] != 0.0:  # neither fast switch on: a body diode (or third quadrant) carries it
+            EDT[j] += vrev * abs(q)
         QM[j] += qm  # the bus capacitor sees m i: its ESR loss follows from these two
         QM2[j] += qm2
         EIN[j] += VS[j] * q
@@ -324,7 +345,7 @@ def _switching_period(par, plans, ws, n):
     Q, Q2, EIN, VB, IMAX, IMIN = ws[W_Q], ws[W_Q2], ws[W_EIN], ws[W_VB], ws[W_IMAX], ws[W_IMIN]
     for j in range(n):
         ws[W_ISTART, j] = IND[j]
-        Q[j] = Q2[j] = EIN[j] = VB[j] = ws[W_QM, j] = ws[W_QM2, j] = 0.0
+        Q[j] = Q2[j] = EIN[j] = VB[j] = ws[W_QM, j] = ws[W_QM2, j] = ws[W_EDT, j] = 0.0
         IMAX[j] = IMIN[j] = IND[j]
         MPREV[j] = 0.0
     for seg in range(7):
@@ -340,6 +361,8 @@ def _switching_period(par, plans, ws, n):
                 break
         if not empty:
             _solve_segment(par, plans, ws, n, seg, kind, pieces, order)
+        for j in range(n):
+            ws[W_ISEG + seg, j] = IND[j]
         if seg == 2:  # the ADC sample at T/2
             for j in range(n):
                 ws[W_IS, j] = IND[j]
@@ -385,8 +408,34 @@ def step_lanes(par, plans, lane, harm, seed, k, t, model, compare, gates, relay,
             out[j, R_EESR] = par[P_ESR] * (
                 ws[W_QM2, j] - 2.0 * i_load * ws[W_QM, j] + i_load * i_load * T
             )
-            out[j, R_VC], out[j, R_IEND] = ws[W_VC, j], ws[W_I, j]
-            lane[j, L_I], lane[j, L_VC] = ws[W_I, j], ws[W_VC, j]
+            # the losses the circuit does not carry (``plant.losses``), taken out of the bus
+            # capacitor's energy at the period's end
+            di = ws[W_IMAX, j] - ws[W_IMIN, j]
+            i_b2 = ws[W_ISEG + 3, j] if ws[W_B2LATE, j] != 0.0 else ws[W_ISEG + 1, j]
+            e_sw = switching_energy(
+                par,
+                vbus_avg,
+                ws[W_VSH, j],
+                ws[W_GLO, j] != 0.0,
+                ws[W_GHI, j] != 0.0,
+                ws[W_ISEG, j],
+                i_b2,
+                ws[W_ISEG + 4, j],
+                ws[W_ISEG + 5, j],
+            )
+            e_core, e_acu = core_energy(par, di), ac_copper_energy(par, di)
+            e_x = e_sw + ws[W_EDT, j] + e_core + e_acu
+            vc = ws[W_VC, j]
+            vc2 = vc * vc - 2.0 * e_x / par[P_C]
+            vc = math.sqrt(vc2) if vc2 > 0.0 else 0.0
+            out[j, R_ESW], out[j, R_EDT], out[j, R_ECORE], out[j, R_EACU] = (
+                e_sw,
+                ws[W_EDT, j],
+                e_core,
+                e_acu,
+            )
+            out[j, R_VC], out[j, R_IEND] = vc, ws[W_I, j]
+            lane[j, L_I], lane[j, L_VC] = ws[W_I, j], vc
     else:
         for j in range(n):
             relay = 1 if ws[W_SLOW, j] != 0.0 else 0

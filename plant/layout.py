@@ -69,8 +69,14 @@ LANE_ROWS = 25
     P_IL_CPA,
     P_IL_OFF,
     P_VBUS_CPV,
-) = range(20)  # CPV/CPA: counts per V/A
-PAR_ROWS = 20
+    P_CNODE,
+    P_TTR,
+    P_VREV,
+    P_CORE_C,
+    P_CORE_BETA,
+    P_ACX,
+) = range(26)  # CPV/CPA: counts per V/A; the last six: the loss model (``plant.losses``)
+PAR_ROWS = 26
 
 # plant records per period (columns of ``out``, shape (n, len(FIELDS))), in this order
 FIELDS = (
@@ -89,6 +95,10 @@ FIELDS = (
     "e_esr_J",
     "vc_V",
     "i_end_A",
+    "e_sw_J",
+    "e_dt_J",
+    "e_core_J",
+    "e_acu_J",
 )
 (
     R_VS,
@@ -106,6 +116,10 @@ FIELDS = (
     R_EESR,
     R_VC,
     R_IEND,
+    R_ESW,
+    R_EDT,
+    R_ECORE,
+    R_EACU,
 ) = range(len(FIELDS))
 
 # gate bits of the controller contract, as plain ints (compile-time constants of the kernels)
@@ -158,12 +172,18 @@ PLAN_HALF, PLAN_DEAD, PLAN_PERIOD = 0, 1, 2
     W_VSH,
     W_QM,
     W_QM2,
+    W_EDT,
+    W_B2LATE,
+    W_GLO,
+    W_GHI,
     W_DT,
     W_VS,
     W_MP,
     W_MN,
-) = (*range(39), 39, 46, 53, 60)  # the last four: 7 rows each
-WS_ROWS = 67
+    W_NOSW,
+    W_ISEG,
+) = (*range(43), 43, 50, 57, 64, 71, 78)  # the last six: 7 rows each (one per sub-interval)
+WS_ROWS = 85
 THIRD = 1.0 / 3.0
 TWELFTH = 1.0 / 12.0
 

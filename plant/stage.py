@@ -25,8 +25,9 @@ each end (``dL`` = compare/period), high switch in the middle, the timer's dead
 time at each edge.  The ADC samples at ``T/2``.  Each sub-interval is linear and
 solved exactly (``plant.kernel``, which also holds the averaged model; ``plant.batch``
 runs a batch of lanes).  Diode forward drops are not modelled (a
-resistive path only), stated here so nobody reads the efficiency as a loss model
-of real devices.
+resistive path only); the fast leg's transitions, its reverse conduction in the
+dead time, core loss and the winding's AC resistance are taken per period from the
+bus (``plant.losses``).
 """
 
 from __future__ import annotations
@@ -53,6 +54,13 @@ class StageParams:
         0.0  # series limiter, bypassed by a relay the controller commands
     )
     relay_delay_s: float = 0.01  # the relay follows its command this long after
+    # the losses of ``plant.losses`` (zero: none)
+    node_capacitance_F: float = 0.0
+    transition_time_s: float = 0.0
+    reverse_drop_V: float = 0.0
+    core_energy_coeff: float = 0.0  # J per period per A^beta of ripple
+    core_beta: float = 2.5
+    ac_copper_ohm: float = 0.0  # the winding's extra resistance to the ripple
 
     @property
     def period_s(self) -> float:

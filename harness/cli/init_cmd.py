@@ -28,6 +28,8 @@ HEADER = """# pfcrig config: 1.5 kW universal-input totem-pole PFC front end (de
 DERIVED = {
     ("plant", "inductance"): "inductance_H",
     ("plant", "capacitance"): "capacitance_F",
+    ("plant", "node_capacitance"): "node_capacitance_F",
+    ("plant", "core_volume"): "core_volume_m3",
     ("control", "current_bandwidth"): "current_bandwidth_Hz",
     ("control", "zc_hysteresis"): "zc_hysteresis_V",
     ("control", "zc_blank_voltage"): "zc_blank_V",

@@ -69,6 +69,16 @@ def stage_params(prj: Project) -> StageParams:
         source_inductance_H=pl.source_inductance,
         inrush_resistance_ohm=pl.inrush_resistance,
         relay_delay_s=pl.relay_delay,
+        node_capacitance_F=r.node_capacitance_F,
+        transition_time_s=pl.transition_time,
+        reverse_drop_V=pl.reverse_drop,
+        # Steinmetz per period: k fsw^(alpha-1) V (B/A / 2)^beta x di^beta
+        core_energy_coeff=pl.core_k
+        * c.spec.fsw ** (pl.core_alpha - 1.0)
+        * r.core_volume_m3
+        * (0.5 * r.core_flux_per_A) ** pl.core_beta,
+        core_beta=pl.core_beta,
+        ac_copper_ohm=(pl.inductor_ac_factor - 1.0) * pl.inductor_dcr,
     )
 
 

@@ -8,12 +8,14 @@ at each period's end.  Every series resistor carries the line current, so its lo
 ``R int i^2``:
 
     p_in   = (int v_s i - R_src int i^2 - dE(L_src)) / T_w     at the stage's input terminals
-    losses = conduction (Rds_on of both legs) + inductor_copper (DCR) + capacitor (ESR)
-             + inrush (the limiter while its relay is open)
+    losses = conduction (Rds_on of both legs) + switching + deadtime (``plant.losses``)
+             + inductor_copper (DCR, and the AC resistance on the ripple) + inductor_core
+             + capacitor (ESR) + inrush (the limiter while its relay is open)
     p_in - p_out - dE(C, L)/T_w = sum(losses)                   (energy balance, checked)
 
-Not modelled, so not in the sum (listed in ``losses_not_modelled``): switching losses,
-dead-time diode drops, inductor core loss, the input filter.
+The switching, dead-time, core and AC copper energies are the plant's own records of what it
+took out of the bus each period (``e_sw_J``, ``e_dt_J``, ``e_core_J``, ``e_acu_J``).  Not
+modelled, so not in the sum (listed in ``losses_not_modelled``): the input filter.
 """
 
 from __future__ import annotations
@@ -22,7 +24,7 @@ import numpy as np
 
 from design.project import Project
 
-NOT_MODELLED = ("switching", "deadtime", "inductor_core", "filter")
+NOT_MODELLED = ("filter",)
 
 
 def power_balance(d: dict[str, np.ndarray], prj: Project, sl: slice) -> dict:
@@ -39,10 +41,17 @@ def power_balance(d: dict[str, np.ndarray], prj: Project, sl: slice) -> dict:
     e_src = float(np.sum(d["e_in_J"][sl]))
     e_term = e_src - pl.source_resistance * i2 - 0.5 * pl.source_inductance * (i_b**2 - i_a**2)
     r_series = pl.inductor_dcr + pl.rds_on_fast + pl.rds_on_slow + pl.source_resistance
+
+    def total(key: str) -> float:
+        return float(np.sum(d[key][sl])) / tw
+
     losses = {
         "conduction": (pl.rds_on_fast + pl.rds_on_slow) * i2 / tw,
-        "inductor_copper": pl.inductor_dcr * i2 / tw,
-        "capacitor": float(np.sum(d["e_esr_J"][sl])) / tw,
+        "switching": total("e_sw_J"),
+        "deadtime": total("e_dt_J"),
+        "inductor_copper": pl.inductor_dcr * i2 / tw + total("e_acu_J"),
+        "inductor_core": total("e_core_J"),
+        "capacitor": total("e_esr_J"),
         "inrush": max(float(np.sum(d["e_loss_J"][sl])) - r_series * i2, 0.0) / tw,
     }
     stored = (
