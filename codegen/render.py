@@ -12,6 +12,7 @@ from design import contract
 from design.config import ConfigError
 from design.constants import build_constants
 from design.project import Project
+from design.tuning import BUS_BLOCKS
 
 from .literals import c_literal
 
@@ -83,6 +84,7 @@ def _context(prj: Project, **extra: Any) -> dict[str, Any]:
         vout=cfg.spec.vout,
         ct=contract,
         link=contract.LINK,
+        bus_blocks=BUS_BLOCKS,
         **_format_names(p, P, cfg.control.number_format),
         **extra,
     )

@@ -108,6 +108,17 @@ def vloop(add: Add, prj: Project) -> None:
         (pb / vb, 31),
     )
     add(
+        "VHELD_BLEED",
+        1.0 / (fsw * (v.kp / v.ki)),
+        "f",
+        "1/period",
+        "while the bus guard holds the current reference at zero, the share of the command's "
+        "excess over what is delivered (zero) taken off the integrator each period: "
+        "back-calculation anti-windup with its tracking time equal to the integral time kp/ki",
+        f"rule: 1/(fsw x Ti), Ti = kp/ki = {1e3 * v.kp / v.ki:.4g} ms",
+        (1.0, 31),
+    )
+    add(
         "PCMD_MAX_W",
         PCMD_MAX_OF_RATED * s.power / s.efficiency,
         "f",

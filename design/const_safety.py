@@ -9,8 +9,8 @@ from .project import Project
 from .rules import (
     BAD_HALVES_MAX,
     BAL_FLOOR_OF_PCMD_MAX,
+    BAL_MARGIN,
     BAL_NOISE_COUNTS,
-    BAL_OF_PCMD,
     BAL_WINDOW_S,
     BUS_LOW_PERIODS,
     BUS_PLAUS_OF_PEAK,
@@ -190,15 +190,15 @@ def plausibility(add: Add, prj: Project) -> None:
     )
     add(
         "BAL_V2_PER_W",
-        2.0 * BAL_OF_PCMD * bal_n / (s.fsw * r.capacitance_F),
+        2.0 * BAL_MARGIN * bal_n / (s.fsw * r.capacitance_F),
         "f",
         "V^2/W",
         "largest rise of vbus^2 over such a window per watt of the window's largest power "
-        "command: the bus energy C v^2/2 cannot rise faster than the stage draws from the "
-        "line, at most twice the command at the line's peak; a faster rise is a current the "
-        "channel does not show (the loop closes around a reading that is too low and drives "
-        "the real current up)",
-        f"rule: 2 x {BAL_OF_PCMD:g} x BAL_PERIODS/(fsw C), C = {r.capacitance_F:.4g} F",
+        "the current reference draws, iref x |v_line|: the bus energy C v^2/2 cannot rise "
+        "faster than the stage draws from the line; a faster rise is a current the channel "
+        "does not show (the loop closes around a reading that is too low and drives the real "
+        "current up)",
+        f"rule: 2 x {BAL_MARGIN:g} x BAL_PERIODS/(fsw C), C = {r.capacitance_F:.4g} F",
         (16.0 * vb * vb / pb, 15),
     )
     add(
@@ -216,7 +216,8 @@ def plausibility(add: Add, prj: Project) -> None:
         BAL_FLOOR_OF_PCMD_MAX * p_max,
         "f",
         "W",
-        "the command the energy check takes at least (light load: the bus reading's noise)",
+        "the power the energy check takes at least (light load and the crossings: the bus "
+        "reading's noise)",
         f"rule: {BAL_FLOOR_OF_PCMD_MAX:g} x PCMD_MAX_W",
         (pb, 15),
     )

@@ -176,9 +176,9 @@ SENSE_FAULT_DOCS = {
     "channel misses a line that is there (or the current channel reads a flow that is not) "
     "(plausibility block)",
     SenseFault.ENERGY: "bus energy rising, while switching with the line well below the bus, "
-    "faster than {P}_BAL_V2_PER_W x the window's largest command allows over {P}_BAL_PERIODS "
-    "periods (more power than the command can draw): the current channel reads low (or the "
-    "bus channel moves on its own) (plausibility block)",
+    "faster than {P}_BAL_V2_PER_W x the window's largest iref x |v_line| allows over "
+    "{P}_BAL_PERIODS periods (more power than the current reference draws): the current "
+    "channel reads low (or the bus channel moves on its own) (plausibility block)",
 }
 # the channels each sense fault names (a bus reading below the line: one of the two is wrong)
 SENSE_CHANNEL: dict[SenseFault, tuple[Channel, ...]] = {
