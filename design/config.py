@@ -18,6 +18,7 @@ from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
 
+from .rules import DIODE_MARGIN_OF_VOUT
 from .schema import (
     SCHEMA,
     TABLES,
@@ -186,6 +187,17 @@ def _check_spec(src: str, s: dict[str, Any]) -> None:
             "vout",
             f"V: must exceed the highest input peak sqrt(2) x vin_rms_max = "
             f"{vpk:.1f} V (a boost cannot regulate below it)",
+        )
+    trough = s["vout"] * (1.0 - 0.5 * s["ripple_voltage_pp"])
+    need = vpk + DIODE_MARGIN_OF_VOUT * s["vout"]
+    if trough < need:
+        raise fail(
+            "vout",
+            f"V: the bus trough vout x (1 - ripple_voltage_pp/2) = {trough:.1f} V must exceed "
+            f"the highest input peak {vpk:.1f} V by the firmware's diode margin "
+            f"({100 * DIODE_MARGIN_OF_VOUT:g} % of vout), {need:.1f} V: below it the off-time "
+            "cannot bring the current down at the line's peak (a boost's bus must stay above "
+            "its input) and the current there is the line rectified, not controlled",
         )
     if s["fsw"] < FSW_MIN_OF_LINE * s["line_freq"]:
         raise fail(
