@@ -248,6 +248,14 @@ def _check_control(src: str, s: dict[str, Any], c: dict[str, Any]) -> None:
 
 def _check_sensing(src: str, se: dict[str, Any]) -> None:
     full = 2 ** se["adc_bits"] - 1
+    unused = ("vac_range", "vac_offset") if se["line"] == "split" else ("ln_range",)
+    for name in unused:
+        if se[name] is not None:
+            raise ConfigError(
+                f"{where(src, 'sensing', name)}: not used with line = '{se['line']}' "
+                f"({'bipolar' if name.startswith('vac') else 'split'} line sensing only); "
+                "remove it or change [sensing] line"
+            )
     for name in ("vac_offset", "il_offset"):
         if se[name] is not None and se[name] > full:
             raise ConfigError(

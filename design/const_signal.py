@@ -70,24 +70,35 @@ def sensing(add: Add, prj: Project) -> None:
         "consecutive railed samples before a sensor fault",
         "[sensing] rail_periods",
     )
-    add(
-        "VAC_OFFSET_COUNTS",
-        r.vac_offset_counts,
-        "f",
-        "counts",
-        "line channel code at 0 V",
-        "[sensing] vac_offset",
-        (1.0, 0),
-    )
-    add(
-        "VAC_V_PER_COUNT",
-        r.vac_V_per_count,
-        "f",
-        "V/count",
-        "line channel scale",
-        f"[sensing] vac_range = {r.vac_range_V:.6g} V over {half:.0f} codes",
-        (vb, 31),
-    )
+    if r.line_split:
+        add(
+            "LN_V_PER_COUNT",
+            r.ln_V_per_count,
+            "f",
+            "V/count",
+            "L and N channel scale (split line sensing: line = (vl - vn) x this)",
+            f"[sensing] ln_range = {r.ln_range_V:.6g} V over {full} codes",
+            (vb, 31),
+        )
+    else:
+        add(
+            "VAC_OFFSET_COUNTS",
+            r.vac_offset_counts,
+            "f",
+            "counts",
+            "line channel code at 0 V",
+            "[sensing] vac_offset",
+            (1.0, 0),
+        )
+        add(
+            "VAC_V_PER_COUNT",
+            r.vac_V_per_count,
+            "f",
+            "V/count",
+            "line channel scale",
+            f"[sensing] vac_range = {r.vac_range_V:.6g} V over {half:.0f} codes",
+            (vb, 31),
+        )
     add(
         "IL_OFFSET_COUNTS",
         r.il_offset_counts,

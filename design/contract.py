@@ -219,6 +219,33 @@ ADC_FIELDS = (
     ),
     Field("vbus", "uint16_t", "<u2", "bus voltage: unipolar, 0 V at 0 counts [counts]"),
 )
+# split line sensing (``[sensing] line = "split"``): L and N each measured to the bus minus on a
+# unipolar channel; the line is vl - vn.  The current and bus keep their places.
+ADC_FIELDS_SPLIT = (
+    Field(
+        "vl",
+        "uint16_t",
+        "<u2",
+        "line terminal L to the bus minus: unipolar, 0 V at 0 counts [counts]",
+    ),
+    ADC_FIELDS[1],
+    ADC_FIELDS[2],
+    Field(
+        "vn",
+        "uint16_t",
+        "<u2",
+        "neutral terminal N to the bus minus: unipolar, 0 V at 0 counts [counts]",
+    ),
+)
+# the logical channel each ADC field belongs to (L and N are the line's two halves)
+FIELD_CHANNEL = {"vac": 0, "vl": 0, "il": 1, "vbus": 2, "vn": 0}
+
+
+def adc_fields(split: bool) -> tuple[Field, ...]:
+    """The input record's fields: bipolar line sensing, or L and N apart."""
+    return ADC_FIELDS_SPLIT if split else ADC_FIELDS
+
+
 OUTPUT_FIELDS = (
     Field(
         "compare",
@@ -280,12 +307,20 @@ LINK = {
     "HEADER_BYTES": (6, "start bytes, type, seq, length (u16)"),
     "CRC_BYTES": (2, "CRC-16/CCITT-FALSE after the payload"),
     "MAX_STEPS": (64, "periods in one STEP request at most"),
-    "STEP_IN_BYTES": (6, "bytes per period in a STEP request (vac, il, vbus u16)"),
+    "STEP_IN_BYTES": (
+        6,
+        "bytes per period in a STEP request: the input record's u16 fields (vac, il, vbus; "
+        "8 with split line sensing: vl, il, vbus, vn)",
+    ),
     "STEP_OUT_BYTES": (
         7,
         "bytes per period in a STEP answer (compare u16, gates, mode, faults u16, status)",
     ),
-    "MAX_PAYLOAD": (1 + 64 * 7, "largest payload: a count byte and MAX_STEPS answers"),
+    "MAX_PAYLOAD": (
+        1 + 64 * 8,
+        "largest payload: a count byte and MAX_STEPS periods of the widest record (a split "
+        "sensing request, 8 bytes)",
+    ),
     "SNAPSHOT_CHUNK": (256, "state bytes in one SNAPSHOT answer at most"),
     "DIGEST_CHARS": (16, "config digest characters in HELLO_ACK"),
     "COST_WORDS": (8, "u32 words in a COST answer"),
@@ -306,6 +341,13 @@ def sense_masks() -> dict[str, int]:
 
 def link_value(name: str) -> int:
     return LINK[name][0]
+
+
+def link_table(split: bool) -> dict[str, tuple[int, str]]:
+    """The link's constants for a design: a STEP request carries its input record."""
+    out = dict(LINK)
+    out["STEP_IN_BYTES"] = (2 * len(adc_fields(split)), LINK["STEP_IN_BYTES"][1])
+    return out
 
 
 def macros() -> dict[str, int]:

@@ -55,6 +55,8 @@ class Resolved:
     vbus_range_V: float
     vac_offset_counts: float
     il_offset_counts: float
+    line_split: bool  # L and N sensed apart (``[sensing] line = "split"``)
+    ln_range_V: float
     adc_full_counts: int
     pwm_period_counts: int
 
@@ -67,6 +69,11 @@ class Resolved:
     def vac_V_per_count(self) -> float:
         """Line channel scale: vac_range over half the codes (bipolar)."""
         return self.vac_range_V / self.adc_half_counts
+
+    @property
+    def ln_V_per_count(self) -> float:
+        """L and N channel scale (split sensing): ln_range over all codes (unipolar)."""
+        return self.ln_range_V / self.adc_full_counts
 
     @property
     def il_A_per_count(self) -> float:
@@ -126,6 +133,8 @@ def resolve(cfg: Config, inductance_H: float, capacitance_F: float, il_peak_A: f
         vbus_range_V=_pick(se.vbus_range, RANGE_MARGIN * ov),
         vac_offset_counts=_pick(se.vac_offset, mid),
         il_offset_counts=_pick(se.il_offset, mid),
+        line_split=se.line == "split",
+        ln_range_V=_pick(se.ln_range, _pick(se.vbus_range, RANGE_MARGIN * ov)),
         adc_full_counts=2**se.adc_bits - 1,
         pwm_period_counts=int(round(c.pwm_timer_clock / s.fsw)),
     )
@@ -185,21 +194,7 @@ def _check(cfg: Config, r: Resolved) -> None:
         raise ConfigError(
             f"{src}: [protection] ov_trip = {r.ov_trip_V:g} V: must be > vout = {s.vout:g} V"
         )
-    checks = [
-        ("protection", "hw_ov_level", r.hw_ov_level_V, r.ov_trip_V, "V", "[protection] ov_trip"),
-        (
-            "protection",
-            "device_current_limit",
-            r.device_current_A,
-            r.oc_trip_A,
-            "A",
-            "[protection] oc_trip",
-        ),
-        ("sensing", "vac_range", r.vac_range_V, vpk_max, "V", "the highest line peak"),
-        ("sensing", "il_range", r.il_range_A, r.oc_trip_A, "A", "[protection] oc_trip"),
-        ("sensing", "vbus_range", r.vbus_range_V, r.ov_trip_V, "V", "[protection] ov_trip"),
-    ]
-    for table, key, val, need, unit, what in checks:
+    for table, key, val, need, unit, what in _range_checks(r, vpk_max):
         if val <= need:
             raise ConfigError(
                 f"{src}: [{table}] {key} = {val:g} {unit}: must exceed {what} = {need:.4g} {unit}"
@@ -222,3 +217,26 @@ def _check(cfg: Config, r: Resolved) -> None:
             f"{r.pwm_period_counts} counts per PWM period; "
             "at most 65535 fit the 16-bit compare"
         )
+
+
+def _range_checks(r: Resolved, vpk_max: float) -> list[tuple[str, str, float, float, str, str]]:
+    """(table, key, value, what it must exceed, unit, what that is) of each range rule."""
+    checks = [
+        ("protection", "hw_ov_level", r.hw_ov_level_V, r.ov_trip_V, "V", "[protection] ov_trip"),
+        (
+            "protection",
+            "device_current_limit",
+            r.device_current_A,
+            r.oc_trip_A,
+            "A",
+            "[protection] oc_trip",
+        ),
+        ("sensing", "vac_range", r.vac_range_V, vpk_max, "V", "the highest line peak"),
+        ("sensing", "il_range", r.il_range_A, r.oc_trip_A, "A", "[protection] oc_trip"),
+        ("sensing", "vbus_range", r.vbus_range_V, r.ov_trip_V, "V", "[protection] ov_trip"),
+    ]
+    if r.line_split:  # each of L and N swings from the bus minus to the bus plus
+        checks.append(
+            ("sensing", "ln_range", r.ln_range_V, r.ov_trip_V, "V", "[protection] ov_trip")
+        )
+    return checks

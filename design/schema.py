@@ -300,6 +300,20 @@ class SensingTable:
     """``[sensing]``: the ADC and the sensor front ends' full-scale ranges and offsets."""
 
     adc_bits: int = key("bit", "ADC resolution", 12, lo=8, hi=16)
+    line: str = key(
+        "",
+        "line-voltage sensing: 'bipolar' (one channel across L and N, 0 V at mid-scale) or "
+        "'split' (L and N each to the bus minus on its own unipolar channel, like the bus's; "
+        "the line is their difference)",
+        "bipolar",
+        choices=("bipolar", "split"),
+    )
+    ln_range: float | None = pos(
+        "V",
+        "split sensing: L or N voltage to the bus minus at ADC full scale (default the bus "
+        "channel's range: each node swings from the bus minus to the bus plus)",
+        hi=10000.0,
+    )
     vac_range: float | None = pos(
         "V",
         "line voltage at the top of the bipolar ADC range (default 1.25 x highest line peak)",

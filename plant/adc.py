@@ -12,11 +12,13 @@ from .layout import (
     L_GAIN0,
     L_GAIN1,
     L_GAIN2,
+    L_GAIN3,
     L_NOISE0,
     L_OFF0,
     P_FULL,
     P_IL_CPA,
     P_IL_OFF,
+    P_LN_CPV,
     P_VAC_CPV,
     P_VAC_OFF,
     P_VBUS_CPV,
@@ -47,15 +49,21 @@ def gauss(seed, k, ch):
 
 @jit_inline
 def adc_channel(par, lane, seed, j, k, ch, x):
-    """Code of channel ``ch`` (0 line voltage V, 1 inductor current A, 2 bus V) of lane ``j``
-    in conversion ``k``: scaling, gain and offset errors, seeded noise, rounding to the
-    nearest code, rails."""
+    """Code of channel ``ch`` (0 line voltage V, or L to the bus minus with split sensing;
+    1 inductor current A; 2 bus V; 3 N to the bus minus, split sensing) of lane ``j`` in
+    conversion ``k``: scaling, gain and offset errors, seeded noise, rounding to the nearest
+    code, rails."""
     if ch == 0:
-        raw = par[P_VAC_OFF] + x * (1.0 + lane[j, L_GAIN0]) * par[P_VAC_CPV]
+        if par[P_LN_CPV] > 0.0:
+            raw = x * (1.0 + lane[j, L_GAIN0]) * par[P_LN_CPV]
+        else:
+            raw = par[P_VAC_OFF] + x * (1.0 + lane[j, L_GAIN0]) * par[P_VAC_CPV]
     elif ch == 1:
         raw = par[P_IL_OFF] + x * (1.0 + lane[j, L_GAIN1]) * par[P_IL_CPA]
-    else:
+    elif ch == 2:
         raw = x * (1.0 + lane[j, L_GAIN2]) * par[P_VBUS_CPV]
+    else:
+        raw = x * (1.0 + lane[j, L_GAIN3]) * par[P_LN_CPV]
     raw = raw + lane[j, L_OFF0 + ch]
     z = lane[j, L_NOISE0 + ch]
     if z != 0.0:
@@ -65,8 +73,26 @@ def adc_channel(par, lane, seed, j, k, ch, x):
 
 @jit
 def adc_lanes(par, lane, seed, k, vac, il, vbus, codes):
-    """Conversion ``k`` of every lane: ``codes[j] = (vac, il, vbus)`` codes of lane ``j``."""
+    """Conversion ``k`` of every lane: ``codes[j] = (vac, il, vbus)`` codes of lane ``j``
+    (one bipolar line channel)."""
     for j in range(lane.shape[0]):
         codes[j, 0] = adc_channel(par, lane, seed, j, k, 0, vac[j])
         codes[j, 1] = adc_channel(par, lane, seed, j, k, 1, il[j])
         codes[j, 2] = adc_channel(par, lane, seed, j, k, 2, vbus[j])
+
+
+@jit_inline
+def neutral_V(gates, i_A, vterm_V, vbus_V, slow_lo, slow_hi):
+    """N to the bus minus at the sample (split sensing): on the bus minus while the slow leg's
+    low switch conducts (or, with both slow switches off, its body diode carries a forward
+    current), on the bus plus for the high one; with the slow leg off and no current the two
+    terminals float about the bus's midpoint (equal node capacitances)."""
+    if gates & slow_lo:
+        return 0.0
+    if gates & slow_hi:
+        return vbus_V
+    if i_A > 0.0:
+        return 0.0
+    if i_A < 0.0:
+        return vbus_V
+    return 0.5 * (vbus_V - vterm_V)

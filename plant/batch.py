@@ -121,12 +121,15 @@ class Plant:
             self.seed = np.zeros(n, dtype=np.uint64)
         self.lane = lane
         self.harm = grid.harm
-        self.codes = np.zeros((n, 3), dtype=np.uint16)
+        self.channels = 3 if sensors is None else sensors.s.channels
+        self.codes = np.zeros((n, self.channels), dtype=np.uint16)
         self.no_relay = np.zeros(n, dtype=np.uint8)
         self.ws = LY.workspace(n)
         self.failed = SensorFaults(
             n,
-            (self.par[LY.P_VAC_OFF], self.par[LY.P_IL_OFF], 0.0),
+            sensors.s.zero_counts
+            if sensors is not None
+            else (self.par[LY.P_VAC_OFF], self.par[LY.P_IL_OFF], 0.0),
             int(self.par[LY.P_FULL]),
         )
 
@@ -189,8 +192,8 @@ class Plant:
         """Advance every lane through period ``k`` (starting at ``k T``) with ``compare``
         (timer counts), ``gates`` (bit masks) and ``relay`` (the bypass relay's command, bit 0
         set: close; default open), arrays of shape (n,); the period's records go into ``out``
-        (n, len(FIELDS)); returns the ADC codes sampled in it, (n, 3) uint16 (into ``codes``
-        when given)."""
+        (n, len(FIELDS)); returns the ADC codes sampled in it, (n, channels) uint16 (into
+        ``codes`` when given; 4 channels with split line sensing)."""
         codes = self.codes if codes is None else codes
         relay = self.no_relay if relay is None else relay
         K.step_lanes(

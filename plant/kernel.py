@@ -13,7 +13,7 @@ from __future__ import annotations
 
 import math
 
-from .adc import adc_channel
+from .adc import adc_channel, neutral_V
 from .averaged import period_averaged
 from .jit import jit, jit_inline
 from .layout import (
@@ -455,8 +455,21 @@ def step_lanes(par, plans, lane, harm, seed, k, t, model, compare, gates, relay,
                 out[j],
             )
             lane[j, L_I], lane[j, L_VC] = i, vc
+    split = codes.shape[1] == 4
     for j in range(n):
-        codes[j, 0] = adc_channel(par, lane, seed, j, k, 0, out[j, R_VTERM])
+        if split:  # L and N apart, each to the bus minus
+            vn = neutral_V(
+                int(gates[j]),
+                out[j, R_ISAMPLE],
+                out[j, R_VTERM],
+                out[j, R_VBSAMPLE],
+                GATE_SLOW_LO,
+                GATE_SLOW_HI,
+            )
+            codes[j, 0] = adc_channel(par, lane, seed, j, k, 0, vn + out[j, R_VTERM])
+            codes[j, 3] = adc_channel(par, lane, seed, j, k, 3, vn)
+        else:
+            codes[j, 0] = adc_channel(par, lane, seed, j, k, 0, out[j, R_VTERM])
         codes[j, 1] = adc_channel(par, lane, seed, j, k, 1, out[j, R_ISAMPLE])
         codes[j, 2] = adc_channel(par, lane, seed, j, k, 2, out[j, R_VBSAMPLE])
         advance_phase(lane, j, T)

@@ -32,20 +32,23 @@ TWO_PI = 2.0 * math.pi
     L_GAIN0,
     L_GAIN1,
     L_GAIN2,
+    L_GAIN3,
     L_OFF0,
     L_OFF1,
     L_OFF2,
+    L_OFF3,
     L_NOISE0,
     L_NOISE1,
     L_NOISE2,
+    L_NOISE3,
     L_S0,
     L_C0,
     L_RELAY_CMD,
     L_RELAY_T,
-) = range(25)
+) = range(28)
 # L_S0, L_C0: sin and cos of L_THETA, carried along by rotation; L_RELAY_CMD, L_RELAY_T: the
-# relay's last command (1 close) and when it changed (s)
-LANE_ROWS = 25
+# relay's last command (1 close) and when it changed (s); *3: the N channel of split sensing
+LANE_ROWS = 28
 
 # entries of the parameter vector (``par``)
 (
@@ -75,8 +78,10 @@ LANE_ROWS = 25
     P_CORE_C,
     P_CORE_BETA,
     P_ACX,
-) = range(26)  # CPV/CPA: counts per V/A; the last six: the loss model (``plant.losses``)
-PAR_ROWS = 26
+    P_LN_CPV,
+) = range(27)  # CPV/CPA: counts per V/A; P_CNODE..P_ACX: the loss model (``plant.losses``);
+# P_LN_CPV: split line sensing's L and N channels, counts per V (0: one bipolar line channel)
+PAR_ROWS = 27
 
 # plant records per period (columns of ``out``, shape (n, len(FIELDS))), in this order
 FIELDS = (

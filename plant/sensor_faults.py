@@ -2,7 +2,8 @@
 applied to the codes after the conversion (``plant.adc``), so every controller sees the same
 failure whatever computes its outputs.
 
-Faults (``FAULTS``), on channel ``ch`` (0 line voltage, 1 inductor current, 2 bus voltage):
+Faults (``FAULTS``), on channel ``ch`` (0 line voltage, 1 inductor current, 2 bus voltage;
+with split line sensing 0 is L and 3 is N, each to the bus minus):
 
 - ``stuck``: the code is ``value`` (counts) whatever the signal;
 - ``offset``: ``value`` counts added to the code;
@@ -20,7 +21,15 @@ from __future__ import annotations
 import numpy as np
 
 FAULTS = ("stuck", "offset", "gain", "glitch", "open")
-CHANNELS = ("vac", "il", "vbus")
+CHANNELS = ("vac", "il", "vbus")  # one bipolar line channel
+CHANNELS_SPLIT = ("vl", "il", "vbus", "vn")  # L and N apart
+
+
+def channel_names(split: bool) -> tuple[str, ...]:
+    """The ADC channels' names in a scenario's sensor events, in the input record's order."""
+    return CHANNELS_SPLIT if split else CHANNELS
+
+
 NONE, STUCK, OFFSET, GAIN, GLITCH, OPEN = range(6)
 
 
@@ -28,10 +37,11 @@ class SensorFaults:
     """The active sensor faults of ``n`` lanes; ``zero_counts``: the code of 0 V / 0 A per
     channel; ``full_counts``: the top code."""
 
-    def __init__(self, n: int, zero_counts: tuple[float, float, float], full_counts: int):
-        self.kind = np.zeros((n, 3), dtype=np.int8)
-        self.value = np.zeros((n, 3))
-        self.until_s = np.full((n, 3), np.inf)
+    def __init__(self, n: int, zero_counts: tuple[float, ...], full_counts: int):
+        nch = len(zero_counts)
+        self.kind = np.zeros((n, nch), dtype=np.int8)
+        self.value = np.zeros((n, nch))
+        self.until_s = np.full((n, nch), np.inf)
         self.zero = np.asarray(zero_counts, dtype=float)
         self.full = float(full_counts)
         self.active = False
@@ -45,7 +55,7 @@ class SensorFaults:
         self.active = True
 
     def apply(self, t_s: float, codes: np.ndarray) -> None:
-        """Overwrite ``codes`` (n, 3) uint16 of the period starting at ``t_s`` in place."""
+        """Overwrite ``codes`` (n, channels) uint16 of the period starting at ``t_s`` in place."""
         if not self.active:
             return
         ended = (self.kind != NONE) & (t_s >= self.until_s)

@@ -1,7 +1,9 @@
 """ADC model: scaling, gain and offset errors, seeded noise, quantisation, rails.
 
 Bipolar channels (line voltage, inductor current): ``code = offset + x/scale``;
-unipolar bus: ``code = x/scale``.  Each true value is multiplied by ``1 + gain_err``,
+unipolar bus: ``code = x/scale``.  With split line sensing (``ln_V_per_count`` > 0) the line
+channel is replaced by L to the bus minus (channel 0) and N to the bus minus (channel 3),
+both unipolar like the bus.  Each true value is multiplied by ``1 + gain_err``,
 shifted by ``offset_err`` codes, has Gaussian noise of ``noise`` codes rms added,
 is rounded to the nearest code and clipped to ``0..full``.
 
@@ -29,6 +31,19 @@ class AdcScaling:
     il_A_per_count: float
     il_offset_counts: float
     vbus_V_per_count: float
+    ln_V_per_count: float = 0.0  # > 0: split line sensing (L and N apart)
+
+    @property
+    def channels(self) -> int:
+        """ADC channels per conversion: 3, or 4 with split line sensing."""
+        return 4 if self.ln_V_per_count > 0.0 else 3
+
+    @property
+    def zero_counts(self) -> tuple[float, ...]:
+        """The code of 0 V / 0 A of each channel."""
+        if self.channels == 4:
+            return (0.0, self.il_offset_counts, 0.0, 0.0)
+        return (self.vac_offset_counts, self.il_offset_counts, 0.0)
 
 
 class Sensors:
@@ -42,8 +57,9 @@ class Sensors:
         noise=(0.0, 0.0, 0.0),
     ):
         """``seed``: scalar or per lane; ``gain_err``, ``offset_err`` (codes), ``noise`` (codes
-        rms):
-        per channel (vac, il, vbus), scalars or arrays of shape (n,)."""
+        rms): per channel (vac, il, vbus; with split sensing a fourth, N: when only three are
+        given, N has the line channel's noise and no gain or offset error), scalars or arrays
+        of shape (n,)."""
         self.s = scaling
         self.n = n
         self.seed = np.broadcast_to(np.asarray(seed, dtype=np.uint64), (n,)).copy()
@@ -51,6 +67,10 @@ class Sensors:
         self.gain = [np.broadcast_to(np.asarray(g, dtype=float), (n,)) for g in gain_err]
         self.offset = [np.broadcast_to(np.asarray(o, dtype=float), (n,)) for o in offset_err]
         self.noise = [np.broadcast_to(np.asarray(z, dtype=float), (n,)) for z in noise]
+        zero = np.zeros(n)
+        for got, fill in ((self.gain, zero), (self.offset, zero), (self.noise, self.noise[0])):
+            if len(got) < scaling.channels:
+                got.append(fill)
 
     def pack(self, par: np.ndarray, lane: np.ndarray) -> None:
         """Write the scaling into the kernel's parameter vector and each lane's errors into
@@ -66,7 +86,8 @@ class Sensors:
             s.il_offset_counts,
             1.0 / s.vbus_V_per_count,
         )
-        for ch in range(3):
+        par[LY.P_LN_CPV] = 1.0 / s.ln_V_per_count if s.ln_V_per_count > 0.0 else 0.0
+        for ch in range(s.channels):
             lane[:, LY.L_GAIN0 + ch], lane[:, LY.L_OFF0 + ch], lane[:, LY.L_NOISE0 + ch] = (
                 self.gain[ch],
                 self.offset[ch],
@@ -75,7 +96,9 @@ class Sensors:
 
     def convert(self, vac_V, il_A, vbus_V) -> np.ndarray:
         """Codes, shape (n, 3) uint16 in channel order (vac, il, vbus); each call is the next
-        conversion."""
+        conversion (one bipolar line channel)."""
+        if self.s.channels != 3:
+            raise ValueError("convert() takes one bipolar line channel, not split sensing")
         par, lane = np.zeros(LY.PAR_ROWS), np.zeros((self.n, LY.LANE_ROWS))
         self.pack(par, lane)
         out = np.empty((self.n, 3), dtype=np.uint16)

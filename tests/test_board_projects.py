@@ -1,6 +1,7 @@
 """Board projects (``pfcrig generate --board``): both boards build with their own Makefile,
 boot on QEMU and run the lockstep link with every output equal to the in-process run
-(float32 on the Cortex-M4F of mps2-an386, q15 on the Cortex-M3 of mps2-an385)."""
+(float32 on the Cortex-M4F of mps2-an386, q15 on the Cortex-M3 of mps2-an385), with the line
+read on one bipolar channel or as L and N apart (``[sensing] line = "split"``)."""
 
 from __future__ import annotations
 
@@ -38,14 +39,18 @@ def test_board_list_and_refusals(demo_path, tmp_path, capsys):
 
 @pytest.mark.slow
 @pytest.mark.skipif(not TOOLS, reason="needs arm-none-eabi-gcc, make and qemu-system-arm")
-@pytest.mark.parametrize("board,fmt", BOARDS)
+@pytest.mark.parametrize(
+    "board,fmt,line", [(b, f, "bipolar") for b, f in BOARDS] + [("mps2-an385", "q15", "split")]
+)
 def test_board_project_builds_boots_and_equals_the_in_process_run(
-    demo_project, tmp_path, board, fmt
+    demo_project, tmp_path, board, fmt, line
 ):
-    prj = from_config(demo_project.config.replace("control", number_format=fmt))
+    cfg0 = demo_project.config.replace("control", number_format=fmt)
+    prj = from_config(cfg0.replace("sensing", line=line))
     cfg = tmp_path / "cfg.toml"
-    text = DEMO.read_text()
-    cfg.write_text(text.replace('number_format = "float32"', f'number_format = "{fmt}"'))
+    text = DEMO.read_text().replace('number_format = "float32"', f'number_format = "{fmt}"')
+    assert "adc_bits = 12\n" in text
+    cfg.write_text(text.replace("adc_bits = 12\n", f'adc_bits = 12\nline = "{line}"\n'))
     out = tmp_path / "fw"
     assert main(["generate", str(cfg), "-o", str(out), "--board", board]) == 0
     for f in ("Makefile", "CMakeLists.txt", "README.md", "pfc_board_port.h", "pfc_isr.c"):

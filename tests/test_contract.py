@@ -72,8 +72,11 @@ def test_host_side_reads_the_same_numbers():
     sof = bytes([contract.link_value("SOF0"), contract.link_value("SOF1")])
     assert link.SOF == sof  # noqa: SIM300
     assert (link.HELLO, link.RESET, link.STEP, link.SNAPSHOT, link.COST) == (1, 2, 3, 4, 5)
-    # the largest payload: a count byte and MAX_STEPS periods of the larger record (the answer)
-    step_bytes = max(contract.link_value("STEP_IN_BYTES"), contract.link_value("STEP_OUT_BYTES"))
+    # the largest payload: a count byte and MAX_STEPS periods of the widest record (a STEP
+    # request with split line sensing)
+    widest_in = contract.link_table(True)["STEP_IN_BYTES"][0]
+    assert widest_in == 2 * len(contract.ADC_FIELDS_SPLIT) == 8
+    step_bytes = max(widest_in, contract.link_value("STEP_OUT_BYTES"))
     assert link.MAX_PAYLOAD == 1 + link.MAX_STEPS_PER_FRAME * step_bytes  # noqa: SIM300
     # CRC-16/CCITT-FALSE check value of "123456789" is 0x29B1 (the catalogue of CRC parameters)
     assert link.crc16(b"123456789") == 0x29B1

@@ -56,9 +56,9 @@ class Case:
     h3_deg: float = 0.0
     h5: float = 0.0
     h5_deg: float = 0.0
-    noise_counts: tuple[float, float, float] = (0.0, 0.0, 0.0)
-    offset_counts: tuple[float, float, float] = (0.0, 0.0, 0.0)
-    gain_error: tuple[float, float, float] = (0.0, 0.0, 0.0)
+    noise_counts: tuple[float, ...] = (0.0, 0.0, 0.0)
+    offset_counts: tuple[float, ...] = (0.0, 0.0, 0.0)
+    gain_error: tuple[float, ...] = (0.0, 0.0, 0.0)
     seed: int = 0
     event: str = "none"  # none, dip, load
     residual: float = 1.0
@@ -135,13 +135,16 @@ def settle_s(prj: Project) -> float:
 
 
 def sensor_fault_of(
-    full_counts: int, freq_Hz: float, settle: float = SETTLE_S
+    full_counts: int,
+    freq_Hz: float,
+    settle: float = SETTLE_S,
+    channels: tuple[str, ...] = CHANNELS,
 ) -> st.SearchStrategy[dict[str, Any]]:
     """A failed sensor: each channel, each fault, any value the ADC can hold, at any phase
     and in any mode (from power-up to a line cycle after the settling time); the only fault
-    of its case (no line or load event)."""
+    of its case (no line or load event). ``channels``: the design's ADC channels."""
     last = 360.0 * (math.ceil(settle * freq_Hz) + 1)
-    ch = st.sampled_from(CHANNELS)
+    ch = st.sampled_from(channels)
     code = st.integers(0, full_counts).map(float)
     value = {
         "stuck": code,
@@ -202,13 +205,21 @@ def distortion() -> st.SearchStrategy[dict[str, Any]]:
     )
 
 
-def sensor_errors() -> st.SearchStrategy[dict[str, Any]]:
-    """Noise (codes rms), offsets (codes) and gain errors per channel, and the noise seed."""
+def sensor_errors(channels: int = 3) -> st.SearchStrategy[dict[str, Any]]:
+    """Noise (codes rms), offsets (codes) and gain errors per channel (``channels``: 3, or 4
+    with split line sensing: the N channel's own), and the noise seed."""
+
+    def per(lo: float, hi: float) -> st.SearchStrategy[tuple[float, ...]]:
+        three = _triple(lo, hi)
+        if channels == 3:
+            return three
+        return st.tuples(three, _floats(lo, hi)).map(lambda t: (*t[0], t[1]))
+
     return st.fixed_dictionaries(
         {
-            "noise_counts": _triple(0.0, 1.5),
-            "offset_counts": _triple(-3.0, 3.0),
-            "gain_error": _triple(-0.01, 0.01),
+            "noise_counts": per(0.0, 1.5),
+            "offset_counts": per(-3.0, 3.0),
+            "gain_error": per(-0.01, 0.01),
             "seed": st.integers(0, 2**32 - 1),
         }
     )
@@ -252,9 +263,11 @@ def cases(
     freq_range: tuple[float, float] = (45.0, 66.0),
     sensor_full_counts: int = 0,
     settle: float = SETTLE_S,
+    channels: tuple[str, ...] = CHANNELS,
 ) -> st.SearchStrategy[Case]:
     """Whole cases: a line over ``vrms_range`` (Vrms) and ``freq_range`` (Hz), then the
-    other pieces joined with ``st.builds``; events after ``settle`` (s, ``settle_s``)."""
+    other pieces joined with ``st.builds``; events after ``settle`` (s, ``settle_s``);
+    ``channels``: the design's ADC channels (``plant.sensor_faults.channel_names``)."""
 
     def around(line: tuple[float, float]) -> st.SearchStrategy[Case]:
         vrms, f = line
@@ -265,9 +278,9 @@ def cases(
                 kw.update(part)
             return Case(vrms_V=vrms, freq_Hz=f, settle_s=settle, **kw)
 
-        parts = [distortion(), sensor_errors(), loads(), events(f, max_event_cycles)]
+        parts = [distortion(), sensor_errors(len(channels)), loads(), events(f, max_event_cycles)]
         if sensor_full_counts:
-            parts.append(sensor_fault_of(sensor_full_counts, f, settle))
+            parts.append(sensor_fault_of(sensor_full_counts, f, settle, channels))
         return st.builds(join, *parts)
 
     return st.tuples(_floats(*vrms_range), _floats(*freq_range)).flatmap(around)
@@ -346,7 +359,8 @@ def draw_cases(
     freq_range: tuple[float, float] = (45.0, 66.0),
     sensor_full_counts: int = 0,
     settle: float = SETTLE_S,
+    channels: tuple[str, ...] = CHANNELS,
 ) -> list[Case]:
     """``n`` distinct cases drawn by hypothesis, reproducibly from ``seed``."""
-    strat = cases(max_event_cycles, vrms_range, freq_range, sensor_full_counts, settle)
+    strat = cases(max_event_cycles, vrms_range, freq_range, sensor_full_counts, settle, channels)
     return draw_distinct(strat, n, seed, group=8)

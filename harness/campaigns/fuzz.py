@@ -15,6 +15,7 @@ from codegen.files import atomic_path
 from design.project import Project, from_config
 from harness.closedloop.loop import RunResult, run
 from harness.closedloop.scenario import Scenario, dumps
+from plant.sensor_faults import channel_names
 
 from .cases import Case, draw_cases, line_ranges, settle_s
 from .invariants import INVARIANTS, check_lane
@@ -158,7 +159,10 @@ def campaign(
     t0 = time.perf_counter()
     vrms_range, freq_range = line_ranges(prj)
     full = prj.resolved.adc_full_counts if sensor_faults else 0
-    cases = draw_cases(n, seed, max_event_cycles, vrms_range, freq_range, full, settle_s(prj))
+    names = channel_names(prj.resolved.line_split)
+    cases = draw_cases(
+        n, seed, max_event_cycles, vrms_range, freq_range, full, settle_s(prj), names
+    )
     done = recorder.done() if recorder else {}
     by_idx = {i: Verdict(cases[i], *done[i]) for i in done if i < len(cases)}
     todo = [i for i in range(len(cases)) if i not in by_idx]

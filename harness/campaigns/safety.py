@@ -30,7 +30,7 @@ from collections.abc import Callable
 
 import numpy as np
 
-from design.contract import CHANNEL_FAULT, Channel, Mode
+from design.contract import CHANNEL_FAULT, FIELD_CHANNEL, Channel, Mode
 from design.rules import (
     HALF_MIN_FREQ_MARGIN,
     IL_PLAUS_PERIODS,
@@ -58,12 +58,21 @@ def sensor_events(ln: Lane) -> list[Event]:
 
 def _zero_code(ln: Lane, ch: int) -> float:
     r = ln.prj.resolved
+    if r.line_split and ch == Channel.VAC:
+        return 0.0  # L and N: unipolar, each from the bus minus
     return (r.vac_offset_counts, r.il_offset_counts, 0.0)[ch]
 
 
 def _per_count(ln: Lane, ch: int) -> float:
     r = ln.prj.resolved
+    if r.line_split and ch == Channel.VAC:
+        return r.ln_V_per_count
     return (r.vac_V_per_count, r.il_A_per_count, r.vbus_V_per_count)[ch]
+
+
+def channel_of(ev: Event) -> Channel:
+    """The logical channel a sensor event's ADC channel belongs to (L and N: the line)."""
+    return Channel(FIELD_CHANNEL[ev.word("channel")])
 
 
 def bus_hidden(ln: Lane, ev: Event) -> bool:
@@ -86,7 +95,7 @@ def detectable(ln: Lane, ev: Event) -> tuple[bool, int, bool]:
     bits must name the channel) for a lasting fault that starts while the stage is running.
     A line channel reading 0 V (open, or stuck near its zero code) is a line loss to any
     controller: gates off, not named."""
-    ch, f = Channel[ev.word("channel").upper()], ev.word("fault")
+    ch, f = channel_of(ev), ev.word("fault")
     pr, fsw = ln.prj.config.sensing, ln.prj.config.spec.fsw
     quarter = int(math.ceil(fsw / (4.0 * ln.scn.freq_Hz)))
     full = ln.prj.resolved.adc_full_counts
@@ -117,6 +126,13 @@ def detectable(ln: Lane, ev: Event) -> tuple[bool, int, bool]:
         )
         loaded = ln.scn.load_power_W > 0.2 * ln.prj.config.spec.power
         return near_zero and loaded, quarter + IL_PLAUS_PERIODS + RESPONSE_PERIODS, True
+    if ln.prj.resolved.line_split:
+        # L or N failed: a railed one is named (sense block); any other code makes the line
+        # reading vl - vn wrong by up to the bus in one half or both (no frozen reading: the
+        # other node still moves), so the stage must stop, as for an implausible line, but
+        # need not say which channel
+        half = int(math.ceil(fsw / (2.0 * ln.prj.config.protection.freq_min)))
+        return True, 3 * half + pr.rail_periods + quarter, value >= full - 2
     # the line channel: railed or frozen away from zero (sense block), or at zero (line loss)
     at_zero = abs(value - _zero_code(ln, ch)) * _per_count(ln, ch) < ln.prj.resolved.zc_blank_V
     stuck = int(1.5 * fsw / (2.0 * ln.prj.config.protection.freq_min))
@@ -158,8 +174,8 @@ def fault_response(ln: Lane) -> str | None:
                 f"{ev.word('channel')} {ev.word('fault')} at t = {ev.t_s:g} s: gates on at "
                 f"t = {t[k1 + on[0]]:.5f} s, {k1 + on[0] - k0} periods after (bound {bound})"
             )
-        bit = int(CHANNEL_FAULT[int(Channel[ev.word("channel").upper()])])
-        if ev.word("channel") in ("vac", "vbus"):
+        bit = int(CHANNEL_FAULT[int(channel_of(ev))])
+        if channel_of(ev) in (Channel.VAC, Channel.VBUS):
             # the current check sets the current's change against the duty, the line and the
             # bus readings: a wrong line or bus reading makes them disagree too, and it may
             # see that first and name the current channel

@@ -42,6 +42,7 @@ DERIVED = {
     ("sensing", "vac_range"): "vac_range_V",
     ("sensing", "il_range"): "il_range_A",
     ("sensing", "vbus_range"): "vbus_range_V",
+    ("sensing", "ln_range"): "ln_range_V",
     ("sensing", "vac_offset"): "vac_offset_counts",
     ("sensing", "il_offset"): "il_offset_counts",
 }

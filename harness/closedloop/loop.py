@@ -18,13 +18,14 @@ from dataclasses import dataclass, field
 import numpy as np
 
 from codegen.build import build_project
-from design.contract import ADC_FIELDS, OUTPUT_FIELDS, PROBES, Gate
+from design.config import ConfigError
+from design.contract import OUTPUT_FIELDS, PROBES, Gate, adc_fields
 from design.project import Project
 from plant.batch import FIELDS as PLANT_FIELDS
 from plant.batch import Plant
 from plant.grid import Grid
 from plant.load import Load
-from plant.sensor_faults import CHANNELS
+from plant.sensor_faults import channel_names
 from plant.sensors import AdcScaling, Sensors
 from plant.stage import StageParams
 
@@ -91,7 +92,31 @@ def adc_scaling(prj: Project) -> AdcScaling:
         r.il_A_per_count,
         r.il_offset_counts,
         r.vbus_V_per_count,
+        r.ln_V_per_count if r.line_split else 0.0,
     )
+
+
+def check_channels(prj: Project, scenarios) -> None:
+    """Refuse a scenario whose sensor settings or events name channels the design lacks."""
+    split = prj.resolved.line_split
+    names = channel_names(split)
+    for s in scenarios:
+        where = s.path or s.name
+        for what in ("noise_counts", "gain_error", "offset_counts"):
+            got = getattr(s, what)
+            if len(got) > len(names):
+                raise ConfigError(
+                    f"{where}: [sensors] {what} has {len(got)} entries: this design has one "
+                    "bipolar line channel, so three [line, current, bus] (four are for split "
+                    "line sensing)"
+                )
+        for ev in s.events:
+            if ev.kind == "sensor" and ev.word("channel") not in names:
+                raise ConfigError(
+                    f"{where}: sensor event at t = {ev.t_s:g} s names channel "
+                    f"{ev.word('channel')!r}: this design's channels are {', '.join(names)} "
+                    f"([sensing] line = {'split' if split else 'bipolar'})"
+                )
 
 
 @dataclass
@@ -175,7 +200,7 @@ class Controllers:
         self.pwm = ffi.new(f"{self.p}_pwm_t[{n}]")
         assert ffi.sizeof(f"{self.p}_pwm_t") == PWM_DTYPE.itemsize
         self.adc_view = np.frombuffer(ffi.buffer(self.adc), dtype=np.uint16).reshape(
-            n, len(ADC_FIELDS)
+            n, len(adc_fields(prj.resolved.line_split))
         )
         self.pwm_view = np.frombuffer(ffi.buffer(self.pwm), dtype=PWM_DTYPE)
         self.probe = ffi.new(f"float[{N_PROBES * n}]")
@@ -235,6 +260,31 @@ def zeros_mapped(shape, dtype) -> np.ndarray:
     return np.frombuffer(mm, dtype=dtype).reshape(shape)
 
 
+def _sensors(prj: Project, scenarios: list[Scenario]) -> Sensors:
+    """The ADC of every lane, with each scenario's sensor errors (refused when they name
+    channels the design lacks)."""
+    check_channels(prj, scenarios)
+    scaling = adc_scaling(prj)
+
+    def per_channel(what: str) -> list:
+        # N left out (three entries on a split design): the line's noise, no gain or offset error
+        vals = [getattr(s, what) for s in scenarios]
+        fill = (lambda v: v[0]) if what == "noise_counts" else (lambda v: 0.0)
+        return [
+            np.array([v[ch] if ch < len(v) else fill(v) for v in vals])
+            for ch in range(scaling.channels)
+        ]
+
+    return Sensors(
+        scaling,
+        len(scenarios),
+        seed=[s.seed for s in scenarios],
+        gain_err=per_channel("gain_error"),
+        offset_err=per_channel("offset_counts"),
+        noise=per_channel("noise_counts"),
+    )
+
+
 def run(
     prj: Project,
     scenarios: list[Scenario],
@@ -273,14 +323,8 @@ def run(
         spec.vout,
         uvlo_V=spec.vout_min_holdup,
     )
-    sens = Sensors(
-        adc_scaling(prj),
-        n,
-        seed=[s.seed for s in scenarios],
-        gain_err=tuple(np.array([s.gain_error[ch] for s in scenarios]) for ch in range(3)),
-        offset_err=tuple(np.array([s.offset_counts[ch] for s in scenarios]) for ch in range(3)),
-        noise=tuple(np.array([s.noise_counts[ch] for s in scenarios]) for ch in range(3)),
-    )
+    sens = _sensors(prj, scenarios)
+    scaling = sens.s
     # precharge: the body diodes rectify the line into the bus before any switching
     vpk = np.sqrt(2.0) * np.array([s.vrms_V for s in scenarios]) * 0.98
     plant = Plant(sp, grid, load, sens, 0.0, vpk)
@@ -289,7 +333,7 @@ def run(
     # the controller's outputs of period k are the plant's inputs in period k + 1: the plant
     # reads them where the controller leaves them (in-process: the C structs themselves)
     pwm = ctl.pwm_view if local else np.zeros(n, dtype=PWM_DTYPE)
-    codes = ctl.adc_view if local else np.zeros((n, 3), dtype=np.uint16)
+    codes = ctl.adc_view if local else np.zeros((n, scaling.channels), dtype=np.uint16)
     compare, gates, relay = pwm["compare"], pwm["gates"], pwm["status"]
 
     events = [list(s.events) for s in scenarios]
@@ -382,4 +426,5 @@ def _apply(plant: Plant, j: int, ev, t: float) -> None:
         else:
             until = t + ev.get("duration", float("inf"))
         value = ev.get("value", 0.0) if fault == "gain" else ev.get("value_counts", 0.0)
-        plant.sensor_fault(j, CHANNELS.index(ev.word("channel")), fault, value, until)
+        names = channel_names(plant.channels == 4)
+        plant.sensor_fault(j, names.index(ev.word("channel")), fault, value, until)

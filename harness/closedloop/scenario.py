@@ -12,6 +12,7 @@ dc = 0.0                       # V, optional
 kind = "resistive"             # or "constant_power"
 power = 1500.0                 # W
 [sensors]                      # optional, per channel [line, current, bus]
+                               # ([L, current, bus, N] with split line sensing)
 noise_counts = [0.0, 0.0, 0.0]
 gain_error = [0.0, 0.0, 0.0]
 offset_counts = [0.0, 0.0, 0.0]
@@ -24,7 +25,7 @@ cycles = 1.0
 [[event]]                      # a failed sensor (plant.sensor_faults)
 t = 0.3
 kind = "sensor"
-channel = "vbus"               # vac, il or vbus
+channel = "vbus"               # vac, il or vbus (vl, il, vbus or vn with split line sensing)
 fault = "stuck"                # stuck, offset (value_counts); gain (value);
 value_counts = 0               # glitch (value_counts, periods); open
 duration = 0.1                 # s, optional: for good without it
@@ -38,7 +39,7 @@ from dataclasses import dataclass, field
 from pathlib import Path
 
 from design.config import ConfigError, read_toml
-from plant.sensor_faults import CHANNELS, FAULTS
+from plant.sensor_faults import CHANNELS, CHANNELS_SPLIT, FAULTS
 
 EVENT_KEYS = {
     "dip": {"residual": (0.0, 1.0), "cycles": (0.0, 10000.0)},
@@ -86,9 +87,10 @@ class Scenario:
     harmonics: tuple[tuple[int, float, float], ...] = ()
     dc_V: float = 0.0
     events: tuple[Event, ...] = ()
-    noise_counts: tuple[float, float, float] = (0.0, 0.0, 0.0)
-    gain_error: tuple[float, float, float] = (0.0, 0.0, 0.0)
-    offset_counts: tuple[float, float, float] = (0.0, 0.0, 0.0)
+    # per ADC channel: (line, current, bus), or (L, current, bus, N) with split line sensing
+    noise_counts: tuple[float, ...] = (0.0, 0.0, 0.0)
+    gain_error: tuple[float, ...] = (0.0, 0.0, 0.0)
+    offset_counts: tuple[float, ...] = (0.0, 0.0, 0.0)
     seed: int = 0
     name: str = "scenario"
     path: str = field(default="", compare=False)  # the file it was read from ("": made in code)
@@ -113,8 +115,13 @@ def _known(src, table, given, allowed):
 
 
 def _triple(src, where, v, lo, hi):
-    if not isinstance(v, list) or len(v) != 3:
-        raise ConfigError(f"{src}: {where} = {v!r}: expected three numbers [line, current, bus]")
+    """Per ADC channel: [line, current, bus], or [L, current, bus, N] for a design with split
+    line sensing (checked against the design when run)."""
+    if not isinstance(v, list) or len(v) not in (3, 4):
+        raise ConfigError(
+            f"{src}: {where} = {v!r}: expected three numbers [line, current, bus] (four with "
+            "split line sensing: [L, current, bus, N])"
+        )
     return tuple(_num(src, where, x, lo, hi) for x in v)
 
 
@@ -157,7 +164,7 @@ def _word(src: str, where: str, e: dict, key: str, allowed: tuple[str, ...]) -> 
 
 
 def _sensor_event(src: str, where: str, t: float, e: dict) -> Event:
-    channel = _word(src, where, e, "channel", CHANNELS)
+    channel = _word(src, where, e, "channel", tuple(dict.fromkeys(CHANNELS + CHANNELS_SPLIT)))
     fault = _word(src, where, e, "fault", FAULTS)
     keys = dict(SENSOR_KEYS[fault])
     allowed = ["channel", "fault", *keys, "duration"]

@@ -11,7 +11,8 @@ numbers its requests; the target answers each with the same ``seq``.  Types:
                                   sizeof ctrl u16, digest (16 ASCII hex), prefix (ASCII)
     RESET 0x02 / RESET_ACK 0x82   the controller is re-initialised (refused while it is latched
                                   or in a sensor fault)
-    STEP  0x03 / STEP_ACK  0x83   step: n u8, then n x (vac u16, il u16, vbus u16);
+    STEP  0x03 / STEP_ACK  0x83   step: n u8, then n x (vac u16, il u16, vbus u16), or with
+                                  split line sensing n x (vl, il, vbus, vn u16);
                                   ack:  n u8, then n x (compare u16, gates u8, mode u8,
                                         faults u16, status u8)
     SNAPSHOT 0x04 / 0x84          request: offset u16; ack: state size u16, offset u16, then up
@@ -120,11 +121,12 @@ class Decoder:
 
 
 def step_payload(codes) -> bytes:
-    """n x (vac, il, vbus) counts -> STEP payload."""
+    """n x (the input record's counts: vac, il, vbus; or vl, il, vbus, vn) -> STEP payload."""
     rows = [tuple(int(x) for x in r) for r in codes]
     if not 1 <= len(rows) <= MAX_STEPS_PER_FRAME:
         raise ValueError(f"1..{MAX_STEPS_PER_FRAME} periods per frame, not {len(rows)}")
-    return bytes([len(rows)]) + b"".join(struct.pack("<HHH", *r) for r in rows)
+    fmt = "<" + "H" * len(rows[0])
+    return bytes([len(rows)]) + b"".join(struct.pack(fmt, *r) for r in rows)
 
 
 def parse_step_ack(payload: bytes) -> list[tuple[int, int, int, int, int]]:
