@@ -9,11 +9,13 @@ from .derive import ramp_charge_W
 from .project import Project
 from .rules import (
     DIODE_MARGIN_OF_VOUT,
+    FF_STEP_OF_VPK_MIN,
     IREF_MAX_OF_OC,
     IREF_MAX_OF_PEAK,
     LINE_LOSS_RESET_S,
     PCMD_MAX_OF_RATED,
     PRECHARGE_OF_PEAK,
+    RAMP_HOLD_OF_VOUT,
     SOFT_START_CHARGE_OF_RATED,
     SOFT_START_MIN_S,
     TRIP_DECAY_S,
@@ -87,6 +89,15 @@ def vloop(add: Add, prj: Project) -> None:
         "V",
         "lag of the half-cycle bus mean behind the ramp",
         "VREF_STEP_V x half a half-period of samples",
+        (vb, 15),
+    )
+    add(
+        "RAMP_HOLD_V",
+        step * fsw / (2.0 * s.line_freq) / 2.0 + RAMP_HOLD_OF_VOUT * s.vout,
+        "f",
+        "V",
+        "the soft-start ramp waits while the bus mean lags it by more than this",
+        f"RAMP_LAG_V + {RAMP_HOLD_OF_VOUT:g} x vout",
         (vb, 15),
     )
     add(
@@ -168,6 +179,35 @@ def iloop(add: Add, prj: Project) -> None:
         "current PI integral gain x PWM period (backward Euler)",
         f"tuning: Ki = {i.ki:.6g} 1/(A s)",
         (1.0 / ib, 31),
+    )
+    fc = prj.resolved.ff_corner_Hz
+    add(
+        "FF_K",
+        1.0 - math.exp(-2.0 * math.pi * fc / s.fsw),
+        "f",
+        "1",
+        "step of the first-order low-pass on |v| feeding the duty feedforward, "
+        "1 - exp(-2 pi f_c / fsw)",
+        f"[control] ff_corner = {fc:.6g} Hz"
+        + (
+            ""
+            if prj.config.control.ff_corner
+            else (f" (rule: fsw / {s.fsw / fc:g})" if math.isfinite(fc) else " (no input filter)")
+        ),
+        (1.0, 15),
+    )
+    vpk_min = math.sqrt(2.0) * prj.config.spec.vin_rms_min
+    add(
+        "FF_STEP_V",
+        FF_STEP_OF_VPK_MIN * vpk_min,
+        "f",
+        "V",
+        "a change of |v| beyond this from the feedforward's filtered value is a line step (a "
+        "dip's end, a swell) and passes at once: a filter lag there leaves the duty set for "
+        "the old line while the current rises",
+        f"rule: {FF_STEP_OF_VPK_MIN:g} x the lowest line peak ({vpk_min:.4g} V); the line "
+        "itself moves at most 2 pi f_line Vpk / fsw per period",
+        (vb, 15),
     )
     add(
         "DEAD_TIME_DUTY",

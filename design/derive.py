@@ -15,6 +15,7 @@ from .rules import (
     BROWNOUT_ON_OF_VMIN,
     CURRENT_BW_DIVISOR,
     DEVICE_OF_OC,
+    FF_CORNER_DIVISOR,
     HW_OV_OF_VOUT,
     HYST_OF_VPK_MIN,
     MAX_PERIOD_COUNTS,
@@ -38,8 +39,11 @@ class Resolved:
     inductance_H: float
     capacitance_F: float
     current_bandwidth_Hz: float
+    ff_corner_Hz: float
     soft_start_s: float
     node_capacitance_F: float
+    x_capacitance_F: float  # 0: no input filter
+    dm_damping_ohm: float
     core_volume_m3: float
     core_flux_per_A: float  # T per ampere of inductor current
     zc_hysteresis_V: float
@@ -102,14 +106,24 @@ def resolve(cfg: Config, inductance_H: float, capacitance_F: float, il_peak_A: f
     ov = _pick(pr.ov_trip, OV_TRIP_OF_VOUT * s.vout)
     mid = float(2 ** (se.adc_bits - 1))
     cap = _pick(cfg.plant.capacitance, capacitance_F)
+    cx = cfg.plant.x_capacitance
     r = Resolved(
         inductance_H=_pick(cfg.plant.inductance, inductance_H),
         capacitance_F=cap,
         current_bandwidth_Hz=_pick(c.current_bandwidth, s.fsw / CURRENT_BW_DIVISOR),
+        # the feedforward's low-pass keeps the input filter's resonance quiet: none without one
+        ff_corner_Hz=_pick(
+            c.ff_corner, s.fsw / FF_CORNER_DIVISOR if cfg.plant.x_capacitance > 0.0 else math.inf
+        ),
         soft_start_s=_pick(c.soft_start_time, soft_start_s(cap, s.vout, s.power)),
         node_capacitance_F=_pick(
             cfg.plant.node_capacitance,
             NODE_C_OHM_F / cfg.plant.rds_on_fast if cfg.plant.rds_on_fast > 0.0 else 0.0,
+        ),
+        x_capacitance_F=cx,
+        dm_damping_ohm=_pick(
+            cfg.plant.dm_damping,
+            math.sqrt(cfg.plant.dm_inductance / cx) if cx > 0.0 else 1e9,
         ),
         core_volume_m3=_pick(
             cfg.plant.core_volume,

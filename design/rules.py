@@ -16,6 +16,13 @@ BROWNOUT_OFF_OF_VMIN = 0.85  # brown-out stop: of vin_rms_min
 BROWNOUT_ON_OF_VMIN = 0.92  # brown-out restart: of vin_rms_min
 RANGE_MARGIN = 1.25  # ADC full scale: of the largest value the channel must read
 CURRENT_BW_DIVISOR = 15.0  # current-loop crossover: fsw over this
+# duty feedforward's line voltage: a first-order low-pass at fsw over this (above the current
+# loop's crossover, below the input filter's resonance: the sampled |v| reaches the duty 1.5
+# periods late, and unfiltered that delay made the X capacitor's resonance with the grid and
+# DM inductance ring at 16-22 kHz on the demo at light load; measured, see README)
+FF_CORNER_DIVISOR = 10.0
+RAMP_HOLD_OF_VOUT = 0.02  # soft-start ramp holds while the bus lags it by its lag plus this
+FF_STEP_OF_VPK_MIN = 0.1  # |v| off the filtered value by this x the lowest peak: a line step
 # soft start: the ramp's capacitor charging power C vout dv/dt at its end, of rated output
 # power, at most this (the load waits for power good near the ramp's end, and the command's
 # cap PCMD_MAX_OF_RATED must still hold the load and the ramp's last part) ...

@@ -200,6 +200,27 @@ class PlantTable:
         lo=1.0,
         hi=100.0,
     )
+    x_capacitance: float = nonneg(
+        "F",
+        "input filter's X capacitance across the stage's input, after the DM inductor; it "
+        "carries the inductor's ripple and its voltage is the sensed line (1 uF per kW of "
+        "rated power is typical; 0, the default: no filter, the grid's impedance then in "
+        "series with the boost inductor)",
+        0.0,
+        hi=1e-3,
+    )
+    dm_inductance: float = pos(
+        "H", "input filter's differential-mode inductance (illustrative)", 10e-6, hi=0.01
+    )
+    dm_resistance: float = nonneg(
+        "ohm", "the DM inductor's winding resistance (illustrative)", 0.01, hi=10.0
+    )
+    dm_damping: float | None = pos(
+        "ohm",
+        "damping resistor across the DM inductor (default sqrt(dm_inductance / x_capacitance), "
+        "the filter's characteristic impedance: common practice)",
+        hi=1e6,
+    )
 
 
 @dataclass(frozen=True, kw_only=True)
@@ -211,6 +232,14 @@ class ControlTable:
     )
     prefix: str = key("", "C symbol prefix (lower-case C identifier)", "pfc")
     current_bandwidth: float | None = pos("Hz", "current-loop crossover (default fsw/15)", hi=1e6)
+    ff_corner: float | None = pos(
+        "Hz",
+        "corner of the first-order low-pass on |v| in the duty feedforward 1 - |v|/v_bus "
+        "(default fsw/10 with an input filter, none without: above the current loop's "
+        "crossover, it keeps the sampled feedforward's delay from exciting the filter's "
+        "resonance)",
+        hi=1e7,
+    )
     current_phase_margin_deg: float = key(
         "deg",
         "current-loop phase margin on the sampled loop (57: the margin the fault campaigns "

@@ -9,9 +9,7 @@ from .layout import (
     GATE_FAST_LO,
     GATE_SLOW_HI,
     GATE_SLOW_LO,
-    L_C0,
     L_I,
-    L_S0,
     L_VC,
     P_C,
     P_COUNTS,
@@ -43,15 +41,16 @@ from .layout import (
     R_VTERM,
 )
 from .solver import circuit, segment
-from .source import source_at
 
 
 @jit
-def period_averaged(par, plans, lane, harm, j, scale, compare, gates, G, Icp, r_path, relay, out):
+def period_averaged(par, plans, lane, j, vs, v_in, compare, gates, G, Icp, r_path, relay, out):
     """Averaged model: one exact update per period with the period-average midpoint
     positions, separately for positive and negative current, so that a path left to the
     diodes for part of the period blocks reversal (a simple account of discontinuous
-    conduction).  The sample is the period average.  Same outputs as ``period_switching``."""
+    conduction).  The sample is the period average.  ``vs``: the grid source at mid-period;
+    ``v_in``: the stage's input voltage there (the X capacitor's with a filter, else ``vs``).
+    Same outputs as the switching period's, less the filter's (``plant.filt``)."""
     T, Lt, C, rc = par[P_T], par[P_LT], par[P_C], par[P_ESR]
     dl = min(max(compare / par[P_COUNTS], 0.0), 1.0)
     td = par[P_TDEAD] if (dl > 0.0 and dl < 1.0) else 0.0
@@ -68,11 +67,18 @@ def period_averaged(par, plans, lane, harm, j, scale, compare, gates, G, Icp, r_
     # fraction of the period the fast midpoint is on the plus rail, by current sign
     m_pos = (1.0 - f_lo * lo_on) - qb_pos
     m_neg = f_hi * hi_on - qb_neg
-    vs = source_at(lane, harm, j, scale, T / 2.0, lane[j, L_S0], lane[j, L_C0])
     i0, vc0 = lane[j, L_I], lane[j, L_VC]
     cc = circuit(Lt, C, rc, r_path, G, Icp)
     i1, vc1, m, q, q2, qm, _, qb = segment(
-        i0, vc0, T, m_pos, m_neg, vs, cc, plans[relay, PLAN_PERIOD, 0], plans[relay, PLAN_PERIOD, 1]
+        i0,
+        vc0,
+        T,
+        m_pos,
+        m_neg,
+        v_in,
+        cc,
+        plans[relay, PLAN_PERIOD, 0],
+        plans[relay, PLAN_PERIOD, 1],
     )
     vb = qb / T
     iavg = q / T
@@ -84,7 +90,7 @@ def period_averaged(par, plans, lane, harm, j, scale, compare, gates, G, Icp, r_
     out[R_ISAMPLE] = iavg
     out[R_VBUS] = vb
     out[R_VBSAMPLE] = vb
-    out[R_EIN] = vs * q
+    out[R_EIN] = v_in * q
     out[R_EOUT] = T * (G * vb**2 + Icp * vb)
     out[R_ELOSS] = r_path * q2
     out[R_I2] = q2

@@ -15,6 +15,7 @@ import numpy as np
 
 from design.contract import TIMING
 
+from . import filt
 from . import kernel as K
 from . import layout as LY
 from .grid import Grid
@@ -50,6 +51,31 @@ def stage_par(p: StageParams, load: Load) -> np.ndarray:
     )
     par[LY.P_CORE_C], par[LY.P_CORE_BETA] = p.core_energy_coeff, p.core_beta
     par[LY.P_ACX] = p.ac_copper_ohm / 12.0  # the triangle's mean square: di^2/12
+    if p.filtered:
+        a, b_v, b_i = filt.system(
+            p.source_inductance_H,
+            p.source_resistance_ohm,
+            p.dm_inductance_H,
+            p.dm_resistance_ohm,
+            p.dm_damping_ohm,
+            p.x_capacitance_F,
+        )
+        phi, g_v, g_s, g_i = filt.discretise(a, b_v, b_i, p.period_s)
+        par[LY.P_FILT] = 1.0
+        par[LY.P_FRS], par[LY.P_FRM], par[LY.P_FRD] = (
+            p.source_resistance_ohm,
+            p.dm_resistance_ohm,
+            p.dm_damping_ohm,
+        )
+        par[LY.P_FLS], par[LY.P_FLM], par[LY.P_FCX] = (
+            max(p.source_inductance_H, filt.MIN_L_SRC),
+            p.dm_inductance_H,
+            p.x_capacitance_F,
+        )
+        par[LY.P_FPHI : LY.P_FPHI + 9] = phi.ravel()
+        par[LY.P_FGV : LY.P_FGV + 3] = g_v
+        par[LY.P_FGS : LY.P_FGS + 3] = g_s
+        par[LY.P_FGI : LY.P_FGI + 3] = g_i
     return par
 
 
@@ -114,6 +140,13 @@ class Plant:
         lane[:, LY.L_DIP_END] = -np.inf
         lane[:, LY.L_DIP_LEVEL] = 1.0
         lane[:, LY.L_POWER], lane[:, LY.L_CP] = load.power, load.constant_power
+        # the filter in its line-frequency steady state with no stage current (its
+        # capacitors' charging current)
+        vpk = LY.SQRT2 * np.asarray(grid.vrms, dtype=float)
+        lane[:, LY.L_FVX] = vpk * np.sin(grid.theta) + grid.dc
+        i_x = p.x_capacitance_F * LY.TWO_PI * np.asarray(grid.freq) * vpk * np.cos(grid.theta)
+        lane[:, LY.L_FIS] = lane[:, LY.L_FIM] = i_x
+        lane[:, LY.L_FISTG] = 0.0
         if sensors is not None:
             sensors.pack(self.par, lane)
             self.seed = sensors.seed.copy()

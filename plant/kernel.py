@@ -15,6 +15,7 @@ import math
 
 from .adc import adc_channel, neutral_V
 from .averaged import period_averaged
+from .filt import advance, no_filter, period_end
 from .jit import jit, jit_inline
 from .layout import (
     GATE_FAST_HI,
@@ -27,6 +28,8 @@ from .layout import (
     L_CP,
     L_DIP_END,
     L_DIP_LEVEL,
+    L_FISTG,
+    L_FVX,
     L_I,
     L_POWER,
     L_RELAY_CMD,
@@ -38,6 +41,7 @@ from .layout import (
     P_CONNECT,
     P_COUNTS,
     P_ESR,
+    P_FILT,
     P_LSRC,
     P_LT,
     P_RELAY_DELAY,
@@ -113,8 +117,11 @@ from .layout import (
     W_VB,
     W_VBS,
     W_VC,
+    W_VG0,
+    W_VG1,
     W_VS,
     W_VSH,
+    W_VXH,
     W_X1,
     W_X2,
     W_Y1,
@@ -156,6 +163,24 @@ def _load_terms(par, lane, j, vc):
     return G, Icp
 
 
+@jit_inline
+def _stage_input(par, lane, harm, j, scale, s0, c0, ws):
+    """With a filter: the X capacitor's voltage at the period's start and where the filter
+    takes it by the end with the last period's current (the stage sees it move linearly
+    between them), the source at both ends into ``ws``; without: zeros, and the stage's input
+    at T/2 is the source's."""
+    if par[P_FILT] == 0.0:
+        ws[W_VXH, j] = ws[W_VSH, j]
+        return 0.0, 0.0
+    v0 = source_at(lane, harm, j, scale, 0.0, s0, c0)
+    v1 = source_at(lane, harm, j, scale, par[P_T], s0, c0)
+    ws[W_VG0, j], ws[W_VG1, j] = v0, v1
+    vxa = lane[j, L_FVX]
+    vxb = period_end(par, lane, j, v0, v1, lane[j, L_FISTG])[2]
+    ws[W_VXH, j] = 0.5 * (vxa + vxb)
+    return vxa, vxb
+
+
 @jit
 def _period_setup(par, lane, harm, t, compare, gates, relay, ws, switching):
     """Per lane: dip, inrush relay, load terms and what stays fixed over the period; for the
@@ -182,6 +207,10 @@ def _period_setup(par, lane, harm, t, compare, gates, relay, ws, switching):
         ws[W_SLOW, j] = 1.0 if relay_open else 0.0
         ws[W_I, j], ws[W_VC, j] = lane[j, L_I], vc
         ws[W_SCALE, j] = scale
+        s0, c0 = lane[j, L_S0], lane[j, L_C0]
+        ws[W_VSH, j] = source_at(lane, harm, j, scale, half, s0, c0)
+        filtered = par[P_FILT] != 0.0
+        vxa, vxb = _stage_input(par, lane, harm, j, scale, s0, c0, ws)
         if not switching:
             continue
         # center-aligned PWM: the fast low switch on for dl T/2 at each end, the high switch in
@@ -201,7 +230,6 @@ def _period_setup(par, lane, harm, t, compare, gates, relay, ws, switching):
         qb = 0 if (s_lo and not s_hi) else (1 if (s_hi and not s_lo) else -1)
         qa_low = 0 if (g & GATE_FAST_LO) != 0 else -1
         qa_high = 1 if (g & GATE_FAST_HI) != 0 else -1
-        s0, c0 = lane[j, L_S0], lane[j, L_C0]
         for seg in range(7):
             if seg == 0:
                 a, b, qa = 0.0, t1, qa_low
@@ -221,11 +249,13 @@ def _period_setup(par, lane, harm, t, compare, gates, relay, ws, switching):
             m_pos, m_neg = _m_pair(qa, qb)
             ws[W_NOSW + seg, j] = 1.0 if qa < 0 else 0.0
             ws[W_DT + seg, j] = dt
-            ws[W_VS + seg, j] = (
-                source_at(lane, harm, j, scale, a + 0.5 * dt, s0, c0) if dt > 0.0 else 0.0
-            )
+            if dt <= 0.0:
+                ws[W_VS + seg, j] = 0.0
+            elif filtered:
+                ws[W_VS + seg, j] = vxa + (vxb - vxa) * (a + 0.5 * dt) / T
+            else:
+                ws[W_VS + seg, j] = source_at(lane, harm, j, scale, a + 0.5 * dt, s0, c0)
             ws[W_MP + seg, j], ws[W_MN + seg, j] = m_pos, m_neg
-        ws[W_VSH, j] = source_at(lane, harm, j, scale, half, s0, c0)
 
 
 @jit
@@ -387,12 +417,26 @@ def step_lanes(par, plans, lane, harm, seed, k, t, model, compare, gates, relay,
             G, Icp = ws[W_G, j], ws[W_ICP, j]
             i_s = ws[W_IS, j]
             out[j, R_VS] = ws[W_VSH, j]
-            # sensed line voltage: source less the drop of the period-average current on the
-            # source impedance (the input filter's X capacitors carry the switching ripple)
-            out[j, R_VTERM] = (
-                ws[W_VSH, j] - par[P_RSRC] * i_s - par[P_LSRC] * (ws[W_I, j] - ws[W_ISTART, j]) * f
-            )
             out[j, R_IAVG] = ws[W_Q, j] * f
+            if par[P_FILT] != 0.0:  # the sensed line is the X capacitor's (``plant.filt``)
+                advance(par, lane, j, ws[W_VG0, j], ws[W_VG1, j], out[j, R_IAVG], out[j])
+            else:
+                # sensed line voltage: source less the drop of the period-average current on
+                # the source impedance
+                out[j, R_VTERM] = (
+                    ws[W_VSH, j]
+                    - par[P_RSRC] * i_s
+                    - par[P_LSRC] * (ws[W_I, j] - ws[W_ISTART, j]) * f
+                )
+                no_filter(
+                    par,
+                    out[j],
+                    out[j, R_IAVG],
+                    ws[W_EIN, j],
+                    ws[W_Q2, j],
+                    ws[W_ISTART, j],
+                    ws[W_I, j],
+                )
             out[j, R_IMAX] = ws[W_IMAX, j]
             out[j, R_IMIN] = ws[W_IMIN, j]
             out[j, R_ISAMPLE] = i_s
@@ -415,7 +459,7 @@ def step_lanes(par, plans, lane, harm, seed, k, t, model, compare, gates, relay,
             e_sw = switching_energy(
                 par,
                 vbus_avg,
-                ws[W_VSH, j],
+                ws[W_VXH, j],
                 ws[W_GLO, j] != 0.0,
                 ws[W_GHI, j] != 0.0,
                 ws[W_ISEG, j],
@@ -443,9 +487,9 @@ def step_lanes(par, plans, lane, harm, seed, k, t, model, compare, gates, relay,
                 par,
                 plans,
                 lane,
-                harm,
                 j,
-                ws[W_SCALE, j],
+                ws[W_VSH, j],
+                ws[W_VXH, j],
                 float(compare[j]),
                 int(gates[j]),
                 ws[W_G, j],
@@ -454,6 +498,10 @@ def step_lanes(par, plans, lane, harm, seed, k, t, model, compare, gates, relay,
                 relay,
                 out[j],
             )
+            if par[P_FILT] != 0.0:
+                advance(par, lane, j, ws[W_VG0, j], ws[W_VG1, j], out[j, R_IAVG], out[j])
+            else:
+                no_filter(par, out[j], out[j, R_IAVG], out[j, R_EIN], out[j, R_I2], lane[j, L_I], i)
             lane[j, L_I], lane[j, L_VC] = i, vc
     split = codes.shape[1] == 4
     for j in range(n):

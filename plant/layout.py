@@ -45,10 +45,16 @@ TWO_PI = 2.0 * math.pi
     L_C0,
     L_RELAY_CMD,
     L_RELAY_T,
-) = range(28)
+    L_FIS,
+    L_FIM,
+    L_FVX,
+    L_FISTG,
+) = range(32)
 # L_S0, L_C0: sin and cos of L_THETA, carried along by rotation; L_RELAY_CMD, L_RELAY_T: the
-# relay's last command (1 close) and when it changed (s); *3: the N channel of split sensing
-LANE_ROWS = 28
+# relay's last command (1 close) and when it changed (s); *3: the N channel of split sensing;
+# L_FIS, L_FIM, L_FVX: the input filter's line current, DM inductor current and X capacitor
+# voltage (``plant.filt``); L_FISTG: the stage's period-average current of the last period
+LANE_ROWS = 32
 
 # entries of the parameter vector (``par``)
 (
@@ -79,9 +85,20 @@ LANE_ROWS = 28
     P_CORE_BETA,
     P_ACX,
     P_LN_CPV,
-) = range(27)  # CPV/CPA: counts per V/A; P_CNODE..P_ACX: the loss model (``plant.losses``);
-# P_LN_CPV: split line sensing's L and N channels, counts per V (0: one bipolar line channel)
-PAR_ROWS = 27
+    P_FILT,
+    P_FRS,
+    P_FRM,
+    P_FRD,
+    P_FLS,
+    P_FLM,
+    P_FCX,
+    P_FPHI,
+) = range(35)  # CPV/CPA: counts per V/A; P_CNODE..P_ACX: the loss model (``plant.losses``);
+# P_LN_CPV: split line sensing's L and N channels, counts per V (0: one bipolar line channel);
+# P_FILT (1: an input filter, ``plant.filt``) .. P_FCX: its flag and elements; from P_FPHI: its
+# period map Phi (3 x 3, row-major), then g_v, g_slope, g_i (3 each)
+P_FGV, P_FGS, P_FGI = P_FPHI + 9, P_FPHI + 12, P_FPHI + 15
+PAR_ROWS = P_FPHI + 18
 
 # plant records per period (columns of ``out``, shape (n, len(FIELDS))), in this order
 FIELDS = (
@@ -104,6 +121,10 @@ FIELDS = (
     "e_dt_J",
     "e_core_J",
     "e_acu_J",
+    "i_line_A",
+    "e_term_J",
+    "e_filt_J",
+    "e_fstore_J",
 )
 (
     R_VS,
@@ -125,7 +146,14 @@ FIELDS = (
     R_EDT,
     R_ECORE,
     R_EACU,
+    R_ILINE,
+    R_ETERM,
+    R_EFILT,
+    R_EFSTORE,
 ) = range(len(FIELDS))
+# R_ILINE: the grid current's period average (the stage's own current without a filter);
+# R_ETERM: energy in at the stage's input terminals (after the grid's impedance); R_EFILT: the
+# filter's resistive loss; R_EFSTORE: the filter's stored energy at the period's end
 
 # gate bits of the controller contract, as plain ints (compile-time constants of the kernels)
 GATE_FAST_LO, GATE_FAST_HI, GATE_SLOW_LO, GATE_SLOW_HI = (int(g) for g in Gate)
@@ -181,14 +209,19 @@ PLAN_HALF, PLAN_DEAD, PLAN_PERIOD = 0, 1, 2
     W_B2LATE,
     W_GLO,
     W_GHI,
+    W_VXH,
+    W_VG0,
+    W_VG1,
     W_DT,
     W_VS,
     W_MP,
     W_MN,
     W_NOSW,
     W_ISEG,
-) = (*range(43), 43, 50, 57, 64, 71, 78)  # the last six: 7 rows each (one per sub-interval)
-WS_ROWS = 85
+) = (*range(46), 46, 53, 60, 67, 74, 81)  # the last six: 7 rows each (one per sub-interval)
+# W_VXH: the stage's input voltage at T/2 (the X capacitor's with a filter); W_VG0, W_VG1:
+# the grid source at the period's start and end
+WS_ROWS = 88
 THIRD = 1.0 / 3.0
 TWELFTH = 1.0 / 12.0
 

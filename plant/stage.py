@@ -1,16 +1,18 @@
 """Totem-pole PFC power stage, batch of ``n`` scenarios in lockstep.
 
-Circuit: grid source (``v_s``, ``R_src``, ``L_src``) -> boost inductor ``L`` (DCR)
--> fast-leg midpoint A; the slow-leg midpoint B returns to the other line
+Circuit: grid source (``v_s``, ``R_src``, ``L_src``) -> the input filter (``plant.filt``: a
+differential-mode inductor and an X capacitor, whose voltage the stage sees and senses) ->
+boost inductor ``L`` (DCR) -> fast-leg midpoint A; the slow-leg midpoint B returns to the other line
 terminal.  With ``q_A``, ``q_B`` = 1 when a midpoint is tied to the bus plus rail
 and 0 when tied to the minus rail, ``m = q_A - q_B`` and
 
-    L_t di/dt = v_s - R_t i - m v_bus
-    (L_t = L + L_src, R_t = DCR + R_src + Rds_fast + Rds_slow)
+    L_t di/dt = v_x - R_t i - m v_bus
+    (L_t = L, R_t = DCR + Rds_fast + Rds_slow; without a filter v_x is v_s and the grid's
+    L_src and R_src join L_t and R_t)
     C dv_C/dt = m i - i_load,   v_bus = v_C + ESR (m i - i_load)
 
-and the sensed line voltage is ``v_s`` less the source-impedance drop of the
-period-average current (the input filter's X capacitors carry the ripple).  The
+and the sensed line voltage is the X capacitor's (without a filter: ``v_s`` less the
+source-impedance drop of the period-average current).  The
 load is a conductance ``G`` plus a current ``I_cp`` (constant-power part,
 ``P/v_bus`` frozen over each period).  A conducting switch fixes its midpoint;
 with neither switch of a leg on, the body diode (or diode) that the current
@@ -61,6 +63,16 @@ class StageParams:
     core_energy_coeff: float = 0.0  # J per period per A^beta of ripple
     core_beta: float = 2.5
     ac_copper_ohm: float = 0.0  # the winding's extra resistance to the ripple
+    # the input filter (``plant.filt``; x_capacitance 0: none, the grid's impedance then in
+    # series with the boost inductor)
+    x_capacitance_F: float = 0.0
+    dm_inductance_H: float = 0.0
+    dm_resistance_ohm: float = 0.0
+    dm_damping_ohm: float = 1e9  # the damping resistor across the DM inductor
+
+    @property
+    def filtered(self) -> bool:
+        return self.x_capacitance_F > 0.0
 
     @property
     def period_s(self) -> float:
@@ -68,13 +80,15 @@ class StageParams:
 
     @property
     def l_total_H(self) -> float:
-        return self.inductance_H + self.source_inductance_H
+        """The inductance the stage's current sees: the boost inductor, plus the grid's when
+        no X capacitor stands between them."""
+        return self.inductance_H + (0.0 if self.filtered else self.source_inductance_H)
 
     @property
     def r_total_ohm(self) -> float:
         return (
             self.inductor_dcr_ohm
-            + self.source_resistance_ohm
+            + (0.0 if self.filtered else self.source_resistance_ohm)
             + self.rds_on_fast_ohm
             + self.rds_on_slow_ohm
         )

@@ -305,6 +305,7 @@ def test_supervisor_trip_rules(demo_project, demo_built):
     # switching: each over-current trips, the RETRY_LIMIT-th latches
     for n in range(1, int(c["RETRY_LIMIT"]) + 1):
         sv.mode = lib.PFC_MODE_RUN
+        sv.no_main = False  # a fast switch was on in the period sampled
         m = step(-oc)  # either sign of current
         assert sv.trips == n
         assert m == (lib.PFC_MODE_LATCHED if n == c["RETRY_LIMIT"] else lib.PFC_MODE_TRIPPED)
@@ -321,14 +322,26 @@ def test_supervisor_trip_rules(demo_project, demo_built):
     ):
         lib.pfc_supervisor_init(sv)
         sv.mode = lib.PFC_MODE_RUN
+        sv.no_main = False
         sn.vac = vac
         m = step(oc)
         assert (m == lib.PFC_MODE_TRIPPED) == tripped, vac
         assert sv.trips == int(tripped) and sv.history & lib.PFC_FAULT_OC
+    # with neither fast switch on in the period sampled, a current forward in the half is the
+    # line's through the diodes even below the diode margin (it outlives the peak): not tripped
+    # on; reversed (only a switch drives it) it trips
+    pl.pol = 1
+    for il, tripped in ((oc, False), (-oc, True)):
+        lib.pfc_supervisor_init(sv)
+        sv.mode = lib.PFC_MODE_RUN
+        sn.vac = sn.vbus - 3.0 * c["DIODE_MARGIN_V"]
+        sv.no_main = True
+        assert (step(il) == lib.PFC_MODE_TRIPPED) == tripped, il
     sn.vac = 0.0
     # tripped: further over-current (diode conduction, gates off) does not restart the retry delay
     lib.pfc_supervisor_init(sv)
     sv.mode = lib.PFC_MODE_RUN
+    sv.no_main = False
     step(oc)
     delay = int(c["RETRY_DELAY_PERIODS"])
     modes = [step(oc if k % 100 == 0 else 0.0) for k in range(delay + 1)]
@@ -350,6 +363,34 @@ def test_duty_feedforward_carries_the_dead_time_by_the_currents_sign(demo_projec
         for sign in (1.0, -1.0):
             s = ffi.new("pfc_iloop_t*")
             lib.pfc_iloop_init(s)  # 1/v_bus starts at 1/vout
+            s.vff = absv  # the feedforward's low-passed |v| settled at absv
             il = pol * sign * 2.0  # 2 A forward (sign +1) or reversed, in this half
-            duty = lib.pfc_iloop_step(s, 2.0 * sign, il, pol, absv, c["DUTY_MAX"])
+            duty = lib.pfc_iloop_step(s, 2.0 * sign, il, pol, c["DUTY_MAX"])
             assert duty == pytest.approx(1.0 - absv / vout + sign * dt, abs=1e-6), (pol, sign)
+
+
+def test_feedforward_voltage_is_a_first_order_low_pass(demo_project, demo_built):
+    """v_ff after n periods of a step of |v| by dV below FF_STEP_V: v0 + dV (1 - (1 - K)^n),
+    K = FF_K = 1 - exp(-2 pi f_c / fsw) (the exact discretisation of a first-order lag, hand
+    arithmetic); a rise beyond FF_STEP_V passes at once and sets `surge` for that period only,
+    and the duty of a surge period is zero."""
+    c = consts(demo_project)
+    fsw = demo_project.config.spec.fsw
+    assert c["FF_K"] == pytest.approx(1.0 - math.exp(-2.0 * math.pi * (fsw / 10.0) / fsw))
+    ffi, lib = demo_built.ffi, demo_built.lib
+    s = ffi.new("pfc_iloop_t*")
+    lib.pfc_iloop_init(s)
+    s.vff = 200.0
+    dv = 0.9 * c["FF_STEP_V"]
+    for n in range(1, 13):
+        lib.pfc_iloop_track(s, 400.0, 200.0 + dv)
+        assert not s.surge
+        assert s.vff == pytest.approx(200.0 + dv * (1.0 - (1.0 - c["FF_K"]) ** n), rel=1e-5)
+    lib.pfc_iloop_track(s, 400.0, s.vff + 1.5 * c["FF_STEP_V"])
+    assert s.surge and s.vff == pytest.approx(
+        200.0 + dv * (1.0 - (1.0 - c["FF_K"]) ** 12) + 1.5 * c["FF_STEP_V"], rel=1e-5
+    )
+    assert lib.pfc_iloop_step(s, 5.0, 1.0, 1, c["DUTY_MAX"]) == 0.0
+    lib.pfc_iloop_track(s, 400.0, s.vff)
+    assert not s.surge
+    assert lib.pfc_iloop_step(s, 5.0, 1.0, 1, c["DUTY_MAX"]) > 0.0

@@ -152,35 +152,34 @@ def test_cli_run_writes_json_csv_plots(tmp_path, demo_project):
     cols = np.genfromtxt(tmp_path / "w.csv", delimiter=",", names=True)
     t0, t1 = rep["window_s"]
     w = (cols["t_s"] >= t0 - 0.5 / FSW) & (cols["t_s"] < t1 - 0.5 / FSW)
-    pf, thd = independent_pf_thd(cols["vs_V"][w], cols["i_avg_A"][w], 50.0)
+    # (power quality on the line current, the X capacitor's included; the zero-crossing
+    # distortion on the stage's own current)
+    pf, thd = independent_pf_thd(cols["vs_V"][w], cols["i_line_A"][w], 50.0)
     assert rep["pf"] == pytest.approx(pf, abs=1e-6)
     assert rep["thd_i"] == pytest.approx(thd, abs=1e-6)
-    # DC and the zero-crossing distortion: the fundamental fitted here by least squares
+    assert rep["dc_A"] == pytest.approx(float(np.mean(cols["i_line_A"][w])), abs=1e-6)
+    # the zero-crossing distortion: the fundamental fitted here by least squares
     v, i = cols["vs_V"][w], cols["i_avg_A"][w]
-    assert rep["dc_A"] == pytest.approx(float(np.mean(i)), abs=1e-6)
     tt = cols["t_s"][w]
     basis = np.column_stack([np.sin(2 * np.pi * 50.0 * tt), np.cos(2 * np.pi * 50.0 * tt)])
     fund = basis @ np.linalg.lstsq(basis, i, rcond=None)[0]
     near = np.abs(v) < 0.25 * np.abs(v).max()
     assert rep["zc_spike_A"] == pytest.approx(float(np.max(np.abs(i - fund)[near])), rel=0.02)
     # power at the terminals and the energy balance from the CSV's per-period energies: the
-    # source's energy less the source impedance's share, the load's energy, the stored energy
-    # of C (from the capacitor voltage without the ESR drop) and of L
-    pl, res = demo_project.config.plant, demo_project.resolved
+    # energy at the stage's terminals (before its input filter), the load's energy, the stored
+    # energy of C (from the capacitor voltage without the ESR drop), of L and of the filter
+    res = demo_project.resolved
     idx = np.nonzero(w)[0]
     k0, k1 = idx[0], idx[-1]
     tw = len(idx) / FSW
-    i2 = cols["i2_A2s"][w].sum()
     ia, ib = cols["i_end_A"][k0 - 1], cols["i_end_A"][k1]
-    p_in = (
-        cols["e_in_J"][w].sum()
-        - pl.source_resistance * i2
-        - 0.5 * pl.source_inductance * (ib**2 - ia**2)
-    ) / tw
+    p_in = cols["e_term_J"][w].sum() / tw
     p_out = cols["e_out_J"][w].sum() / tw
     stored = (
         0.5 * res.capacitance_F * (cols["vc_V"][k1] ** 2 - cols["vc_V"][k0 - 1] ** 2)
         + 0.5 * res.inductance_H * (ib**2 - ia**2)
+        + cols["e_fstore_J"][k1]
+        - cols["e_fstore_J"][k0 - 1]
     ) / tw
     assert rep["p_in_W"] == pytest.approx(p_in, rel=1e-6)
     assert rep["p_out_W"] == pytest.approx(p_out, rel=1e-6)

@@ -91,7 +91,7 @@ def test_report_counts_every_loss_and_the_balance_closes(demo_project):
     losses = rep["losses_W"]
     for k in ("conduction", "switching", "deadtime", "inductor_copper", "inductor_core"):
         assert losses[k] > 0.0, k
-    assert rep["losses_not_modelled"] == ["filter"]
+    assert rep["losses_not_modelled"] == []
     assert abs(rep["balance_residual_W"]) <= 0.005 * sum(losses.values())
     cfg = demo_project.config
     bare = replace(

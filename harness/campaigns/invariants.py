@@ -105,13 +105,16 @@ def _controlled_current_A(ln: Lane) -> float:
     """The largest current the converter answers for: in a period its main switch conducts
     with the bus above the line (boosting), or flowing against the line voltage through a
     switch (only a switch lets the bus drive current back).  The line rectified into a bus
-    below its peak is not: no gate pattern can stop it."""
+    below its peak is not: no gate pattern can stop it.  "The line" is the voltage the stage
+    sees, the X capacitor's (``vterm_V``): after a line step it rings above the source's and,
+    above the bus, drives current through the diodes whatever the gates do."""
     d, g, per = ln.d, ln.gates, ln.prj.resolved.pwm_period_counts
     pos_main = ((g & Gate.SLOW_LO) != 0) & ((g & Gate.FAST_LO) != 0) & (d["compare"] > 0)
     neg_main = ((g & Gate.SLOW_HI) != 0) & ((g & Gate.FAST_HI) != 0) & (d["compare"] < per)
-    boosting = (pos_main | neg_main) & (np.abs(d["vs_V"]) < d["vbus_V"])
+    v_in = d["vterm_V"]
+    boosting = (pos_main | neg_main) & (np.abs(v_in) < d["vbus_V"])
     il = np.maximum(np.abs(d["i_max_A"]), np.abs(d["i_min_A"]))
-    reverse = np.where(d["vs_V"] >= 0.0, -d["i_min_A"], d["i_max_A"])  # > 0: against the line
+    reverse = np.where(v_in >= 0.0, -d["i_min_A"], d["i_max_A"])  # > 0: against the line
     ln.figures["il_peak_A"] = float(il.max())
     a = il[boosting].max() if boosting.any() else 0.0
     b = reverse[g != 0].max() if (g != 0).any() else 0.0

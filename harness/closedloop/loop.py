@@ -80,6 +80,10 @@ def stage_params(prj: Project) -> StageParams:
         * (0.5 * r.core_flux_per_A) ** pl.core_beta,
         core_beta=pl.core_beta,
         ac_copper_ohm=(pl.inductor_ac_factor - 1.0) * pl.inductor_dcr,
+        x_capacitance_F=r.x_capacitance_F,
+        dm_inductance_H=pl.dm_inductance,
+        dm_resistance_ohm=pl.dm_resistance,
+        dm_damping_ohm=r.dm_damping_ohm,
     )
 
 
