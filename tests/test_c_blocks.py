@@ -394,3 +394,36 @@ def test_feedforward_voltage_is_a_first_order_low_pass(demo_project, demo_built)
     lib.pfc_iloop_track(s, 400.0, s.vff)
     assert not s.surge
     assert lib.pfc_iloop_step(s, 5.0, 1.0, 1, c["DUTY_MAX"]) > 0.0
+
+
+def test_current_check_with_neither_fast_switch_on(demo_project, demo_built):
+    """The current-against-duty check in periods with neither fast switch on (``diode``): the
+    duty sits at zero, so the duty model predicts the idle decay (v_bus - |v|) T/L a period.
+    A reading stuck forward there (a failed channel holding the duty at zero) is caught; a
+    reading that moves (the rectifier's current, whose slope resistive drops set) is live and
+    never judged; a reading beyond the over-current trip (the rectifier's surge, which can rail
+    the channel) is left to the over-current rule. With a fast switch on, the same stuck
+    reading is caught as before."""
+    ffi, lib = demo_built.ffi, demo_built.lib
+    c = consts(demo_project)
+    vbus, vabs = 400.0, 300.0
+    dff = 1.0 - vabs / vbus  # the feedforward the duty sits below: du = 0 - dff
+    fall = (vbus - vabs) * c["IL_SLOPE_A_PER_V"]  # the idle decay a period (A)
+    err = c["IL_PLAUS_ERR_A"]
+
+    def faults(readings, diode):
+        s = ffi.new("pfc_plaus_t*")
+        lib.pfc_plaus_init(s)
+        for il in readings:
+            lib.pfc_plaus_current(s, 0.0, float(il), -dff, vbus, False, diode)
+        return bool(s.fault & lib.PFC_SENSE_IL_IMPLAUSIBLE)
+
+    stuck = [0.5 * c["OC_TRIP_A"]] * 12
+    assert 12 * fall > 2 * err  # the decay the stuck reading misses is well beyond the bound
+    assert faults(stuck, True)
+    assert faults(stuck, False)
+    moving = [0.5 * c["OC_TRIP_A"] - 0.1 * fall * k for k in range(12)]  # slower than predicted
+    assert not faults(moving, True)
+    assert faults(moving, False)  # with a switch on it lags the duty: judged
+    surge = [1.05 * c["OC_TRIP_A"]] * 12  # railed beyond the trip
+    assert not faults(surge, True)

@@ -16,6 +16,7 @@ from hypothesis import strategies as st
 from codegen.build import compile_objects
 from codegen.render import render
 from design.config import ConfigError, from_dict
+from design.contract import adc_fields
 from design.project import from_config
 from design.schema import SCHEMA, Key
 
@@ -31,7 +32,7 @@ int main(void) {{
     unsigned k;
     {p}_init(&c);
     for (k = 0u; k < 3000u; k++) {{
-        adc.vac = (uint16_t)(k * 7u); adc.il = (uint16_t)(k * 13u); adc.vbus = (uint16_t)(k * 3u);
+        {fill}
         {p}_step(&c, &adc, &pwm);
         if (pwm.compare > {P}_PWM_PERIOD_COUNTS || pwm.mode > {P}_MODE_SENSOR_FAULT) return 3;
     }}
@@ -106,7 +107,12 @@ def test_refused_clearly_or_builds_and_steps(data, tmp_path_factory):
         out = tmp_path_factory.mktemp(fmt)
         for n, t in files.items():
             (out / n).write_text(t)
-        (out / "main.c").write_text(MAIN.format(p="pfc", P="PFC"))
+        # every input channel the contract names (bipolar line, or L and N apart) gets a ramp
+        fill = " ".join(
+            f"adc.{f.name} = (uint16_t)(k * {m}u);"
+            for f, m in zip(adc_fields(prj.resolved.line_split), (7, 13, 3, 5), strict=False)
+        )
+        (out / "main.c").write_text(MAIN.format(p="pfc", P="PFC", fill=fill))
         objs = compile_objects(out, out / "obj")  # strict flags: warnings are errors
         exe = out / "run"
         subprocess.run(["gcc", *map(str, objs), "-o", str(exe)], check=True)
