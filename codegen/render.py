@@ -86,6 +86,8 @@ def _context(prj: Project, **extra: Any) -> dict[str, Any]:
         link=contract.link_table(prj.resolved.line_split),
         adc_fields=contract.adc_fields(prj.resolved.line_split),
         split=prj.resolved.line_split,
+        edge=cfg.control.carrier == "edge",
+        timing=contract.timing(cfg.control.carrier),
         bus_blocks=BUS_BLOCKS,
         **_format_names(p, P, cfg.control.number_format),
         **extra,

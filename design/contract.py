@@ -288,14 +288,31 @@ class LinkErr(IntEnum):
     REFUSED = 3  # RESET of a latched or sensor-faulted controller (see LINK_RESET_CLEARS_FAULTS)
 
 
-# The PWM timing every part shares: the plant simulates it (plant.kernel), the tuning's sampled
-# loops assume it (design.tuning), the board header tells the board to set its timer so
-# (<prefix>_board.h). Changing a value here means changing all three.
-TIMING = {
-    "carrier": "centre-aligned",  # up-down counter; the main switch on at both ends
-    "sample_fraction": 0.5,  # ADC sampled at this fraction of the period: the counter's top
-    "update": "period start",  # compare and gates from the shadow registers at the bottom
+# The PWM timings every part shares, by ``[control] carrier``: the plant simulates the chosen
+# one (plant.kernel), the tuning's sampled loops assume it (design.tuning), the board header
+# tells the board to set its timer so (<prefix>_board.h). Changing a value here means changing
+# all three. In both the compare is the fast leg's low-switch on-time in counts of a full
+# period, and compare and gates take effect together at the period start.
+TIMINGS = {
+    "centre": {
+        "carrier": "centre-aligned",  # up-down counter; the low switch on d T/2 at each end
+        "sample": "counter top",  # mid-period: the period's average current in CCM
+        "update": "period start",  # compare and gates from the shadow registers at the bottom
+    },
+    "edge": {
+        "carrier": "edge-aligned",  # up counter; the low switch on for d T from the start
+        "sample": "half the low switch's on-time",  # a second compare at compare/2: the
+        # middle of a ramp, the period's average current in CCM
+        "update": "period start",  # compare, gates and the ADC trigger at the counter's reset
+    },
 }
+CARRIERS = tuple(TIMINGS)
+TIMING = TIMINGS["centre"]  # the default ([control] carrier = "centre")
+
+
+def timing(carrier: str) -> dict[str, str]:
+    """The timing of ``[control] carrier`` (``"centre"`` or ``"edge"``)."""
+    return TIMINGS[carrier]
 
 
 LINK = {

@@ -14,6 +14,7 @@ from .rules import (
     BROWNOUT_OFF_OF_VMIN,
     BROWNOUT_ON_OF_VMIN,
     CURRENT_BW_DIVISOR,
+    CURRENT_BW_DIVISOR_EDGE,
     DEVICE_OF_OC,
     FF_CORNER_DIVISOR,
     HW_OV_OF_VOUT,
@@ -110,7 +111,10 @@ def resolve(cfg: Config, inductance_H: float, capacitance_F: float, il_peak_A: f
     r = Resolved(
         inductance_H=_pick(cfg.plant.inductance, inductance_H),
         capacitance_F=cap,
-        current_bandwidth_Hz=_pick(c.current_bandwidth, s.fsw / CURRENT_BW_DIVISOR),
+        current_bandwidth_Hz=_pick(
+            c.current_bandwidth,
+            s.fsw / (CURRENT_BW_DIVISOR_EDGE if c.carrier == "edge" else CURRENT_BW_DIVISOR),
+        ),
         # the feedforward's low-pass keeps the input filter's resonance quiet: none without one
         ff_corner_Hz=_pick(
             c.ff_corner, s.fsw / FF_CORNER_DIVISOR if cfg.plant.x_capacitance > 0.0 else math.inf

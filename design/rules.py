@@ -15,7 +15,12 @@ BLANK_OF_VPK_MIN = 0.08  # zero-crossing blanking: of the lowest line peak
 BROWNOUT_OFF_OF_VMIN = 0.85  # brown-out stop: of vin_rms_min
 BROWNOUT_ON_OF_VMIN = 0.92  # brown-out restart: of vin_rms_min
 RANGE_MARGIN = 1.25  # ADC full scale: of the largest value the channel must read
-CURRENT_BW_DIVISOR = 15.0  # current-loop crossover: fsw over this
+CURRENT_BW_DIVISOR = 15.0  # current-loop crossover: fsw over this (centre-aligned carrier)
+# ... and with the edge-aligned carrier, whose sample can lag the duty by up to a whole period
+# (``design.tuning``): at fsw/15 its sampled plant lags 126 deg and 57 deg of phase margin is
+# out of reach; at fsw/25 the PI reaches it with a gain margin (11.9 dB on the demo) near the
+# centre-aligned loop's at fsw/15 (13.2 dB), computed on the sampled loops
+CURRENT_BW_DIVISOR_EDGE = 25.0
 # duty feedforward's line voltage: a first-order low-pass at fsw over this (above the current
 # loop's crossover, below the input filter's resonance: the sampled |v| reaches the duty 1.5
 # periods late, and unfiltered that delay made the X capacitor's resonance with the grid and

@@ -231,7 +231,11 @@ class ControlTable:
         "", "number format of the generated C", "float32", choices=("float32", "q15")
     )
     prefix: str = key("", "C symbol prefix (lower-case C identifier)", "pfc")
-    current_bandwidth: float | None = pos("Hz", "current-loop crossover (default fsw/15)", hi=1e6)
+    current_bandwidth: float | None = pos(
+        "Hz",
+        "current-loop crossover (default fsw/15; fsw/25 with the edge-aligned carrier)",
+        hi=1e6,
+    )
     ff_corner: float | None = pos(
         "Hz",
         "corner of the first-order low-pass on |v| in the duty feedforward 1 - |v|/v_bus "
@@ -282,6 +286,16 @@ class ControlTable:
         4,
         lo=0,
         hi=1000,
+    )
+    carrier: str = key(
+        "",
+        "PWM carrier and ADC instant: 'centre' (up-down counter, the fast leg's low switch on "
+        "d T/2 at each end of the period, the ADC at the counter's top) or 'edge' (up counter, "
+        "the low switch on for d T from the period start, the ADC at half that on-time from a "
+        "second compare); compare and gates take effect at the period start in both, and the "
+        "current loop is tuned on the chosen timing's sampled plant",
+        "centre",
+        choices=("centre", "edge"),
     )
     duty_max: float = key("1", "largest main-switch duty", 0.98, lo=0.5, hi=1.0, hi_open=True)
     pwm_timer_clock: float = pos("Hz", "PWM timer count frequency", 120e6, hi=1e10)

@@ -7,16 +7,31 @@ modelling chapters): current loop duty -> inductor current ``K_i/s``, ``K_i = Vo
 ``K_v = eta/(C Vo)`` (energy balance ``C Vo dv/dt = eta P_cmd - P_load``, constant-power load,
 the least damped case).
 
-Timing (the contract's, ``design.contract.TIMING``; the plant applies the same): centre-aligned
-PWM, the main switch on for ``d T/2`` at each end of the period, the ADC sampling at mid-period
-(the period's average current in CCM), the compare computed from that sample taking effect at
-the next period start. Between two samples lie the second half of the period before (duty
-``d[k-1]``) and the first half of the next one (``d[k]``), so the sampled current obeys
-``i[k+1] = i[k] + (K_i T/2) (d[k] + d[k-1])``:
+Timing (the contract's, ``design.contract.TIMINGS[carrier]``, ``[control] carrier``; the
+plant applies the same). Centre-aligned PWM: the main switch on for ``d T/2`` at each end of
+the period, the ADC sampling at mid-period (the period's average current in CCM), the compare
+computed from that sample taking effect at the next period start. Between two samples lie
+the second half of the period before (duty ``d[k-1]``) and the first half of the next one
+(``d[k]``), so the sampled current obeys ``i[k+1] = i[k] + (K_i T/2) (d[k] + d[k-1])``:
 
     P_i(z) = (K_i T / 2) (z + 1) / (z (z - 1))
 
 (the sample-and-hold and the half-period computation delay are in it; no free delay figure).
+Edge-aligned PWM: the low switch on for ``d T`` from the period start, the ADC at half that
+on-time (the middle of a ramp: the period's average in CCM). The sample then sits after the
+start by ``d T/2``, on a slope of ``|v|/L`` (positive half, the low switch the main one) or
+``(V_o - |v|)/L`` (negative half): ``s[k] = i_start[k] + a d[k]`` with ``a = a' K_i T``,
+``a' = |v|/(2 V_o)`` or ``(V_o - |v|)/(2 V_o)``, between 0 and 1/2, and ``i_start[k+1] =
+i_start[k] + K_i T d[k]``:
+
+    P_i(z) = K_i T ((1 - a') + a' z) / (z (z - 1))
+
+which is the centre-aligned plant at ``a' = 1/2`` and ``K_i T/(z (z - 1))`` at ``a' = 0`` (a
+main switch with no on-time before the sample: a whole period's delay). ``a' = 0`` has the
+least phase and the most gain at every frequency up to Nyquist (``|1 - a' + a' e^{jwT}| <= 1``,
+its phase lead ``>= 0``), so the edge-aligned loop is designed and its margins reported there:
+the worst point of the line cycle (the crossing in the positive half, the peak region at a
+high line in the negative half).
 The voltage loop runs at the end of each of ``BUS_BLOCKS`` blocks of a half line cycle
 (``tv = Th/BUS_BLOCKS``) on the mean of the last ``BUS_BLOCKS`` block means (a sliding half
 cycle), its command held over the next block: the bus at block ends ``v[n+1] = v[n] + K_v tv
@@ -36,12 +51,12 @@ from __future__ import annotations
 
 import math
 from collections.abc import Callable
-from dataclasses import asdict, dataclass
+from dataclasses import asdict, dataclass, replace
 
 import numpy as np
 
 from .config import Config, ConfigError
-from .contract import TIMING
+from .contract import timing
 
 BUS_BLOCKS = 8  # blocks of the sliding half-cycle bus average (a power of two)
 
@@ -151,12 +166,33 @@ def _design(
     return LoopDesign(name, kp, ki, ts, k_plant, nums, dens, fc, pm, *_margins(loop), units)
 
 
-def current_plant(k_i: float, ts: float) -> tuple[np.ndarray, np.ndarray]:
-    """P_i(z) = (K_i T/2) (z + 1)/(z (z - 1)): duty to the mid-period current sample."""
-    if TIMING != {"carrier": "centre-aligned", "sample_fraction": 0.5, "update": "period start"}:
-        raise NotImplementedError(f"the current loop's sampled plant is derived for {TIMING}")
-    a = 0.5 * k_i * ts
-    return np.array([a, a]), np.array([1.0, -1.0, 0.0])
+def with_plant(loop: LoopDesign, num: np.ndarray, den: np.ndarray) -> LoopDesign:
+    """``loop``'s PI on another sampled plant (for example the edge-aligned current plant at
+    another point of the line cycle), its crossover and margins computed afresh."""
+    nums, dens = tuple(float(x) for x in num), tuple(float(x) for x in den)
+    nan = math.nan
+    other = replace(loop, plant_num=nums, plant_den=dens, crossover_Hz=nan)
+    other = replace(other, phase_margin_deg=nan, gain_margin_dB=nan)
+    fc, pm, gm = _margins(other)
+    return replace(other, crossover_Hz=fc, phase_margin_deg=pm, gain_margin_dB=gm)
+
+
+def current_plant(
+    k_i: float, ts: float, carrier: str = "centre", a_rel: float = 0.0
+) -> tuple[np.ndarray, np.ndarray]:
+    """The duty to current-sample plant of ``carrier``'s timing (module docstring):
+    centre-aligned ``(K_i T/2) (z + 1)/(z (z - 1))``; edge-aligned ``K_i T ((1 - a') + a' z)/
+    (z (z - 1))`` with ``a' = a_rel`` in [0, 1/2] (0: the worst case, which the tuning uses)."""
+    t = timing(carrier)
+    if t["carrier"] == "centre-aligned" and t["sample"] == "counter top":
+        a = 0.5 * k_i * ts
+        return np.array([a, a]), np.array([1.0, -1.0, 0.0])
+    if t["carrier"] == "edge-aligned" and t["sample"] == "half the low switch's on-time":
+        if not 0.0 <= a_rel <= 0.5:
+            raise ValueError(f"a_rel {a_rel} outside [0, 0.5]")
+        k = k_i * ts
+        return np.array([a_rel * k, (1.0 - a_rel) * k]), np.array([1.0, -1.0, 0.0])
+    raise NotImplementedError(f"no sampled current plant derived for {t}")
 
 
 def voltage_plant(k_v: float, tv: float, blocks: int = BUS_BLOCKS) -> tuple[np.ndarray, np.ndarray]:
@@ -206,7 +242,7 @@ def _tune(
     cur = _design(
         "current_bandwidth/current_phase_margin_deg",
         k_i,
-        *current_plant(k_i, ts),
+        *current_plant(k_i, ts, c.carrier),
         current_bandwidth_Hz,
         c.current_phase_margin_deg,
         ts,

@@ -13,7 +13,7 @@ import math
 
 import numpy as np
 
-from design.contract import TIMING
+from design.contract import timing
 
 from . import filt
 from . import kernel as K
@@ -39,6 +39,7 @@ def stage_par(p: StageParams, load: Load) -> np.ndarray:
         p.dead_time_s,
     )
     par[LY.P_T], par[LY.P_COUNTS] = p.period_s, p.period_counts
+    par[LY.P_EDGE] = 1.0 if p.edge_carrier else 0.0
     par[LY.P_RSRC], par[LY.P_LSRC] = p.source_resistance_ohm, p.source_inductance_H
     par[LY.P_RELAY_DELAY] = p.relay_delay_s
     par[LY.P_VOUT], par[LY.P_CONNECT], par[LY.P_UVLO] = load.vout, load.connect_V, load.uvlo_V
@@ -114,8 +115,9 @@ class Plant:
     ):
         """``g_max_S``: the largest load conductance the run will see (bounds the exact
         solver's step, see ``step_plans``)."""
-        if TIMING["carrier"] != "centre-aligned" or TIMING["sample_fraction"] != 0.5:
-            raise NotImplementedError(f"the plant's period kernel simulates {TIMING} only")
+        t = timing("edge" if p.edge_carrier else "centre")
+        if t["update"] != "period start":
+            raise NotImplementedError(f"the plant's period kernel does not simulate {t}")
         n = grid.n
         self.p, self.n = p, n
         self.par = stage_par(p, load)

@@ -40,6 +40,7 @@ from .layout import (
     P_C,
     P_CONNECT,
     P_COUNTS,
+    P_EDGE,
     P_ESR,
     P_FILT,
     P_LSRC,
@@ -55,6 +56,7 @@ from .layout import (
     P_VREV,
     PLAN_DEAD,
     PLAN_HALF,
+    PLAN_PERIOD,
     R_EACU,
     R_ECORE,
     R_EDT,
@@ -110,6 +112,7 @@ from .layout import (
     W_QM,
     W_QM2,
     W_RPATH,
+    W_SAMP,
     W_SCALE,
     W_SLOW,
     W_V1,
@@ -181,6 +184,77 @@ def _stage_input(par, lane, harm, j, scale, s0, c0, ws):
     return vxa, vxb
 
 
+@jit_inline
+def _carrier_flags(ws, j, edge, dl, td, T, g):
+    """Lane ``j``'s per-carrier flags: whether each fast switch gets on-time (``W_GLO``,
+    ``W_GHI``), whether the centre-aligned dead time after t1 crosses T/2 (``W_B2LATE``), and
+    the sub-interval whose end is the ADC sample (``W_SAMP``)."""
+    if edge:
+        ton = dl * T
+        te = min(td, ton)
+        ws[W_GLO, j] = 1.0 if ((g & GATE_FAST_LO) != 0 and ton > te) else 0.0
+        ws[W_GHI, j] = 1.0 if ((g & GATE_FAST_HI) != 0 and min(ton + td, T) < T) else 0.0
+        ws[W_B2LATE, j] = 0.0
+        ws[W_SAMP, j] = 0.0 if 0.5 * ton <= te else 2.0
+    else:
+        t1 = dl * 0.5 * T
+        t2 = T - t1
+        b2_ = min(t1 + td, t2)
+        ws[W_GLO, j] = 1.0 if ((g & GATE_FAST_LO) != 0 and t1 > 0.0) else 0.0
+        ws[W_GHI, j] = 1.0 if ((g & GATE_FAST_HI) != 0 and t2 > b2_) else 0.0
+        ws[W_B2LATE, j] = 1.0 if b2_ > 0.5 * T else 0.0
+        ws[W_SAMP, j] = 2.0
+
+
+@jit_inline
+def _centre_bounds(seg, dl, td, T, qa_low, qa_high):
+    """Sub-interval ``seg`` (start, end, fast-leg state) of the centre-aligned carrier: the
+    low switch on for dl T/2 at each end, the high switch in the middle, the timer's dead time
+    at each edge; the ADC samples at T/2, the end of sub-interval 2."""
+    half = 0.5 * T
+    t1 = dl * half
+    t2 = T - t1
+    b2_ = min(t1 + td, t2)
+    b4 = min(t2 + td, T)
+    if seg == 0:
+        return 0.0, t1, qa_low
+    if seg == 1:
+        return t1, min(b2_, half), -1
+    if seg == 2:
+        return min(b2_, half), half, qa_high
+    if seg == 3:
+        return half, max(b2_, half), -1
+    if seg == 4:
+        return max(b2_, half), t2, qa_high
+    if seg == 5:
+        return t2, b4, -1
+    return b4, T, qa_low
+
+
+@jit_inline
+def _edge_bounds(seg, dl, td, T, qa_low, qa_high):
+    """Sub-interval ``seg`` of the edge-aligned carrier: the high switch off at the period
+    start, the low one on after the dead time te and off at ton = dl T, the high one on after
+    the dead time to the period's end; the ADC samples at ts = ton/2 (a second compare at half
+    the low switch's), the end of sub-interval 0 (ts <= te) or 2; sub-interval 6 is empty."""
+    ton = dl * T
+    te = min(td, ton)
+    ts = 0.5 * ton
+    if seg == 0:
+        return 0.0, min(te, ts), -1
+    if seg == 1:
+        return min(te, ts), te, -1
+    if seg == 2:
+        return te, max(te, ts), qa_low
+    if seg == 3:
+        return max(te, ts), ton, qa_low
+    if seg == 4:
+        return ton, min(ton + td, T), -1
+    if seg == 5:
+        return min(ton + td, T), T, qa_high
+    return T, T, -1
+
+
 @jit
 def _period_setup(par, lane, harm, t, compare, gates, relay, ws, switching):
     """Per lane: dip, inrush relay, load terms and what stays fixed over the period; for the
@@ -213,38 +287,21 @@ def _period_setup(par, lane, harm, t, compare, gates, relay, ws, switching):
         vxa, vxb = _stage_input(par, lane, harm, j, scale, s0, c0, ws)
         if not switching:
             continue
-        # center-aligned PWM: the fast low switch on for dl T/2 at each end, the high switch in
-        # the middle, the timer's dead time at each edge; T/2 (the ADC sample) is a boundary
         dl = min(max(float(compare[j]) / par[P_COUNTS], 0.0), 1.0)
         td = par[P_TDEAD] if (dl > 0.0 and dl < 1.0) else 0.0
-        t1 = dl * half
-        t2 = T - t1
-        b2_ = min(t1 + td, t2)
-        b4 = min(t2 + td, T)
         g = int(gates[j])
-        ws[W_GLO, j] = 1.0 if ((g & GATE_FAST_LO) != 0 and t1 > 0.0) else 0.0
-        ws[W_GHI, j] = 1.0 if ((g & GATE_FAST_HI) != 0 and t2 > b2_) else 0.0
-        ws[W_B2LATE, j] = 1.0 if b2_ > half else 0.0
         s_lo = (g & GATE_SLOW_LO) != 0
         s_hi = (g & GATE_SLOW_HI) != 0
         qb = 0 if (s_lo and not s_hi) else (1 if (s_hi and not s_lo) else -1)
         qa_low = 0 if (g & GATE_FAST_LO) != 0 else -1
         qa_high = 1 if (g & GATE_FAST_HI) != 0 else -1
+        edge = par[P_EDGE] != 0.0
+        _carrier_flags(ws, j, edge, dl, td, T, g)
         for seg in range(7):
-            if seg == 0:
-                a, b, qa = 0.0, t1, qa_low
-            elif seg == 1:
-                a, b, qa = t1, min(b2_, half), -1
-            elif seg == 2:
-                a, b, qa = min(b2_, half), half, qa_high
-            elif seg == 3:
-                a, b, qa = half, max(b2_, half), -1
-            elif seg == 4:
-                a, b, qa = max(b2_, half), t2, qa_high
-            elif seg == 5:
-                a, b, qa = t2, b4, -1
+            if edge:
+                a, b, qa = _edge_bounds(seg, dl, td, T, qa_low, qa_high)
             else:
-                a, b, qa = b4, T, qa_low
+                a, b, qa = _centre_bounds(seg, dl, td, T, qa_low, qa_high)
             dt = max(b - a, 0.0)
             m_pos, m_neg = _m_pair(qa, qb)
             ws[W_NOSW + seg, j] = 1.0 if qa < 0 else 0.0
@@ -378,8 +435,14 @@ def _switching_period(par, plans, ws, n):
         Q[j] = Q2[j] = EIN[j] = VB[j] = ws[W_QM, j] = ws[W_QM2, j] = ws[W_EDT, j] = 0.0
         IMAX[j] = IMIN[j] = IND[j]
         MPREV[j] = 0.0
+    edge = par[P_EDGE] != 0.0
     for seg in range(7):
-        kind = PLAN_DEAD if seg % 2 == 1 else PLAN_HALF
+        # the longest a sub-interval can last: the dead time, half a period, or (the high
+        # switch's of the edge-aligned carrier) a whole one
+        if edge:
+            kind = PLAN_DEAD if seg in (0, 1, 4) else (PLAN_PERIOD if seg == 5 else PLAN_HALF)
+        else:
+            kind = PLAN_DEAD if seg % 2 == 1 else PLAN_HALF
         pieces, order = plans[0, kind, 0], plans[0, kind, 1]
         DT = ws[W_DT + seg]
         # a sub-interval of zero length in every lane (the dead time at T/2, mostly) changes
@@ -393,8 +456,8 @@ def _switching_period(par, plans, ws, n):
             _solve_segment(par, plans, ws, n, seg, kind, pieces, order)
         for j in range(n):
             ws[W_ISEG + seg, j] = IND[j]
-        if seg == 2:  # the ADC sample at T/2
-            for j in range(n):
+        for j in range(n):  # the ADC sample, at the end of the sub-interval the carrier sets
+            if ws[W_SAMP, j] == seg:
                 ws[W_IS, j] = IND[j]
                 ws[W_VBS, j] = bus_k(MPREV[j], IND[j], VC[j], ICP[j], rc, K_[j])
 
@@ -455,18 +518,19 @@ def step_lanes(par, plans, lane, harm, seed, k, t, model, compare, gates, relay,
             # the losses the circuit does not carry (``plant.losses``), taken out of the bus
             # capacitor's energy at the period's end
             di = ws[W_IMAX, j] - ws[W_IMIN, j]
-            i_b2 = ws[W_ISEG + 3, j] if ws[W_B2LATE, j] != 0.0 else ws[W_ISEG + 1, j]
+            if par[P_EDGE] != 0.0:
+                # low off at ton (end of 3), high on after the dead time (end of 4); high off
+                # at the period's start (this period's start current), low on at te (end of 1)
+                i_t1, i_b2 = ws[W_ISEG + 3, j], ws[W_ISEG + 4, j]
+                i_t2, i_b4 = ws[W_ISTART, j], ws[W_ISEG + 1, j]
+            else:
+                i_t1 = ws[W_ISEG, j]
+                i_b2 = ws[W_ISEG + 3, j] if ws[W_B2LATE, j] != 0.0 else ws[W_ISEG + 1, j]
+                i_t2, i_b4 = ws[W_ISEG + 4, j], ws[W_ISEG + 5, j]
             e_sw = switching_energy(
-                par,
-                vbus_avg,
-                ws[W_VXH, j],
-                ws[W_GLO, j] != 0.0,
-                ws[W_GHI, j] != 0.0,
-                ws[W_ISEG, j],
-                i_b2,
-                ws[W_ISEG + 4, j],
-                ws[W_ISEG + 5, j],
-            )
+                par, vbus_avg, ws[W_VXH, j], ws[W_GLO, j] != 0.0, ws[W_GHI, j] != 0.0,
+                i_t1, i_b2, i_t2, i_b4,
+            )  # fmt: skip
             e_core, e_acu = core_energy(par, di), ac_copper_energy(par, di)
             e_x = e_sw + ws[W_EDT, j] + e_core + e_acu
             vc = ws[W_VC, j]

@@ -92,10 +92,12 @@ LANE_ROWS = 32
     P_FLS,
     P_FLM,
     P_FCX,
+    P_EDGE,
     P_FPHI,
-) = range(35)  # CPV/CPA: counts per V/A; P_CNODE..P_ACX: the loss model (``plant.losses``);
+) = range(36)  # CPV/CPA: counts per V/A; P_CNODE..P_ACX: the loss model (``plant.losses``);
 # P_LN_CPV: split line sensing's L and N channels, counts per V (0: one bipolar line channel);
-# P_FILT (1: an input filter, ``plant.filt``) .. P_FCX: its flag and elements; from P_FPHI: its
+# P_FILT (1: an input filter, ``plant.filt``) .. P_FCX: its flag and elements; P_EDGE: 1 for
+# the edge-aligned carrier (0: centre-aligned, ``design.contract.TIMINGS``); from P_FPHI: its
 # period map Phi (3 x 3, row-major), then g_v, g_slope, g_i (3 each)
 P_FGV, P_FGS, P_FGI = P_FPHI + 9, P_FPHI + 12, P_FPHI + 15
 PAR_ROWS = P_FPHI + 18
@@ -212,16 +214,18 @@ PLAN_HALF, PLAN_DEAD, PLAN_PERIOD = 0, 1, 2
     W_VXH,
     W_VG0,
     W_VG1,
+    W_SAMP,
     W_DT,
     W_VS,
     W_MP,
     W_MN,
     W_NOSW,
     W_ISEG,
-) = (*range(46), 46, 53, 60, 67, 74, 81)  # the last six: 7 rows each (one per sub-interval)
+) = (*range(47), 47, 54, 61, 68, 75, 82)  # the last six: 7 rows each (one per sub-interval)
 # W_VXH: the stage's input voltage at T/2 (the X capacitor's with a filter); W_VG0, W_VG1:
-# the grid source at the period's start and end
-WS_ROWS = 88
+# the grid source at the period's start and end; W_SAMP: the sub-interval after which the ADC
+# samples (by the carrier, ``plant.kernel``)
+WS_ROWS = 89
 THIRD = 1.0 / 3.0
 TWELFTH = 1.0 / 12.0
 

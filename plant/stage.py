@@ -69,6 +69,8 @@ class StageParams:
     dm_inductance_H: float = 0.0
     dm_resistance_ohm: float = 0.0
     dm_damping_ohm: float = 1e9  # the damping resistor across the DM inductor
+    # the PWM carrier (``design.contract.TIMINGS``): centre-aligned (False) or edge-aligned
+    edge_carrier: bool = False
 
     @property
     def filtered(self) -> bool:

@@ -6,12 +6,14 @@ PWM sub-interval integrated by solve_ivp (DOP853, rtol 1e-10) with the exact
 sinusoidal source, an event at zero current for diode conduction, and the
 zero-current state held until a path is forward-biased again.  It spans two line
 cycles and includes a stretch of discontinuous conduction: near each zero
-crossing the synchronous switch stays off, so its body diode blocks reversal.
+crossing the synchronous switch stays off, so its body diode blocks reversal.  Both carriers
+(``design.contract.TIMINGS``): the reference lays each one's sub-intervals out by itself.
 """
 
 from __future__ import annotations
 
 import math
+from dataclasses import replace
 
 import numpy as np
 import pytest
@@ -51,12 +53,12 @@ P = StageParams(
 VRMS, F, VBUS0, G = 230.0, 50.0, 390.0, 1.0 / 200.0
 
 
-def make_sequence(periods):
+def make_sequence(periods, p=P):
     """Closed loop under a P controller on our plant: returns per-period compare, gates, and
     states."""
     # a resistive load of conductance G, connected from the start (power-good and UVLO at 0 V)
     st = Plant(
-        P,
+        p,
         Grid(1, VRMS, F, 0.0),
         Load(1, "resistive", G * 400.0**2, 400.0, connect_V=0.0, uvlo_V=0.0),
         None,
@@ -160,7 +162,7 @@ def _interval(x, ta, tb, qa, qb):
     return x
 
 
-def reference(seq):
+def reference(seq, edge=False):
     T = P.period_s
     x = np.array([0.0, VBUS0])
     out = [x.copy()]
@@ -168,14 +170,23 @@ def reference(seq):
     for comp, gates in seq:
         dl = min(max(comp / P.period_counts, 0.0), 1.0)
         td = P.dead_time_s if 0.0 < dl < 1.0 else 0.0
-        t1, t2 = dl * T / 2, T - dl * T / 2
-        bounds = [
-            (0.0, t1, "lo"),
-            (t1, min(t1 + td, t2), "dead"),
-            (min(t1 + td, t2), t2, "hi"),
-            (t2, min(t2 + td, T), "dead"),
-            (min(t2 + td, T), T, "lo"),
-        ]
+        if edge:  # the low switch from the period start (after the dead time) for dl T
+            ton = dl * T
+            bounds = [
+                (0.0, min(td, ton), "dead"),
+                (min(td, ton), ton, "lo"),
+                (ton, min(ton + td, T), "dead"),
+                (min(ton + td, T), T, "hi"),
+            ]
+        else:  # the low switch dl T/2 at each end
+            t1, t2 = dl * T / 2, T - dl * T / 2
+            bounds = [
+                (0.0, t1, "lo"),
+                (t1, min(t1 + td, t2), "dead"),
+                (min(t1 + td, t2), t2, "hi"),
+                (t2, min(t2 + td, T), "dead"),
+                (min(t2 + td, T), T, "lo"),
+            ]
         qb = 0 if gates & GATE_SLOW_LO else (1 if gates & GATE_SLOW_HI else None)
         for a, b, kind in bounds:
             if b <= a:
@@ -188,11 +199,12 @@ def reference(seq):
     return np.array(out)
 
 
-@pytest.fixture(scope="module")
-def both():
+@pytest.fixture(scope="module", params=["centre", "edge"])
+def both(request):
     periods = int(2 / F / P.period_s)  # two line cycles
-    seq, ours = make_sequence(periods)
-    return seq, ours, reference(seq)
+    edge = request.param == "edge"
+    seq, ours = make_sequence(periods, replace(P, edge_carrier=edge))
+    return seq, ours, reference(seq, edge)
 
 
 def test_gate_sequence_has_dcm_stretch(both):

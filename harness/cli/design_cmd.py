@@ -44,10 +44,16 @@ def design(args: argparse.Namespace) -> int:
             [(k, *eng(v, u), f, src) for k, v, u, f, src in prj.sizing.rows()],
         )
     )
+    edge = prj.config.control.carrier == "edge"
+    sample = (
+        "edge-aligned carrier, sample at half the low switch's on-time, the current loop at "
+        "its worst point of the line cycle (no main on-time before the sample)"
+        if edge
+        else "centre-aligned carrier, mid-period sample"
+    )
     print(
-        "\nLoops (PI by backward Euler, placed and checked on the exact sampled loop: mid-period "
-        "sample, compare at the next period start; the voltage loop on the sliding half-cycle "
-        "bus mean)"
+        f"\nLoops (PI by backward Euler, placed and checked on the exact sampled loop: {sample}, "
+        "compare at the next period start; the voltage loop on the sliding half-cycle bus mean)"
     )
     rows = []
     for lp in (tun.current, tun.voltage):

@@ -84,6 +84,7 @@ def stage_params(prj: Project) -> StageParams:
         dm_inductance_H=pl.dm_inductance,
         dm_resistance_ohm=pl.dm_resistance,
         dm_damping_ohm=r.dm_damping_ohm,
+        edge_carrier=c.control.carrier == "edge",
     )
 
 
