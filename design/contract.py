@@ -306,8 +306,7 @@ TIMINGS = {
         "update": "period start",  # compare, gates and the ADC trigger at the counter's reset
     },
 }
-CARRIERS = tuple(TIMINGS)
-TIMING = TIMINGS["centre"]  # the default ([control] carrier = "centre")
+CARRIERS = tuple(TIMINGS)  # the choices of [control] carrier
 
 
 def timing(carrier: str) -> dict[str, str]:

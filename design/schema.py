@@ -14,6 +14,8 @@ import dataclasses
 from dataclasses import dataclass, field
 from typing import Any
 
+from .contract import CARRIERS
+
 
 @dataclass(frozen=True)
 class Key:
@@ -295,7 +297,7 @@ class ControlTable:
         "second compare); compare and gates take effect at the period start in both, and the "
         "current loop is tuned on the chosen timing's sampled plant",
         "centre",
-        choices=("centre", "edge"),
+        choices=CARRIERS,
     )
     duty_max: float = key("1", "largest main-switch duty", 0.98, lo=0.5, hi=1.0, hi_open=True)
     pwm_timer_clock: float = pos("Hz", "PWM timer count frequency", 120e6, hi=1e10)

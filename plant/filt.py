@@ -101,37 +101,31 @@ def discretise(
 
 # -- one period of a lane (the kernel's side) -------------------------------------------------
 @jit_inline
+def _map_row(par, r, x0, x1, x2, v0, slope, i_stage):
+    """Row ``r`` of the exact period map: Phi[r] x + g_v[r] v0 + g_slope[r] slope + g_i[r] i."""
+    k = P_FPHI + 3 * r
+    return (
+        par[k] * x0
+        + par[k + 1] * x1
+        + par[k + 2] * x2
+        + par[P_FGV + r] * v0
+        + par[P_FGS + r] * slope
+        + par[P_FGI + r] * i_stage
+    )
+
+
+@jit_inline
 def period_end(par, lane, j, v0, v1, i_stage):
     """Lane ``j``'s filter state at the period's end, ``(i_s, i_m, v_x)``, from its state at
     the start (``lane``), the source at the period's start and end (V) and the stage's
     period-average current (A), by the exact period map in ``par`` (``plant.batch.stage_par``)."""
     x0, x1, x2 = lane[j, L_FIS], lane[j, L_FIM], lane[j, L_FVX]
     slope = (v1 - v0) / par[P_T]
-    out0 = (
-        par[P_FPHI] * x0
-        + par[P_FPHI + 1] * x1
-        + par[P_FPHI + 2] * x2
-        + par[P_FGV] * v0
-        + par[P_FGS] * slope
-        + par[P_FGI] * i_stage
+    return (
+        _map_row(par, 0, x0, x1, x2, v0, slope, i_stage),
+        _map_row(par, 1, x0, x1, x2, v0, slope, i_stage),
+        _map_row(par, 2, x0, x1, x2, v0, slope, i_stage),
     )
-    out1 = (
-        par[P_FPHI + 3] * x0
-        + par[P_FPHI + 4] * x1
-        + par[P_FPHI + 5] * x2
-        + par[P_FGV + 1] * v0
-        + par[P_FGS + 1] * slope
-        + par[P_FGI + 1] * i_stage
-    )
-    out2 = (
-        par[P_FPHI + 6] * x0
-        + par[P_FPHI + 7] * x1
-        + par[P_FPHI + 8] * x2
-        + par[P_FGV + 2] * v0
-        + par[P_FGS + 2] * slope
-        + par[P_FGI + 2] * i_stage
-    )
-    return out0, out1, out2
 
 
 @jit_inline
