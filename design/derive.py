@@ -19,6 +19,7 @@ from .rules import (
     FF_CORNER_DIVISOR,
     HW_OV_OF_VOUT,
     HYST_OF_VPK_MIN,
+    LINE_SHARE_MAX,
     MAX_PERIOD_COUNTS,
     MIN_PERIOD_COUNTS,
     OC_TRIP_OF_PEAK,
@@ -98,6 +99,20 @@ def _pick(value: float | None, default: float) -> float:
     return default if value is None else value
 
 
+def line_terminal_max_V(cfg: Config, vpk_max_V: float, ov_V: float, inductance_H: float) -> float:
+    """The highest voltage the sensed line (the stage's input terminals) can show (V). With an
+    input filter the X capacitor holds it at the line's. Without one, the grid's inductance
+    L_s stands in series with the boost inductor L: while the rectifier's diodes carry a
+    surge into the bus (the line returning onto a sagged bus), the two inductances divide the
+    difference between line and bus, and the terminals sit L_s/(L_s + L) of the way from the
+    line's peak to the bus, at most the over-voltage trip (a voltage divider of two
+    inductances carrying the same current)."""
+    if cfg.plant.x_capacitance > 0.0:
+        return vpk_max_V
+    share = cfg.plant.source_inductance / (cfg.plant.source_inductance + inductance_H)
+    return vpk_max_V + share * max(ov_V - vpk_max_V, 0.0)
+
+
 def resolve(cfg: Config, inductance_H: float, capacitance_F: float, il_peak_A: float) -> Resolved:
     """Derive the missing values; ``il_peak_A`` is the sized peak inductor current."""
     s, c, pr, se = cfg.spec, cfg.control, cfg.protection, cfg.sensing
@@ -146,7 +161,11 @@ def resolve(cfg: Config, inductance_H: float, capacitance_F: float, il_peak_A: f
         device_current_A=_pick(pr.device_current_limit, DEVICE_OF_OC * oc),
         brownout_off_rms_V=_pick(pr.brownout_off_rms, BROWNOUT_OFF_OF_VMIN * s.vin_rms_min),
         brownout_on_rms_V=_pick(pr.brownout_on_rms, BROWNOUT_ON_OF_VMIN * s.vin_rms_min),
-        vac_range_V=_pick(se.vac_range, RANGE_MARGIN * vpk_max),
+        vac_range_V=_pick(
+            se.vac_range,
+            RANGE_MARGIN
+            * line_terminal_max_V(cfg, vpk_max, ov, _pick(cfg.plant.inductance, inductance_H)),
+        ),
         il_range_A=_pick(se.il_range, RANGE_MARGIN * oc),
         vbus_range_V=_pick(se.vbus_range, RANGE_MARGIN * ov),
         vac_offset_counts=_pick(se.vac_offset, mid),
@@ -173,6 +192,24 @@ def soft_start_s(capacitance_F: float, vout_V: float, power_W: float) -> float:
     return max(SOFT_START_MIN_S, t)
 
 
+def _check_line_share(cfg: Config, r: Resolved) -> None:
+    """Without an input filter the sensed line carries L_s/(L_s + L) of the boost inductor's
+    voltage: at most LINE_SHARE_MAX of it."""
+    pl = cfg.plant
+    share = pl.source_inductance / (pl.source_inductance + r.inductance_H)
+    if pl.x_capacitance == 0.0 and share > LINE_SHARE_MAX:
+        raise ConfigError(
+            f"{cfg.source}: [plant] source_inductance = {pl.source_inductance:g} H against the "
+            f"boost inductor's {r.inductance_H:.4g} H with no input filter ([plant] "
+            "x_capacitance = 0): "
+            f"the stage's input terminals, where the line is sensed, carry {100 * share:.0f} % of "
+            "the inductor's voltage (L_s/(L_s + L)), above the "
+            f"{100 * LINE_SHARE_MAX:.0f} % the firmware's line sensing allows; fit an input "
+            "filter ([plant] x_capacitance, 1 uF per kW is typical) or a larger boost inductor "
+            "([plant] inductance)"
+        )
+
+
 def _check(cfg: Config, r: Resolved) -> None:
     src = cfg.source
     s = cfg.spec
@@ -186,6 +223,7 @@ def _check(cfg: Config, r: Resolved) -> None:
             f"{soft_start_s(r.capacitance_F, s.vout, s.power):.3g} s)"
         )
     vpk_max = math.sqrt(2.0) * s.vin_rms_max
+    _check_line_share(cfg, r)
     if r.zc_blank_V <= r.zc_hysteresis_V:
         raise ConfigError(
             f"{src}: [control] zc_blank_voltage = {r.zc_blank_V:g} V: must be > zc_hysteresis = "

@@ -361,7 +361,10 @@ class SensingTable:
     )
     vac_range: float | None = pos(
         "V",
-        "line voltage at the top of the bipolar ADC range (default 1.25 x highest line peak)",
+        "line voltage at the top of the bipolar ADC range (default 1.25 x the highest voltage "
+        "the stage's input can show: the highest line peak with an input filter; without one, "
+        "that peak plus L_s/(L_s + L) of the way up to the over-voltage trip, where a "
+        "rectified surge puts it)",
         hi=10000.0,
     )
     il_range: float | None = pos(
