@@ -19,7 +19,6 @@ from .rules import (
     FF_CORNER_DIVISOR,
     HW_OV_OF_VOUT,
     HYST_OF_VPK_MIN,
-    LINE_SHARE_MAX,
     MAX_PERIOD_COUNTS,
     MIN_PERIOD_COUNTS,
     OC_TRIP_OF_PEAK,
@@ -192,24 +191,6 @@ def soft_start_s(capacitance_F: float, vout_V: float, power_W: float) -> float:
     return max(SOFT_START_MIN_S, t)
 
 
-def _check_line_share(cfg: Config, r: Resolved) -> None:
-    """Without an input filter the sensed line carries L_s/(L_s + L) of the boost inductor's
-    voltage: at most LINE_SHARE_MAX of it."""
-    pl = cfg.plant
-    share = pl.source_inductance / (pl.source_inductance + r.inductance_H)
-    if pl.x_capacitance == 0.0 and share > LINE_SHARE_MAX:
-        raise ConfigError(
-            f"{cfg.source}: [plant] source_inductance = {pl.source_inductance:g} H against the "
-            f"boost inductor's {r.inductance_H:.4g} H with no input filter ([plant] "
-            "x_capacitance = 0): "
-            f"the stage's input terminals, where the line is sensed, carry {100 * share:.0f} % of "
-            "the inductor's voltage (L_s/(L_s + L)), above the "
-            f"{100 * LINE_SHARE_MAX:.0f} % the firmware's line sensing allows; fit an input "
-            "filter ([plant] x_capacitance, 1 uF per kW is typical) or a larger boost inductor "
-            "([plant] inductance)"
-        )
-
-
 def _check(cfg: Config, r: Resolved) -> None:
     src = cfg.source
     s = cfg.spec
@@ -223,7 +204,6 @@ def _check(cfg: Config, r: Resolved) -> None:
             f"{soft_start_s(r.capacitance_F, s.vout, s.power):.3g} s)"
         )
     vpk_max = math.sqrt(2.0) * s.vin_rms_max
-    _check_line_share(cfg, r)
     if r.zc_blank_V <= r.zc_hysteresis_V:
         raise ConfigError(
             f"{src}: [control] zc_blank_voltage = {r.zc_blank_V:g} V: must be > zc_hysteresis = "

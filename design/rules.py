@@ -15,13 +15,6 @@ BLANK_OF_VPK_MIN = 0.08  # zero-crossing blanking: of the lowest line peak
 BROWNOUT_OFF_OF_VMIN = 0.85  # brown-out stop: of vin_rms_min
 BROWNOUT_ON_OF_VMIN = 0.92  # brown-out restart: of vin_rms_min
 RANGE_MARGIN = 1.25  # ADC full scale: of the largest value the channel must read
-# without an input filter the grid's inductance L_s and the boost inductor L carry one current,
-# so the stage's terminals, where the line is sensed, carry L_s/(L_s + L) of the inductor's
-# voltage on top of the line: at most this share, i.e. the boost inductor at least the grid's
-# (the larger part of the inductance the current sees; a judgement, not a standard). Beyond
-# it the firmware's line-loss, rms and feedforward read the stage more than the line: a 6.9 kW
-# universal design at 62 % stopped on line loss at a load step at low line (survey)
-LINE_SHARE_MAX = 0.5
 CURRENT_BW_DIVISOR = 15.0  # current-loop crossover: fsw over this (centre-aligned carrier)
 # ... and with the edge-aligned carrier, whose sample can lag the duty by up to a whole period
 # (``design.tuning``): at fsw/15 its sampled plant lags 126 deg and 57 deg of phase margin is

@@ -42,6 +42,26 @@ def run_polarity(b, v):
     return np.array(flips), np.array(freq), np.array(pols), s
 
 
+def test_polarity_changes_when_the_reading_rests_on_the_band_edge(demo_project, demo_built):
+    """A coarse line scale can hold the reading at exactly the hysteresis for a few periods on
+    its way out of the band (a low-line design at 174 kHz read one code for three periods).
+    That reading is not yet a candidate of the new sign, and it must not count as out of the
+    band either, or the line looks to have left the band too long before the candidate and
+    the polarity never changes. A 50 Hz line whose samples rest on +-hysteresis for 4 periods
+    after each crossing changes polarity once per half."""
+    c = consts(demo_project)
+    hyst = c["ZC_HYST_V"]
+    _, line, _ = wave(325.0, 50.0, 0.3, int(0.2 * FSW))
+    v = line.copy()
+    out = (np.abs(line[1:]) > hyst) & (np.abs(line[:-1]) <= hyst)  # leaving the band
+    for k in np.nonzero(out)[0] + 1:
+        v[k : k + 4] = math.copysign(hyst, line[k])  # rest on its edge for 4 periods
+    flips, _, pols, _ = run_polarity(demo_built, v)
+    crossings = np.count_nonzero(np.diff(np.sign(v)) != 0)
+    assert len(flips) >= crossings - 1 >= 18
+    assert np.all(np.diff(flips) > 0.8 * FSW / 100)  # one change per half, none in between
+
+
 @settings(max_examples=25, deadline=None)
 @given(
     amp=st.floats(60.0, 400.0),
