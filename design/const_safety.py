@@ -288,15 +288,33 @@ def guards(add: Add, prj: Project) -> None:
         f"rule: {SLOW_SWAP_OF_PEAK:g} x sized peak line current",
         (ib, 15),
     )
+    diode = prj.config.plant.slow_leg == "diode"
+    # a slow leg of diodes carries no reverse current: the synchronous switch only while the
+    # current's valley stays forward (half the worst-case ripple below the sampled mean)
+    hold = 0.5 * prj.sizing.ripple_worst_A if diode else -SYNC_MIN_OF_PEAK * ipk
     add(
         "SYNC_MIN_A",
-        SYNC_MIN_OF_PEAK * ipk,
+        SYNC_MIN_OF_PEAK * ipk + max(hold, 0.0),
         "f",
         "A",
         "synchronous switch turned on only with the current at least this far in the half's "
-        "direction (no reverse current through it), kept on until it has reversed this far "
-        "(hysteresis: no light-load limit cycle)",
-        f"rule: {SYNC_MIN_OF_PEAK:g} x sized peak line current",
+        "direction (no reverse current through it)",
+        f"rule: {SYNC_MIN_OF_PEAK:g} x sized peak line current"
+        + (" + SYNC_HOLD_A (a diode slow leg)" if diode else ""),
+        (ib, 15),
+    )
+    add(
+        "SYNC_HOLD_A",
+        hold,
+        "f",
+        "A",
+        "the synchronous switch, once on, is kept on while the current is this far in the "
+        "half's direction (below SYNC_MIN_A: hysteresis, no light-load limit cycle); with a "
+        "diode slow leg half the worst-case ripple forward, so that the valley never reverses "
+        "(the slow diode would block it and its midpoint swing)",
+        "half the worst-case ripple (diode slow leg)"
+        if diode
+        else f"rule: -{SYNC_MIN_OF_PEAK:g} x sized peak line current",
         (ib, 15),
     )
 

@@ -27,9 +27,14 @@ from .rules import (
     SOFT_START_CHARGE_OF_RATED,
     SOFT_START_MIN_S,
 )
+from .schema import PlantTable
 
 MU_0 = 4e-7 * math.pi  # H/m
 NODE_C_OHM_F = 8e-12  # default node capacitance x rds_on_fast (ohm F), illustrative
+# default slow-leg node capacitance: a superjunction pair's time-related output capacitance x
+# rds_on_slow (ohm F), or two line-frequency rectifiers' junctions (F); illustrative
+SLOW_NODE_C_OHM_F = 1.5e-10
+SLOW_NODE_C_DIODE_F = 100e-12
 CORE_MU_E = 60.0  # effective permeability of the default gapped core, illustrative
 
 
@@ -43,6 +48,7 @@ class Resolved:
     ff_corner_Hz: float
     soft_start_s: float
     node_capacitance_F: float
+    slow_node_capacitance_F: float
     x_capacitance_F: float  # 0: no input filter
     dm_damping_ohm: float
     core_volume_m3: float
@@ -94,6 +100,14 @@ class Resolved:
         return asdict(self)
 
 
+def slow_node_c_F(pl: PlantTable) -> float:
+    """Default capacitance (F) of the slow leg's midpoint for its device kind
+    (``[plant] slow_node_capacitance``)."""
+    if pl.slow_leg == "diode":
+        return SLOW_NODE_C_DIODE_F
+    return SLOW_NODE_C_OHM_F / pl.rds_on_slow if pl.rds_on_slow > 0.0 else 0.0
+
+
 def _pick(value: float | None, default: float) -> float:
     return default if value is None else value
 
@@ -138,6 +152,7 @@ def resolve(cfg: Config, inductance_H: float, capacitance_F: float, il_peak_A: f
             cfg.plant.node_capacitance,
             NODE_C_OHM_F / cfg.plant.rds_on_fast if cfg.plant.rds_on_fast > 0.0 else 0.0,
         ),
+        slow_node_capacitance_F=_pick(cfg.plant.slow_node_capacitance, slow_node_c_F(cfg.plant)),
         x_capacitance_F=cx,
         dm_damping_ohm=_pick(
             cfg.plant.dm_damping,

@@ -166,6 +166,25 @@ class PlantTable:
         "scales inversely with on-resistance; illustrative)",
         hi=1e-6,
     )
+    slow_node_capacitance: float | None = nonneg(
+        "F",
+        "charge-equivalent capacitance of the slow leg's midpoint to the bus rails, both "
+        "devices: while neither slow device conducts, the line current must move this charge "
+        "before the other one can take it (default: mosfet 1.5e-10 ohm F / rds_on_slow, a "
+        "650 V superjunction class whose time-related output capacitance scales inversely "
+        "with on-resistance; diode 100 pF, two line-frequency rectifiers' junctions; "
+        "illustrative)",
+        hi=1e-6,
+    )
+    slow_diode_qrr: float = nonneg(
+        "C",
+        "reverse-recovery charge of a slow-leg diode whose current the loop reverses while "
+        'it conducts (slow_leg = "diode"; 2e-7: a fast-recovery rectifier class at a few A '
+        "and tens of A/us, illustrative); a diode whose current has rested at zero for a "
+        "sub-interval is taken as recovered",
+        2e-7,
+        hi=1e-4,
+    )
     transition_time: float = nonneg(
         "s", "voltage-current overlap of a hard transition (illustrative)", 10e-9, hi=1e-6
     )

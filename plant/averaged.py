@@ -17,6 +17,7 @@ from .layout import (
     P_LSRC,
     P_LT,
     P_RSRC,
+    P_SDIODE,
     P_T,
     P_TDEAD,
     PLAN_PERIOD,
@@ -62,6 +63,8 @@ def period_averaged(par, plans, lane, j, vs, v_in, compare, gates, G, Icp, r_pat
     s_lo = (gates & GATE_SLOW_LO) != 0
     s_hi = (gates & GATE_SLOW_HI) != 0
     qb = 0 if (s_lo and not s_hi) else (1 if (s_hi and not s_lo) else -1)
+    if par[P_SDIODE] != 0.0:  # a slow leg of diodes: no gate moves it
+        qb = -1
     qb_pos = qb if qb >= 0 else 0
     qb_neg = qb if qb >= 0 else 1
     # fraction of the period the fast midpoint is on the plus rail, by current sign
@@ -69,7 +72,7 @@ def period_averaged(par, plans, lane, j, vs, v_in, compare, gates, G, Icp, r_pat
     m_neg = f_hi * hi_on - qb_neg
     i0, vc0 = lane[j, L_I], lane[j, L_VC]
     cc = circuit(Lt, C, rc, r_path, G, Icp)
-    i1, vc1, m, q, q2, qm, _, qb = segment(
+    i1, vc1, m, q, q2, qm, _, qb, _, _, _ = segment(
         i0,
         vc0,
         T,
@@ -79,6 +82,9 @@ def period_averaged(par, plans, lane, j, vs, v_in, compare, gates, G, Icp, r_pat
         cc,
         plans[relay, PLAN_PERIOD, 0],
         plans[relay, PLAN_PERIOD, 1],
+        0.0,
+        0.0,
+        0.0,
     )
     vb = qb / T
     iavg = q / T

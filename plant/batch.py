@@ -50,6 +50,9 @@ def stage_par(p: StageParams, load: Load) -> np.ndarray:
         p.transition_time_s,
         p.reverse_drop_V,
     )
+    par[LY.P_CSLOW] = p.slow_node_capacitance_F
+    par[LY.P_SDIODE] = 1.0 if p.slow_diode else 0.0
+    par[LY.P_QRR] = p.slow_qrr_C if p.slow_diode else 0.0
     par[LY.P_CORE_C], par[LY.P_CORE_BETA] = p.core_energy_coeff, p.core_beta
     par[LY.P_ACX] = p.ac_copper_ohm / 12.0  # the triangle's mean square: di^2/12
     if p.filtered:

@@ -35,20 +35,24 @@ from .layout import (
     L_RELAY_CMD,
     L_RELAY_T,
     L_S0,
+    L_SN,
     L_VC,
     MODEL_SWITCHING,
     P_C,
     P_CONNECT,
     P_COUNTS,
+    P_CSLOW,
     P_EDGE,
     P_ESR,
     P_FILT,
     P_LSRC,
     P_LT,
+    P_QRR,
     P_RELAY_DELAY,
     P_RINRUSH,
     P_RSRC,
     P_RTOT,
+    P_SDIODE,
     P_T,
     P_TDEAD,
     P_UVLO,
@@ -86,6 +90,7 @@ from .layout import (
     W_DT,
     W_EDT,
     W_EIN,
+    W_ESLOW,
     W_G,
     W_GHI,
     W_GLO,
@@ -114,7 +119,9 @@ from .layout import (
     W_RPATH,
     W_SAMP,
     W_SCALE,
+    W_SFREE,
     W_SLOW,
+    W_SN,
     W_V1,
     W_V2,
     W_VB,
@@ -293,6 +300,18 @@ def _period_setup(par, lane, harm, t, compare, gates, relay, ws, switching):
         s_lo = (g & GATE_SLOW_LO) != 0
         s_hi = (g & GATE_SLOW_HI) != 0
         qb = 0 if (s_lo and not s_hi) else (1 if (s_hi and not s_lo) else -1)
+        if par[P_SDIODE] != 0.0:  # a slow leg of diodes: no gate moves it
+            qb = -1
+        # a slow switch turned on takes its midpoint to its rail at once, through its
+        # channel: the node capacitance's energy over the step is lost (hard switching)
+        sn = lane[j, L_SN]
+        e_slow = 0.0
+        if qb >= 0:
+            dv = (qb - sn) * vc
+            e_slow = 0.5 * par[P_CSLOW] * dv * dv
+            sn = float(qb)
+        ws[W_SN, j], ws[W_ESLOW, j] = sn, e_slow
+        ws[W_SFREE, j] = 1.0 if (qb < 0 and par[P_CSLOW] > 0.0) else 0.0
         qa_low = 0 if (g & GATE_FAST_LO) != 0 else -1
         qa_high = 1 if (g & GATE_FAST_HI) != 0 else -1
         edge = par[P_EDGE] != 0.0
@@ -338,6 +357,7 @@ def _solve_segment(par, plans, ws, n, seg, kind, pieces, order):
     QM, QM2 = ws[W_QM], ws[W_QM2]
     DT, VS, MP, MN = ws[W_DT + seg], ws[W_VS + seg], ws[W_MP + seg], ws[W_MN + seg]
     NOSW, EDT, vrev = ws[W_NOSW + seg], ws[W_EDT], par[P_VREV]
+    SN, SFREE, cn, qrr = ws[W_SN], ws[W_SFREE], par[P_CSLOW], par[P_QRR]
     # matrices for conduction in the current's direction (forced: switches both ways), and
     # the first term of the series
     for j in range(n):
@@ -376,16 +396,34 @@ def _solve_segment(par, plans, ws, n, seg, kind, pieces, order):
         i0, vc0, i1, vc1 = IND[j], VC[j], X1[j], X2[j]
         m = M[j]
         forced = MP[j] == MN[j]
+        # a floating slow midpoint not on the rail the current needs swings first
+        free = SFREE[j] != 0.0
+        sn = SN[j]
+        off_rail = free and ((i0 > 0.0 and sn != 0.0) or (i0 < 0.0 and sn != 1.0))
         redo = dt > 0.0 and (
             SLOW[j] != 0.0
+            or off_rail
             or (not forced and (i0 == 0.0 or (i0 > 0.0 and i1 < 0.0) or (i0 < 0.0 and i1 > 0.0)))
         )
+        i_hi = i_lo = i1
         if redo:
             relay = 1 if SLOW[j] != 0.0 else 0
             cc = (inv_L, inv_C, K_[j], rc, RPATH[j], A22[j], B2[j], G[j], ICP[j])
-            i1, vc1, m, q, q2, qm, qm2, qb = segment(
-                i0, vc0, dt, MP[j], MN[j], VS[j], cc, plans[relay, kind, 0], plans[relay, kind, 1]
+            i1, vc1, m, q, q2, qm, qm2, qb, sn, i_hi, i_lo = segment(
+                i0,
+                vc0,
+                dt,
+                MP[j],
+                MN[j],
+                VS[j],
+                cc,
+                plans[relay, kind, 0],
+                plans[relay, kind, 1],
+                sn,
+                cn if free else 0.0,
+                qrr,
             )
+            SN[j] = sn
         else:
             if not dt > 0.0:
                 m = MPREV[j]
@@ -415,8 +453,8 @@ def _solve_segment(par, plans, ws, n, seg, kind, pieces, order):
         QM2[j] += qm2
         EIN[j] += VS[j] * q
         VB[j] += qb
-        IMAX[j] = max(IMAX[j], i1)
-        IMIN[j] = min(IMIN[j], i1)
+        IMAX[j] = max(IMAX[j], i_hi)
+        IMIN[j] = min(IMIN[j], i_lo)
         IND[j], VC[j], MPREV[j] = i1, vc1, m
 
 
@@ -532,6 +570,7 @@ def step_lanes(par, plans, lane, harm, seed, k, t, model, compare, gates, relay,
                 i_t1, i_b2, i_t2, i_b4,
             )  # fmt: skip
             e_core, e_acu = core_energy(par, di), ac_copper_energy(par, di)
+            e_sw += ws[W_ESLOW, j]  # the slow leg's hard switching, if any
             e_x = e_sw + ws[W_EDT, j] + e_core + e_acu
             vc = ws[W_VC, j]
             vc2 = vc * vc - 2.0 * e_x / par[P_C]
@@ -544,6 +583,7 @@ def step_lanes(par, plans, lane, harm, seed, k, t, model, compare, gates, relay,
             )
             out[j, R_VC], out[j, R_IEND] = vc, ws[W_I, j]
             lane[j, L_I], lane[j, L_VC] = ws[W_I, j], vc
+            lane[j, L_SN] = ws[W_SN, j]
     else:
         for j in range(n):
             relay = 1 if ws[W_SLOW, j] != 0.0 else 0

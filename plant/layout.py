@@ -49,12 +49,15 @@ TWO_PI = 2.0 * math.pi
     L_FIM,
     L_FVX,
     L_FISTG,
-) = range(32)
+    L_SN,
+) = range(33)
 # L_S0, L_C0: sin and cos of L_THETA, carried along by rotation; L_RELAY_CMD, L_RELAY_T: the
 # relay's last command (1 close) and when it changed (s); *3: the N channel of split sensing;
 # L_FIS, L_FIM, L_FVX: the input filter's line current, DM inductor current and X capacitor
-# voltage (``plant.filt``); L_FISTG: the stage's period-average current of the last period
-LANE_ROWS = 32
+# voltage (``plant.filt``); L_FISTG: the stage's period-average current of the last period;
+# L_SN: the slow leg's midpoint as a fraction of the bus (0: minus rail, 1: plus rail; between
+# while its node capacitance swings, ``plant.solver.swing``)
+LANE_ROWS = 33
 
 # entries of the parameter vector (``par``)
 (
@@ -93,11 +96,16 @@ LANE_ROWS = 32
     P_FLM,
     P_FCX,
     P_EDGE,
+    P_CSLOW,
+    P_SDIODE,
+    P_QRR,
     P_FPHI,
-) = range(36)  # CPV/CPA: counts per V/A; P_CNODE..P_ACX: the loss model (``plant.losses``);
+) = range(39)  # CPV/CPA: counts per V/A; P_CNODE..P_ACX: the loss model (``plant.losses``);
 # P_LN_CPV: split line sensing's L and N channels, counts per V (0: one bipolar line channel);
 # P_FILT (1: an input filter, ``plant.filt``) .. P_FCX: its flag and elements; P_EDGE: 1 for
-# the edge-aligned carrier (0: centre-aligned, ``design.contract.TIMINGS``); from P_FPHI: its
+# the edge-aligned carrier (0: centre-aligned, ``design.contract.TIMINGS``); P_CSLOW: the slow
+# leg's node capacitance (F, 0: its midpoint moves at once), P_SDIODE: 1 for a slow leg of
+# diodes, P_QRR: their reverse-recovery charge (C); from P_FPHI: the filter's
 # period map Phi (3 x 3, row-major), then g_v, g_slope, g_i (3 each)
 P_FGV, P_FGS, P_FGI = P_FPHI + 9, P_FPHI + 12, P_FPHI + 15
 PAR_ROWS = P_FPHI + 18
@@ -215,17 +223,22 @@ PLAN_HALF, PLAN_DEAD, PLAN_PERIOD = 0, 1, 2
     W_VG0,
     W_VG1,
     W_SAMP,
+    W_SN,
+    W_ESLOW,
+    W_SFREE,
     W_DT,
     W_VS,
     W_MP,
     W_MN,
     W_NOSW,
     W_ISEG,
-) = (*range(47), 47, 54, 61, 68, 75, 82)  # the last six: 7 rows each (one per sub-interval)
+) = (*range(50), 50, 57, 64, 71, 78, 85)  # the last six: 7 rows each (one per sub-interval)
 # W_VXH: the stage's input voltage at T/2 (the X capacitor's with a filter); W_VG0, W_VG1:
 # the grid source at the period's start and end; W_SAMP: the sub-interval after which the ADC
-# samples (by the carrier, ``plant.kernel``)
-WS_ROWS = 89
+# samples (by the carrier, ``plant.kernel``); W_SN: the slow leg's midpoint (``L_SN``); W_ESLOW:
+# the period's hard switching of the slow leg's node capacitance (J); W_SFREE: 1 while neither
+# slow device is switched on (its midpoint moves with the current)
+WS_ROWS = 92
 THIRD = 1.0 / 3.0
 TWELFTH = 1.0 / 12.0
 

@@ -20,7 +20,9 @@ sign forward-biases does (``q_A = 1`` for ``i > 0``, ``0`` for ``i < 0``; the
 slow leg the other way round).  When a diode current reaches zero the event
 time is found (Newton on the exact solution) and the current stays at zero
 until the inductor voltage forward-biases a path again: discontinuous
-conduction.
+conduction.  The slow midpoint has a node capacitance: with neither slow device on it floats,
+and a current that needs it on the other rail first swings its charge through the inductor
+(``plant.solver.swing``); a slow switch turning on moves it through its own channel.
 
 One PWM period (center-aligned): fast low switch commanded on for ``dL T/2`` at
 each end (``dL`` = compare/period), high switch in the middle, the timer's dead
@@ -58,6 +60,11 @@ class StageParams:
     relay_delay_s: float = 0.01  # the relay follows its command this long after
     # the losses of ``plant.losses`` (zero: none)
     node_capacitance_F: float = 0.0
+    # the slow leg: its midpoint's capacitance (0: it moves at once), diodes (True) or
+    # switches, and the diodes' reverse-recovery charge (``plant.solver.segment``)
+    slow_node_capacitance_F: float = 0.0
+    slow_diode: bool = False
+    slow_qrr_C: float = 0.0
     transition_time_s: float = 0.0
     reverse_drop_V: float = 0.0
     core_energy_coeff: float = 0.0  # J per period per A^beta of ripple

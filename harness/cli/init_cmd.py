@@ -29,6 +29,7 @@ DERIVED = {
     ("plant", "inductance"): "inductance_H",
     ("plant", "capacitance"): "capacitance_F",
     ("plant", "node_capacitance"): "node_capacitance_F",
+    ("plant", "slow_node_capacitance"): "slow_node_capacitance_F",
     ("plant", "core_volume"): "core_volume_m3",
     ("plant", "dm_damping"): "dm_damping_ohm",
     ("control", "current_bandwidth"): "current_bandwidth_Hz",

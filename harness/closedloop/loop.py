@@ -71,6 +71,9 @@ def stage_params(prj: Project) -> StageParams:
         inrush_resistance_ohm=pl.inrush_resistance,
         relay_delay_s=pl.relay_delay,
         node_capacitance_F=r.node_capacitance_F,
+        slow_node_capacitance_F=r.slow_node_capacitance_F,
+        slow_diode=pl.slow_leg == "diode",
+        slow_qrr_C=pl.slow_diode_qrr,
         transition_time_s=pl.transition_time,
         reverse_drop_V=pl.reverse_drop,
         # Steinmetz per period: k fsw^(alpha-1) V (B/A / 2)^beta x di^beta
