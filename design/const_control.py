@@ -5,11 +5,12 @@ from __future__ import annotations
 
 import math
 
-from .derive import ramp_charge_W
+from .derive import filter_resonance_Hz, ramp_charge_W
 from .project import Project
 from .rules import (
     DIODE_MARGIN_OF_VOUT,
     FF_STEP_OF_VPK_MIN,
+    GUARD_RAMP_RESONANCES,
     IREF_MAX_OF_OC,
     IREF_MAX_OF_PEAK,
     LINE_LOSS_RESET_S,
@@ -161,6 +162,23 @@ def iloop(add: Add, prj: Project) -> None:
         "bus above which the current reference is 0",
         f"vout + {VBUS_GUARD_OF_SPAN:g} (ov_trip - vout)",
         (vb, 15),
+    )
+    f_res = filter_resonance_Hz(prj.config)
+    n_ramp = max(1, math.ceil(GUARD_RAMP_RESONANCES * s.fsw / f_res)) if f_res else 1
+    add(
+        "GUARD_STEP",
+        1.0 / n_ramp,
+        "f",
+        "1",
+        "the bus guard's factor on the current reference moves by this each period: down to 0 "
+        "while the bus is above VBUS_GUARD_V, back to 1 below it",
+        (
+            f"1 / ceil({GUARD_RAMP_RESONANCES:g} fsw / f_res), f_res = {f_res:.4g} Hz the input "
+            "filter's resonance"
+            if f_res
+            else "1: at once (no input filter)"
+        ),
+        (1.0, 15),
     )
     add(
         "IKP",

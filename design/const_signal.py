@@ -162,15 +162,20 @@ def polarity(add: Add, prj: Project) -> None:
     )
     add(
         "ZC_DEBOUNCE",
-        c.zc_debounce_periods,
+        r.zc_debounce_periods,
         "u",
         "periods",
         "samples beyond the band before the polarity changes",
-        "[control] zc_debounce_periods",
+        "[control] zc_debounce_periods"
+        + (
+            ""
+            if c.zc_debounce_periods is not None
+            else " (default: 2, or past half the filter's resonance)"
+        ),
     )
     add(
         "ZC_NEAR_PERIODS",
-        c.zc_debounce_periods + ZC_NEAR_MARGIN_PERIODS,
+        r.zc_debounce_periods + ZC_NEAR_MARGIN_PERIODS,
         "u",
         "periods",
         "the polarity changes only with the line inside the hysteresis band this recently: a "

@@ -35,6 +35,8 @@ NODE_C_OHM_F = 8e-12  # default node capacitance x rds_on_fast (ohm F), illustra
 # rds_on_slow (ohm F), or two line-frequency rectifiers' junctions (F); illustrative
 SLOW_NODE_C_OHM_F = 1.5e-10
 SLOW_NODE_C_DIODE_F = 100e-12
+ZC_DEBOUNCE_MIN = 2  # samples beyond the hysteresis band before the polarity changes
+X_CAP_F_PER_W = 1e-9  # default X capacitance: 1 uF per kW of rated power (common practice)
 CORE_MU_E = 60.0  # effective permeability of the default gapped core, illustrative
 
 
@@ -54,6 +56,7 @@ class Resolved:
     core_volume_m3: float
     core_flux_per_A: float  # T per ampere of inductor current
     zc_hysteresis_V: float
+    zc_debounce_periods: int
     zc_blank_V: float
     ov_trip_V: float
     oc_trip_A: float
@@ -100,6 +103,31 @@ class Resolved:
         return asdict(self)
 
 
+def x_capacitance_F(cfg: Config) -> float:
+    """The input filter's X capacitance (F): ``[plant] x_capacitance``, by default
+    ``X_CAP_F_PER_W`` of the rated power (0: no filter)."""
+    return _pick(cfg.plant.x_capacitance, X_CAP_F_PER_W * cfg.spec.power)
+
+
+def filter_resonance_Hz(cfg: Config) -> float:
+    """The input filter's resonance (Hz): its X capacitor with the grid's and the DM
+    inductances in series (the damping resistor across the DM inductor left out); 0 without a
+    filter."""
+    cx, pl = x_capacitance_F(cfg), cfg.plant
+    if cx <= 0.0:
+        return 0.0
+    return 1.0 / (2.0 * math.pi * math.sqrt((pl.source_inductance + pl.dm_inductance) * cx))
+
+
+def zc_debounce_default(fsw_Hz: float, f_res_Hz: float) -> int:
+    """Samples beyond the band before the polarity changes: ``ZC_DEBOUNCE_MIN``, or with an
+    input filter one more than half its resonance period in switching periods (its ring after
+    a line dropout crosses zero at the resonance, and cannot hold one sign that long)."""
+    if f_res_Hz <= 0.0:
+        return ZC_DEBOUNCE_MIN
+    return max(ZC_DEBOUNCE_MIN, math.ceil(fsw_Hz / (2.0 * f_res_Hz)) + 1)
+
+
 def slow_node_c_F(pl: PlantTable) -> float:
     """Default capacitance (F) of the slow leg's midpoint for its device kind
     (``[plant] slow_node_capacitance``)."""
@@ -120,7 +148,7 @@ def line_terminal_max_V(cfg: Config, vpk_max_V: float, ov_V: float, inductance_H
     difference between line and bus, and the terminals sit L_s/(L_s + L) of the way from the
     line's peak to the bus, at most the over-voltage trip (a voltage divider of two
     inductances carrying the same current)."""
-    if cfg.plant.x_capacitance > 0.0:
+    if x_capacitance_F(cfg) > 0.0:
         return vpk_max_V
     share = cfg.plant.source_inductance / (cfg.plant.source_inductance + inductance_H)
     return vpk_max_V + share * max(ov_V - vpk_max_V, 0.0)
@@ -135,7 +163,7 @@ def resolve(cfg: Config, inductance_H: float, capacitance_F: float, il_peak_A: f
     ov = _pick(pr.ov_trip, OV_TRIP_OF_VOUT * s.vout)
     mid = float(2 ** (se.adc_bits - 1))
     cap = _pick(cfg.plant.capacitance, capacitance_F)
-    cx = cfg.plant.x_capacitance
+    cx = x_capacitance_F(cfg)
     r = Resolved(
         inductance_H=_pick(cfg.plant.inductance, inductance_H),
         capacitance_F=cap,
@@ -144,9 +172,7 @@ def resolve(cfg: Config, inductance_H: float, capacitance_F: float, il_peak_A: f
             s.fsw / (CURRENT_BW_DIVISOR_EDGE if c.carrier == "edge" else CURRENT_BW_DIVISOR),
         ),
         # the feedforward's low-pass keeps the input filter's resonance quiet: none without one
-        ff_corner_Hz=_pick(
-            c.ff_corner, s.fsw / FF_CORNER_DIVISOR if cfg.plant.x_capacitance > 0.0 else math.inf
-        ),
+        ff_corner_Hz=_pick(c.ff_corner, s.fsw / FF_CORNER_DIVISOR if cx > 0.0 else math.inf),
         soft_start_s=_pick(c.soft_start_time, soft_start_s(cap, s.vout, s.power)),
         node_capacitance_F=_pick(
             cfg.plant.node_capacitance,
@@ -168,6 +194,11 @@ def resolve(cfg: Config, inductance_H: float, capacitance_F: float, il_peak_A: f
         ),
         core_flux_per_A=cfg.plant.core_peak_flux / il_peak_A,
         zc_hysteresis_V=_pick(c.zc_hysteresis, HYST_OF_VPK_MIN * vpk_min),
+        zc_debounce_periods=(
+            c.zc_debounce_periods
+            if c.zc_debounce_periods is not None
+            else zc_debounce_default(s.fsw, filter_resonance_Hz(cfg))
+        ),
         zc_blank_V=_pick(c.zc_blank_voltage, BLANK_OF_VPK_MIN * vpk_min),
         ov_trip_V=ov,
         oc_trip_A=oc,

@@ -51,6 +51,9 @@ PCMD_MAX_OF_RATED = 1.3  # largest power command: of rated input power
 IREF_MAX_OF_PEAK = 1.25  # largest current reference: of the sized peak line current ...
 IREF_MAX_OF_OC = 0.85  # ... and of the over-current trip, the smaller of the two
 VBUS_GUARD_OF_SPAN = 0.6  # reference zeroed above vout + this x (ov_trip - vout)
+# ... over this many periods of the input filter's resonance (none: at once): a stage current cut
+# in one period rings the filter by the step times its characteristic impedance
+GUARD_RAMP_RESONANCES = 2.0
 DIODE_MARGIN_OF_VOUT = 0.02  # |v| within this of the bus: the line rectified by the diodes
 PRECHARGE_OF_PEAK = 0.85  # bus precharged at this fraction of the line peak ...
 RELAY_RISE_OF_VOUT = 0.01  # relay closes with the bus steady: moving less than this (of vout)

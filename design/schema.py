@@ -188,6 +188,14 @@ class PlantTable:
     transition_time: float = nonneg(
         "s", "voltage-current overlap of a hard transition (illustrative)", 10e-9, hi=1e-6
     )
+    fast_qrr: float = nonneg(
+        "C",
+        "reverse-recovery charge of a fast-leg switch's body diode, swept at the other switch's "
+        "hard turn-on after the dead time: E = Q_rr v_bus (0: none, a GaN class; a 650 V SiC "
+        "MOSFET class of 40 mohm has some 50 to 100 nC; from memory, illustrative)",
+        0.0,
+        hi=1e-5,
+    )
     reverse_drop: float = nonneg(
         "V",
         "fast leg's reverse conduction drop while neither switch is on: body diode or third "
@@ -221,13 +229,12 @@ class PlantTable:
         lo=1.0,
         hi=100.0,
     )
-    x_capacitance: float = nonneg(
+    x_capacitance: float | None = nonneg(
         "F",
         "input filter's X capacitance across the stage's input, after the DM inductor; it "
-        "carries the inductor's ripple and its voltage is the sensed line (1 uF per kW of "
-        "rated power is typical; 0, the default: no filter, the grid's impedance then in "
-        "series with the boost inductor)",
-        0.0,
+        "carries the inductor's ripple and its voltage is the sensed line (default 1 uF per kW "
+        "of [spec] power: common practice; 0: no filter, the grid's impedance then in series "
+        "with the boost inductor)",
         hi=1e-3,
     )
     dm_inductance: float = pos(
@@ -288,8 +295,13 @@ class ControlTable:
         "polarity comparator hysteresis half-band (default 4 % of the lowest line peak)",
         hi=100.0,
     )
-    zc_debounce_periods: int = key(
-        "periods", "consecutive samples beyond the band before the polarity changes", 2, lo=1, hi=64
+    zc_debounce_periods: int | None = key(
+        "periods",
+        "consecutive samples beyond the band before the polarity changes (default 2, or with an "
+        "input filter one more than half its resonance period, which its ring cannot outlast)",
+        None,
+        lo=1,
+        hi=64,
     )
     zc_blank_voltage: float | None = pos(
         "V", "|v| below which neither leg switches (default 8 % of the lowest line peak)", hi=200.0

@@ -3,6 +3,8 @@ period-average midpoint positions (``plant.kernel`` calls it for every lane)."""
 
 from __future__ import annotations
 
+import math
+
 from .jit import jit
 from .layout import (
     GATE_FAST_HI,
@@ -20,6 +22,7 @@ from .layout import (
     P_SDIODE,
     P_T,
     P_TDEAD,
+    P_VREV,
     PLAN_PERIOD,
     R_EACU,
     R_ECORE,
@@ -41,6 +44,7 @@ from .layout import (
     R_VS,
     R_VTERM,
 )
+from .losses import ac_copper_energy, core_energy, switching_energy
 from .solver import circuit, segment
 
 
@@ -51,7 +55,8 @@ def period_averaged(par, plans, lane, j, vs, v_in, compare, gates, G, Icp, r_pat
     diodes for part of the period blocks reversal (a simple account of discontinuous
     conduction).  The sample is the period average.  ``vs``: the grid source at mid-period;
     ``v_in``: the stage's input voltage there (the X capacitor's with a filter, else ``vs``).
-    Same outputs as the switching period's, less the filter's (``plant.filt``)."""
+    Same outputs as the switching period's, less the filter's (``plant.filt``), the losses
+    the circuit does not carry estimated from the ripple (``_ripple_losses``)."""
     T, Lt, C, rc = par[P_T], par[P_LT], par[P_C], par[P_ESR]
     dl = min(max(compare / par[P_COUNTS], 0.0), 1.0)
     td = par[P_TDEAD] if (dl > 0.0 and dl < 1.0) else 0.0
@@ -103,7 +108,58 @@ def period_averaged(par, plans, lane, j, vs, v_in, compare, gates, G, Icp, r_pat
     # capacitor current m i - i_load; |m| is the fraction of the period the bus sees the current
     i_load = G * vb + Icp
     out[R_EESR] = rc * (abs(m) * q2 - 2.0 * i_load * qm + i_load * i_load * T)
+    # the losses the circuit does not carry, from the period's ripple about its average
+    # (``_ripple_losses``), taken out of the bus capacitor's energy as the switching model does
+    e_sw, e_dt, e_core, e_acu = _ripple_losses(
+        par, vb, v_in, iavg, f_lo * lo_on, f_hi * hi_on, lo_on != 0.0, hi_on != 0.0, td
+    )
+    # the ripple's own mean square in the path's resistance (a triangle: di^2/12), which the
+    # exact update on the average does not carry
+    di = ripple_A(par, v_in, iavg, f_lo * lo_on, f_hi * hi_on, lo_on != 0.0, hi_on != 0.0)
+    q2r = di * di * T / 12.0
+    out[R_I2] += q2r
+    out[R_ELOSS] += r_path * q2r
+    e_x = e_sw + e_dt + e_core + e_acu + r_path * q2r
+    vc2 = vc1 * vc1 - 2.0 * e_x / C
+    vc1 = math.sqrt(vc2) if vc2 > 0.0 else 0.0
     out[R_VC], out[R_IEND] = vc1, i1
-    # the averaged model has no transitions: no switching, dead-time, core or AC copper loss
-    out[R_ESW] = out[R_EDT] = out[R_ECORE] = out[R_EACU] = 0.0
+    out[R_ESW], out[R_EDT], out[R_ECORE], out[R_EACU] = e_sw, e_dt, e_core, e_acu
     return i1, vc1
+
+
+@jit
+def ripple_A(par, v_in, i, d_lo, d_hi, glo, ghi):
+    """The period's ripple (A, top less bottom) as ``_ripple_losses`` takes it."""
+    top, bottom = _top_bottom(par, v_in, i, d_lo, d_hi, glo, ghi)
+    return top - bottom
+
+
+@jit
+def _top_bottom(par, v_in, i, d_lo, d_hi, glo, ghi):
+    """The current at its top (the low switch's turn-off) and bottom (the high one's)."""
+    pos = i > 0.0 or (i == 0.0 and v_in >= 0.0)
+    d_main = d_lo if pos else d_hi
+    di = abs(v_in) * d_main * par[P_T] / par[P_LT]
+    top, bottom = i + 0.5 * di, i - 0.5 * di
+    if pos and not ghi:
+        bottom = max(bottom, 0.0)
+    if (not pos) and not glo:
+        top = min(top, 0.0)
+    return top, bottom
+
+
+@jit
+def _ripple_losses(par, vb, v_in, i, d_lo, d_hi, glo, ghi, td):
+    """(switching, dead-time, core, AC copper) energy (J) of one period of the averaged
+    model: the ripple the main switch's on-time gives, |v| d T / L (the main switch is the
+    one the current's direction makes the boost switch: low for i > 0, high for i < 0; with
+    no current, the half the line's sign gives), about the period's average current; the
+    current at its top where the low switch turns off and at its bottom where the high one
+    does, clamped at zero where a body diode, not a switch, would carry it back (the
+    synchronous switch off: discontinuous conduction); the dead-time conduction at the two
+    edges' currents.  Continuous conduction within the period otherwise."""
+    top, bottom = _top_bottom(par, v_in, i, d_lo, d_hi, glo, ghi)
+    e_sw = switching_energy(par, vb, v_in, glo, ghi, top, top, bottom, bottom)
+    e_dt = par[P_VREV] * (abs(top) + abs(bottom)) * td
+    swing = top - bottom
+    return e_sw, e_dt, core_energy(par, swing), ac_copper_energy(par, swing)

@@ -51,6 +51,7 @@ def stage_par(p: StageParams, load: Load) -> np.ndarray:
         p.reverse_drop_V,
     )
     par[LY.P_CSLOW] = p.slow_node_capacitance_F
+    par[LY.P_QRRF] = p.fast_qrr_C
     par[LY.P_SDIODE] = 1.0 if p.slow_diode else 0.0
     par[LY.P_QRR] = p.slow_qrr_C if p.slow_diode else 0.0
     par[LY.P_CORE_C], par[LY.P_CORE_BETA] = p.core_energy_coeff, p.core_beta

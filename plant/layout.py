@@ -99,13 +99,15 @@ LANE_ROWS = 33
     P_CSLOW,
     P_SDIODE,
     P_QRR,
+    P_QRRF,
     P_FPHI,
-) = range(39)  # CPV/CPA: counts per V/A; P_CNODE..P_ACX: the loss model (``plant.losses``);
+) = range(40)  # CPV/CPA: counts per V/A; P_CNODE..P_ACX: the loss model (``plant.losses``);
 # P_LN_CPV: split line sensing's L and N channels, counts per V (0: one bipolar line channel);
 # P_FILT (1: an input filter, ``plant.filt``) .. P_FCX: its flag and elements; P_EDGE: 1 for
 # the edge-aligned carrier (0: centre-aligned, ``design.contract.TIMINGS``); P_CSLOW: the slow
 # leg's node capacitance (F, 0: its midpoint moves at once), P_SDIODE: 1 for a slow leg of
-# diodes, P_QRR: their reverse-recovery charge (C); from P_FPHI: the filter's
+# diodes, P_QRR: their reverse-recovery charge (C); P_QRRF: the fast leg's body-diode
+# reverse-recovery charge at a hard turn-on (C); from P_FPHI: the filter's
 # period map Phi (3 x 3, row-major), then g_v, g_slope, g_i (3 each)
 P_FGV, P_FGS, P_FGI = P_FPHI + 9, P_FPHI + 12, P_FPHI + 15
 PAR_ROWS = P_FPHI + 18

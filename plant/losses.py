@@ -15,7 +15,8 @@ time).  The current at the turn-off edge decides the transition:
   (E = C (v (1 - x))^2 / 2, x = |i| t_dead/(C v), a linear node capacitance);
 - carried away from it (hard): the outgoing switch's current stays in its body diode, and
   the incoming switch discharges the node (E = C v^2 / 2, the node's energy-equivalent
-  capacitance of both devices) and takes the current with overlap (E = v |i| t_tr / 2);
+  capacitance of both devices), takes the current with overlap (E = v |i| t_tr / 2) and
+  sweeps the body diode's recovery charge at the bus voltage (E = Q_rr v, ``fast_qrr``);
 - zero (discontinuous conduction): the node rests where the inductor has no voltage, |v_s|
   from the incoming switch's rail, and that switch discharges it (E = C vs^2 / 2; the ring
   of the node around that level is not followed).
@@ -34,7 +35,7 @@ inductor): E = k fsw^(alpha - 1) V_core B^beta per period.  Copper: the ripple's
 from __future__ import annotations
 
 from .jit import jit_inline
-from .layout import P_ACX, P_CNODE, P_CORE_BETA, P_CORE_C, P_T, P_TDEAD, P_TTR
+from .layout import P_ACX, P_CNODE, P_CORE_BETA, P_CORE_C, P_QRRF, P_T, P_TDEAD, P_TTR
 
 
 @jit_inline
@@ -53,6 +54,7 @@ def switching_energy(par, v, vs, glo, ghi, i_t1, i_b2, i_t2, i_b4):
     whether the low (``glo``) and high (``ghi``) switch had on-time, and the current at the
     four edges (t1, t1 + dead, t2, t2 + dead)."""
     c, ttr, td = par[P_CNODE], par[P_TTR], par[P_TDEAD]
+    e_rr = par[P_QRRF] * v  # the outgoing switch's body diode recovered at the bus voltage
     e = 0.0
     # low off at t1, high on after the dead time
     if glo and i_t1 > 0.0:
@@ -61,7 +63,7 @@ def switching_energy(par, v, vs, glo, ghi, i_t1, i_b2, i_t2, i_b4):
         if i_t1 > 0.0:
             e += _soft_on(c, v, i_t1, td, not glo)
         elif i_t1 < 0.0:
-            e += 0.5 * c * v * v + 0.5 * v * abs(i_b2) * ttr
+            e += 0.5 * c * v * v + 0.5 * v * abs(i_b2) * ttr + e_rr
         else:
             e += 0.5 * c * vs * vs
     # high off at t2, low on after the dead time
@@ -71,7 +73,7 @@ def switching_energy(par, v, vs, glo, ghi, i_t1, i_b2, i_t2, i_b4):
         if i_t2 < 0.0:
             e += _soft_on(c, v, -i_t2, td, not ghi)
         elif i_t2 > 0.0:
-            e += 0.5 * c * v * v + 0.5 * v * abs(i_b4) * ttr
+            e += 0.5 * c * v * v + 0.5 * v * abs(i_b4) * ttr + e_rr
         else:
             e += 0.5 * c * vs * vs
     return e

@@ -114,7 +114,8 @@ def swing(ti0, te0, dist, r, L, cn, t_max):
     wd = math.sqrt(w0 * w0 - alpha * alpha)
     z = L * wd
     b = (te0 - 0.5 * r * ti0) / z
-    rho = math.sqrt(te0 * te0 + (z * ti0) ** 2)
+    zi = z * ti0
+    rho = math.sqrt(te0 * te0 + zi * zi)
     phi = math.atan2(z * ti0, te0)  # in [0, pi]: the phase of e~ = rho cos(wd t + phi)
     # the current back at zero (wd t + phi = pi) and the node at the rail (e~ = te0 - dist),
     # from the undamped phases, then Newton on the damped solution
@@ -146,7 +147,8 @@ def swing(ti0, te0, dist, r, L, cn, t_max):
     # swing is a part in 1e3 at most)
     q = cn * (te0 - et) if how != 1 else cn * dist
     x0, x1 = phi, phi + wd * t
-    q2 = (rho / z) ** 2 / wd * (0.5 * (x1 - x0) - 0.25 * (math.sin(2.0 * x1) - math.sin(2.0 * x0)))
+    amp = rho / z
+    q2 = amp * amp / wd * (0.5 * (x1 - x0) - 0.25 * (math.sin(2.0 * x1) - math.sin(2.0 * x0)))
     peak = max(ti0, it)
     if x0 < 0.5 * math.pi < x1:
         peak = max(peak, rho / z * math.exp(-alpha * (0.5 * math.pi - phi) / wd))

@@ -67,6 +67,7 @@ class StageParams:
     slow_qrr_C: float = 0.0
     transition_time_s: float = 0.0
     reverse_drop_V: float = 0.0
+    fast_qrr_C: float = 0.0  # body-diode recovery at a hard turn-on
     core_energy_coeff: float = 0.0  # J per period per A^beta of ripple
     core_beta: float = 2.5
     ac_copper_ohm: float = 0.0  # the winding's extra resistance to the ripple

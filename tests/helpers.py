@@ -44,6 +44,17 @@ _NO_SYNC_GUARD = (
     '''"fwd > sync_min", "on > 0u"''',
     '''"(fwd == fwd) && (sync_min == sync_min)"''',
 )
+_NO_ZC_RAMP = (
+    "pwm.c.j2",
+    "    if (s->ramp >= {{ P }}_ZC_RAMP_PERIODS) {\n        return {{ P }}_DUTY_MAX;\n    }",
+    "    if (true) { /* TEST BUILD: no duty ramp after the crossing */\n"
+    "        return {{ P }}_DUTY_MAX;\n    }",
+)
+_NO_MS_FLOOR = (
+    "rms.c.j2",
+    "            s->inv_ms = 1.0f / ((ms > {{ P }}_MS_FLOOR_V2) ? ms : {{ P }}_MS_FLOOR_V2);",
+    "            s->inv_ms = 1.0f / ms; /* TEST BUILD: no floor under the mean square */",
+)
 BREAKS = {
     # no zero-crossing window: keeps switching in the old polarity until the new one is
     # confirmed (the slow leg's off-time rule still holds it off at each change)
@@ -51,6 +62,10 @@ BREAKS = {
     # no zero-crossing window, no slow-leg off-time rule, synchronous switch whatever the
     # current's direction
     "no_zc_window": [_NO_BLANK, _NO_SLOW_GUARD, _NO_SYNC_GUARD],
+    # full duty at once after each crossing (float builds)
+    "no_zc_ramp": [_NO_ZC_RAMP],
+    # 1/Vrms^2 with no floor under the mean square (float builds)
+    "no_ms_floor": [_NO_MS_FLOOR],
 }
 
 

@@ -180,8 +180,24 @@ def test_iref_product_clamp_and_guard(demo_project, demo_built):
     assert lib.pfc_iref_step(s, 1e6, 325.0, 1.0 / 52900.0, 400.0) == pytest.approx(
         c["IREF_MAX_A"], rel=1e-6
     )
-    assert lib.pfc_iref_step(s, 1500.0, 325.0, 1.0 / 52900.0, c["VBUS_GUARD_V"] + 1.0) == 0.0
     assert lib.pfc_iref_step(s, -10.0, 325.0, 1.0 / 52900.0, 400.0) == 0.0
+    # above the guard the reference falls by GUARD_STEP of itself a period to 0, and comes back
+    # the same way below it (the demo has an input filter: two of its resonance periods, f_res
+    # = 1 / (2 pi sqrt((L_src + L_dm) C_x)), hand arithmetic)
+    pl = demo_project.config.plant
+    f_res = 1.0 / (
+        2.0 * math.pi * math.sqrt((pl.source_inductance + pl.dm_inductance) * pl.x_capacitance)
+    )
+    n = math.ceil(2.0 * demo_project.config.spec.fsw / f_res)
+    assert c["GUARD_STEP"] == pytest.approx(1.0 / n, rel=1e-6)
+    i0 = lib.pfc_iref_step(s, 1500.0, 325.27, 1.0 / 52900.0, 400.0)
+    over = c["VBUS_GUARD_V"] + 1.0
+    seen = [lib.pfc_iref_step(s, 1500.0, 325.27, 1.0 / 52900.0, over) for _ in range(n + 1)]
+    assert seen[0] == pytest.approx(i0 * (1.0 - 1.0 / n), rel=1e-5)
+    assert all(b < a for a, b in zip(seen[:-2], seen[1:-1], strict=True))
+    assert seen[-1] == 0.0 and seen[-2] == 0.0
+    back = [lib.pfc_iref_step(s, 1500.0, 325.27, 1.0 / 52900.0, 400.0) for _ in range(n)]
+    assert back[0] == pytest.approx(i0 / n, rel=1e-5) and back[-1] == pytest.approx(i0, rel=1e-5)
 
 
 def test_pwm_assignment_table(demo_project, demo_built):
@@ -392,8 +408,10 @@ def test_duty_feedforward_carries_the_dead_time_by_the_currents_sign(demo_projec
 def test_feedforward_voltage_is_a_first_order_low_pass(demo_project, demo_built):
     """v_ff after n periods of a step of |v| by dV below FF_STEP_V: v0 + dV (1 - (1 - K)^n),
     K = FF_K = 1 - exp(-2 pi f_c / fsw) (the exact discretisation of a first-order lag, hand
-    arithmetic); a rise beyond FF_STEP_V passes at once and sets `surge` for that period only,
-    and the duty of a surge period is zero."""
+    arithmetic); a rise beyond FF_STEP_V with the sample beyond the line's latched peak (a
+    line step up) passes at once and sets `surge` for that period only, and the duty of a
+    surge period is zero; the same rise inside the line's envelope (the input filter's own
+    ring) is filtered like any change and takes no on-time away."""
     c = consts(demo_project)
     fsw = demo_project.config.spec.fsw
     assert c["FF_K"] == pytest.approx(1.0 - math.exp(-2.0 * math.pi * (fsw / 10.0) / fsw))
@@ -403,15 +421,21 @@ def test_feedforward_voltage_is_a_first_order_low_pass(demo_project, demo_built)
     s.vff = 200.0
     dv = 0.9 * c["FF_STEP_V"]
     for n in range(1, 13):
-        lib.pfc_iloop_track(s, 400.0, 200.0 + dv)
+        lib.pfc_iloop_track(s, 400.0, 200.0 + dv, True)
         assert not s.surge
         assert s.vff == pytest.approx(200.0 + dv * (1.0 - (1.0 - c["FF_K"]) ** n), rel=1e-5)
-    lib.pfc_iloop_track(s, 400.0, s.vff + 1.5 * c["FF_STEP_V"])
-    assert s.surge and s.vff == pytest.approx(
-        200.0 + dv * (1.0 - (1.0 - c["FF_K"]) ** 12) + 1.5 * c["FF_STEP_V"], rel=1e-5
-    )
+    v0 = s.vff
+    # inside the envelope: low-passed, no surge
+    lib.pfc_iloop_track(s, 400.0, v0 + 1.5 * c["FF_STEP_V"], False)
+    assert not s.surge
+    assert s.vff == pytest.approx(v0 + c["FF_K"] * 1.5 * c["FF_STEP_V"], rel=1e-5)
+    assert lib.pfc_iloop_step(s, 5.0, 1.0, 1, c["DUTY_MAX"]) > 0.0
+    # beyond the latched peak: passes at once, no main on-time this period
+    s.vff = v0
+    lib.pfc_iloop_track(s, 400.0, v0 + 1.5 * c["FF_STEP_V"], True)
+    assert s.surge and s.vff == pytest.approx(v0 + 1.5 * c["FF_STEP_V"], rel=1e-5)
     assert lib.pfc_iloop_step(s, 5.0, 1.0, 1, c["DUTY_MAX"]) == 0.0
-    lib.pfc_iloop_track(s, 400.0, s.vff)
+    lib.pfc_iloop_track(s, 400.0, s.vff, True)
     assert not s.surge
     assert lib.pfc_iloop_step(s, 5.0, 1.0, 1, c["DUTY_MAX"]) > 0.0
 

@@ -1,6 +1,6 @@
 """``pfcrig init``: an example config with every key the config accepts, each with its unit,
 its meaning and its default; keys derived from the sizing are written commented out, with
-the value ``pfcrig design`` derives for this example."""
+the value ``pfcrig design`` derives for this example (unless the example sets them)."""
 
 from __future__ import annotations
 
@@ -31,10 +31,12 @@ DERIVED = {
     ("plant", "node_capacitance"): "node_capacitance_F",
     ("plant", "slow_node_capacitance"): "slow_node_capacitance_F",
     ("plant", "core_volume"): "core_volume_m3",
+    ("plant", "x_capacitance"): "x_capacitance_F",
     ("plant", "dm_damping"): "dm_damping_ohm",
     ("control", "current_bandwidth"): "current_bandwidth_Hz",
     ("control", "ff_corner"): "ff_corner_Hz",
     ("control", "zc_hysteresis"): "zc_hysteresis_V",
+    ("control", "zc_debounce_periods"): "zc_debounce_periods",
     ("control", "zc_blank_voltage"): "zc_blank_V",
     ("protection", "ov_trip"): "ov_trip_V",
     ("protection", "oc_trip"): "oc_trip_A",
@@ -80,9 +82,10 @@ def example_text() -> str:
         for name, k in keys.items():
             unit = f"{k.unit}, " if k.unit and k.unit != "1" else ""
             choices = f" ({' or '.join(k.choices)})" if k.choices else ""
-            if (table, name) in DERIVED:
+            if (table, name) in DERIVED and getattr(values, name) is None:
                 shown = derived[DERIVED[(table, name)]]
-                lines.append(f"# {name} = {_value(float(shown))}  # {unit}{k.doc}")
+                shown = shown if isinstance(shown, int) else float(shown)
+                lines.append(f"# {name} = {_value(shown)}  # {unit}{k.doc}")
                 continue
             v = getattr(values, name)
             default = "" if k.required or k.default is None else f"; default {_value(k.default)}"

@@ -76,6 +76,7 @@ def stage_params(prj: Project) -> StageParams:
         slow_qrr_C=pl.slow_diode_qrr,
         transition_time_s=pl.transition_time,
         reverse_drop_V=pl.reverse_drop,
+        fast_qrr_C=pl.fast_qrr,
         # Steinmetz per period: k fsw^(alpha-1) V (B/A / 2)^beta x di^beta
         core_energy_coeff=pl.core_k
         * c.spec.fsw ** (pl.core_alpha - 1.0)

@@ -1,0 +1,69 @@
+"""Two controller mutants (rendered from patched templates, ``tests/helpers.py``) against the
+block checks that see them: without the duty ramp after a crossing, and without the floor
+under the mean square before 1/Vrms^2.  The fault campaign does not tell either from the
+shipped controller (README, "The slow leg's midpoint" and "Fault campaign invariants"); these
+checks do, on the block each one breaks.
+
+Sources: the ramp's limit d_k = k / ZC_RAMP_PERIODS x DUTY_MAX (its definition in the config
+header); a sine of amplitude A has a half-cycle mean square A^2 / 2 (analytic)."""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+import pytest
+
+from codegen.build import build_project
+
+from .helpers import broken_loader, consts
+from .test_c_blocks import FSW, run_rms, wave
+
+
+@pytest.fixture(scope="module")
+def no_ramp(demo_project):
+    return build_project(demo_project, broken_loader("no_zc_ramp"))
+
+
+@pytest.fixture(scope="module")
+def no_floor(demo_project):
+    return build_project(demo_project, broken_loader("no_ms_floor"))
+
+
+def ramp_limits(built, periods):
+    """The main switch's duty limit in the first periods of a half, from reset."""
+    ffi, lib = built.ffi, built.lib
+    s = ffi.new("pfc_pwmgen_t*")
+    out = ffi.new("pfc_pwm_t*")
+    lib.pfc_pwmgen_init(s)
+    limits = []
+    for _ in range(periods):
+        limits.append(lib.pfc_pwmgen_limit(s))
+        lib.pfc_pwmgen_step(s, 0.9, 1, True, 0.0, out)
+    return limits
+
+
+def test_duty_ramp_check_tells_the_mutant(demo_project, demo_built, no_ramp):
+    c = consts(demo_project)
+    n = int(c["ZC_RAMP_PERIODS"])
+    step = c["DUTY_MAX"] / n
+    shipped = ramp_limits(demo_built, n + 2)
+    assert shipped[: n + 1] == pytest.approx([k * step for k in range(n + 1)], rel=1e-5)
+    assert shipped[-1] == pytest.approx(c["DUTY_MAX"], rel=1e-6)
+    mutant = ramp_limits(no_ramp, n + 2)
+    assert mutant[0] == pytest.approx(c["DUTY_MAX"], rel=1e-6)  # full duty at once
+
+
+def test_mean_square_floor_check_tells_the_mutant(demo_project, demo_built, no_floor):
+    """A small line, under the floor but still a line: the shipped block latches 1/floor,
+    the mutant 1/ms, which the floor exists to bound (2 / A^2 for amplitude A)."""
+    c = consts(demo_project)
+    amp = 30.0
+    assert amp * amp / 2.0 < c["MS_FLOOR_V2"]
+    _, _, tiny = wave(amp, 50.0, 0.0, int(4 * FSW / 50))
+    shipped, _ = run_rms(demo_built, tiny)
+    assert shipped[-1][3] == pytest.approx(1.0 / c["MS_FLOOR_V2"], rel=1e-6)
+    mutant, _ = run_rms(no_floor, tiny)
+    assert mutant[-1][3] == pytest.approx(2.0 / amp**2, rel=0.05)
+    assert mutant[-1][3] > 2.0 / c["MS_FLOOR_V2"]
+    assert math.isfinite(float(np.float64(mutant[-1][3])))
