@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import math
 from itertools import groupby
 from typing import Any
 
@@ -29,6 +30,7 @@ BLOCKS = [
     "busavg",
     "vloop",
     "iref",
+    "xcomp",
     "iloop",
     "pwm",
     "supervisor",
@@ -94,6 +96,20 @@ def _context(prj: Project, **extra: Any) -> dict[str, Any]:
     )
 
 
+XC_BITS = 5  # the X-capacitor compensation's cosine table: 2^XC_BITS intervals over 0..pi
+
+
+def xcomp_table(prj: Project) -> dict[str, Any]:
+    """cos(pi k / n), k = 0..n, as C literals of the number format (Q15 in q15 builds)."""
+    n = 2**XC_BITS
+    vals = [math.cos(math.pi * k / n) for k in range(n + 1)]
+    if prj.config.control.number_format == "q15":
+        lits = [f"{max(min(round(v * 32768.0), 32767), -32768)}" for v in vals]
+    else:
+        lits = [f"{v:.9e}f" for v in vals]
+    return dict(xc_n=n, xc_bits=XC_BITS, xc_table=lits)
+
+
 def environment(loader: jinja2.BaseLoader | None = None) -> jinja2.Environment:
     """The templates' environment; ``loader`` replaces the shipped templates (tests use it
     to render deliberately broken controllers)."""
@@ -127,7 +143,7 @@ def render(prj: Project, loader: jinja2.BaseLoader | None = None) -> dict[str, s
         hw_ov_V=prj.resolved.hw_ov_level_V,
         device_A=prj.resolved.device_current_A,
     )
-    base = _context(prj, cv={k.name: k.value for k in consts}, board=board)
+    base = _context(prj, cv={k.name: k.value for k in consts}, board=board, **xcomp_table(prj))
     env = environment(loader)
     files: dict[str, str] = {}
     groups = [(g, list(items)) for g, items in groupby(consts, key=lambda k: k.group)]

@@ -144,6 +144,25 @@ def vloop(add: Add, prj: Project) -> None:
 def iloop(add: Add, prj: Project) -> None:
     s, r, i = prj.config.spec, prj.resolved, prj.tuning.current
     vb, ib = r.vbus_range_V, r.il_range_A
+    xc_on = prj.config.control.x_cap_compensation == "on"
+    add(
+        "XC_ON",
+        1 if xc_on else 0,
+        "u",
+        "",
+        "1: the current reference is lowered by the X capacitor's current (block xcomp)",
+        "[control] x_cap_compensation",
+    )
+    add(
+        "XC_K",
+        r.x_capacitance_F * math.pi * s.fsw if xc_on else 0.0,
+        "f",
+        "A/V",
+        "C_x pi fsw: the X capacitor's current amplitude C_x w V_pk is XC_K V_pk / (half "
+        "period in switching periods)",
+        f"[plant] x_capacitance = {r.x_capacitance_F:.4g} F" if xc_on else "off",
+        (ib / vb, 15),
+    )
     iref_max = min(IREF_MAX_OF_PEAK * prj.sizing.iline_peak_A, IREF_MAX_OF_OC * r.oc_trip_A)
     add(
         "IREF_MAX_A",
@@ -165,6 +184,18 @@ def iloop(add: Add, prj: Project) -> None:
     )
     f_res = filter_resonance_Hz(prj.config)
     n_ramp = max(1, math.ceil(GUARD_RAMP_RESONANCES * s.fsw / f_res)) if f_res else 1
+    add(
+        "FF_STEP_WINDOW",
+        n_ramp if f_res else 0,
+        "u",
+        "periods",
+        "a line step up opens this window, in which the feedforward passes steps at once",
+        (
+            f"ceil({GUARD_RAMP_RESONANCES:g} fsw / f_res): the ring the step starts"
+            if f_res
+            else "0: no input filter, every period is in one"
+        ),
+    )
     add(
         "GUARD_STEP",
         1.0 / n_ramp,

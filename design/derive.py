@@ -221,6 +221,11 @@ def resolve(cfg: Config, inductance_H: float, capacitance_F: float, il_peak_A: f
         pwm_period_counts=int(round(c.pwm_timer_clock / s.fsw)),
     )
     _check(cfg, r)
+    if cfg.control.x_cap_compensation == "on" and r.x_capacitance_F <= 0.0:
+        raise ConfigError(
+            f'{cfg.source}: [control] x_cap_compensation = "on" with [plant] x_capacitance = 0: '
+            "there is no X capacitor to compensate; set x_capacitance or turn the compensation off"
+        )
     return r
 
 

@@ -320,6 +320,14 @@ class ControlTable:
         lo=0,
         hi=1000,
     )
+    x_cap_compensation: str = key(
+        "",
+        "lower the current reference by the input filter's X-capacitor current, C_x dv/dt, so "
+        "that the line's current follows its voltage at light load and high line (common "
+        "practice; needs an input filter)",
+        "off",
+        choices=("off", "on"),
+    )
     carrier: str = key(
         "",
         "PWM carrier and ADC instant: 'centre' (up-down counter, the fast leg's low switch on "

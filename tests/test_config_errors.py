@@ -167,3 +167,12 @@ def test_a_bus_without_headroom_over_the_line_peak_is_refused():
     ok = cfg_with("spec", vout=388.0, vin_rms_max=264.0, ripple_voltage_pp=0.02)
     del ok["control"]["soft_start_time"]
     from_config(from_dict(ok, "x"))
+
+
+def test_x_cap_compensation_needs_a_filter():
+    d = cfg_with("control", x_cap_compensation="on")
+    d["plant"]["x_capacitance"] = 0.0
+    m = err(d)
+    assert "demo.toml" in m and "x_cap_compensation" in m and "x_capacitance = 0" in m
+    m = err(cfg_with("control", x_cap_compensation="yes"))
+    assert "[control] x_cap_compensation" in m and "on" in m and "off" in m

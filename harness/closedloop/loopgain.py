@@ -178,7 +178,9 @@ def measure(
         if k < k0:
             return
         raw = codes[1:, ch].astype(float)
-        want = raw + amp * np.sin(2.0 * np.pi * fs * (k * T)) / lsb
+        # each sine starts at zero phase when the injection starts, as an analyser's does: a
+        # step into the reading would look like a sensor fault to the plausibility checks
+        want = raw + amp * np.sin(2.0 * np.pi * fs * ((k - k0) * T)) / lsb
         new = np.clip(np.round(want), 0, r.adc_full_counts)
         injected[k] = (new - raw) * lsb
         codes[1:, ch] = new.astype(codes.dtype)
