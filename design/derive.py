@@ -36,7 +36,6 @@ NODE_C_OHM_F = 8e-12  # default node capacitance x rds_on_fast (ohm F), illustra
 SLOW_NODE_C_OHM_F = 1.5e-10
 SLOW_NODE_C_DIODE_F = 100e-12
 ZC_DEBOUNCE_MIN = 2  # samples beyond the hysteresis band before the polarity changes
-X_CAP_F_PER_W = 1e-9  # default X capacitance: 1 uF per kW of rated power (common practice)
 CORE_MU_E = 60.0  # effective permeability of the default gapped core, illustrative
 
 
@@ -104,9 +103,8 @@ class Resolved:
 
 
 def x_capacitance_F(cfg: Config) -> float:
-    """The input filter's X capacitance (F): ``[plant] x_capacitance``, by default
-    ``X_CAP_F_PER_W`` of the rated power (0: no filter)."""
-    return _pick(cfg.plant.x_capacitance, X_CAP_F_PER_W * cfg.spec.power)
+    """The input filter's X capacitance (F), ``[plant] x_capacitance`` (0: no filter)."""
+    return cfg.plant.x_capacitance
 
 
 def filter_resonance_Hz(cfg: Config) -> float:

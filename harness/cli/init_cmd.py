@@ -31,7 +31,6 @@ DERIVED = {
     ("plant", "node_capacitance"): "node_capacitance_F",
     ("plant", "slow_node_capacitance"): "slow_node_capacitance_F",
     ("plant", "core_volume"): "core_volume_m3",
-    ("plant", "x_capacitance"): "x_capacitance_F",
     ("plant", "dm_damping"): "dm_damping_ohm",
     ("control", "current_bandwidth"): "current_bandwidth_Hz",
     ("control", "ff_corner"): "ff_corner_Hz",
