@@ -36,6 +36,7 @@ NODE_C_OHM_F = 8e-12  # default node capacitance x rds_on_fast (ohm F), illustra
 SLOW_NODE_C_OHM_F = 1.5e-10
 SLOW_NODE_C_DIODE_F = 100e-12
 ZC_DEBOUNCE_MIN = 2  # samples beyond the hysteresis band before the polarity changes
+ZC_DEBOUNCE_MAX = 64  # ... and at most (the key's range; the detector's counter is 8 bits)
 CORE_MU_E = 60.0  # effective permeability of the default gapped core, illustrative
 
 
@@ -219,6 +220,16 @@ def resolve(cfg: Config, inductance_H: float, capacitance_F: float, il_peak_A: f
         pwm_period_counts=int(round(c.pwm_timer_clock / s.fsw)),
     )
     _check(cfg, r)
+    if r.zc_debounce_periods > ZC_DEBOUNCE_MAX:
+        f_res = filter_resonance_Hz(cfg)
+        raise ConfigError(
+            f"{cfg.source}: [plant] x_capacitance = {r.x_capacitance_F:g} F with dm_inductance = "
+            f"{cfg.plant.dm_inductance:g} H and source_inductance = "
+            f"{cfg.plant.source_inductance:g} H: the input filter resonates at {f_res:.4g} Hz, "
+            f"and the zero-crossing debounce would need {r.zc_debounce_periods} samples to "
+            f"outlast its ring (at most {ZC_DEBOUNCE_MAX}); an input filter resonates well above "
+            "the line (1 uF per kW and 10 uH are typical): lower x_capacitance or dm_inductance"
+        )
     if cfg.control.x_cap_compensation == "on" and r.x_capacitance_F <= 0.0:
         raise ConfigError(
             f'{cfg.source}: [control] x_cap_compensation = "on" with [plant] x_capacitance = 0: '

@@ -176,3 +176,12 @@ def test_x_cap_compensation_needs_a_filter():
     assert "demo.toml" in m and "x_cap_compensation" in m and "x_capacitance = 0" in m
     m = err(cfg_with("control", x_cap_compensation="yes"))
     assert "[control] x_cap_compensation" in m and "on" in m and "off" in m
+
+
+def test_a_filter_resonating_near_the_line_is_refused():
+    """1 mF with 10 mH resonates at 50 Hz: the zero-crossing debounce that outlasts its ring
+    would be hundreds of samples, past the detector's range; refused, naming the keys."""
+    d = copy.deepcopy(BASE)
+    d["plant"].update(x_capacitance=1e-3, dm_inductance=0.01)
+    m = err(d)
+    assert "demo.toml" in m and "x_capacitance" in m and "dm_inductance" in m and "Hz" in m
