@@ -9,8 +9,6 @@ from .jit import jit
 from .layout import (
     GATE_FAST_HI,
     GATE_FAST_LO,
-    GATE_SLOW_HI,
-    GATE_SLOW_LO,
     L_I,
     L_VC,
     P_C,
@@ -45,7 +43,7 @@ from .layout import (
     R_VTERM,
 )
 from .losses import ac_copper_energy, core_energy, switching_energy
-from .solver import circuit, segment
+from .solver import circuit, segment, slow_rail
 
 
 @jit
@@ -65,11 +63,7 @@ def period_averaged(par, plans, lane, j, vs, v_in, compare, gates, G, Icp, r_pat
     f_hi = 1.0 - f_lo - f_dead
     lo_on = 1.0 if (gates & GATE_FAST_LO) != 0 else 0.0
     hi_on = 1.0 if (gates & GATE_FAST_HI) != 0 else 0.0
-    s_lo = (gates & GATE_SLOW_LO) != 0
-    s_hi = (gates & GATE_SLOW_HI) != 0
-    qb = 0 if (s_lo and not s_hi) else (1 if (s_hi and not s_lo) else -1)
-    if par[P_SDIODE] != 0.0:  # a slow leg of diodes: no gate moves it
-        qb = -1
+    qb = slow_rail(gates, par[P_SDIODE] != 0.0)
     qb_pos = qb if qb >= 0 else 0
     qb_neg = qb if qb >= 0 else 1
     # fraction of the period the fast midpoint is on the plus rail, by current sign
@@ -110,12 +104,11 @@ def period_averaged(par, plans, lane, j, vs, v_in, compare, gates, G, Icp, r_pat
     out[R_EESR] = rc * (abs(m) * q2 - 2.0 * i_load * qm + i_load * i_load * T)
     # the losses the circuit does not carry, from the period's ripple about its average
     # (``_ripple_losses``), taken out of the bus capacitor's energy as the switching model does
-    e_sw, e_dt, e_core, e_acu = _ripple_losses(
+    e_sw, e_dt, e_core, e_acu, di = _ripple_losses(
         par, vb, v_in, iavg, f_lo * lo_on, f_hi * hi_on, lo_on != 0.0, hi_on != 0.0, td
     )
     # the ripple's own mean square in the path's resistance (a triangle: di^2/12), which the
     # exact update on the average does not carry
-    di = ripple_A(par, v_in, iavg, f_lo * lo_on, f_hi * hi_on, lo_on != 0.0, hi_on != 0.0)
     q2r = di * di * T / 12.0
     out[R_I2] += q2r
     out[R_ELOSS] += r_path * q2r
@@ -125,13 +118,6 @@ def period_averaged(par, plans, lane, j, vs, v_in, compare, gates, G, Icp, r_pat
     out[R_VC], out[R_IEND] = vc1, i1
     out[R_ESW], out[R_EDT], out[R_ECORE], out[R_EACU] = e_sw, e_dt, e_core, e_acu
     return i1, vc1
-
-
-@jit
-def ripple_A(par, v_in, i, d_lo, d_hi, glo, ghi):
-    """The period's ripple (A, top less bottom) as ``_ripple_losses`` takes it."""
-    top, bottom = _top_bottom(par, v_in, i, d_lo, d_hi, glo, ghi)
-    return top - bottom
 
 
 @jit
@@ -150,7 +136,8 @@ def _top_bottom(par, v_in, i, d_lo, d_hi, glo, ghi):
 
 @jit
 def _ripple_losses(par, vb, v_in, i, d_lo, d_hi, glo, ghi, td):
-    """(switching, dead-time, core, AC copper) energy (J) of one period of the averaged
+    """(switching, dead-time, core, AC copper) energy (J) and the ripple (A, top less bottom)
+    of one period of the averaged
     model: the ripple the main switch's on-time gives, |v| d T / L (the main switch is the
     one the current's direction makes the boost switch: low for i > 0, high for i < 0; with
     no current, the half the line's sign gives), about the period's average current; the
@@ -162,4 +149,4 @@ def _ripple_losses(par, vb, v_in, i, d_lo, d_hi, glo, ghi, td):
     e_sw = switching_energy(par, vb, v_in, glo, ghi, top, top, bottom, bottom)
     e_dt = par[P_VREV] * (abs(top) + abs(bottom)) * td
     swing = top - bottom
-    return e_sw, e_dt, core_energy(par, swing), ac_copper_energy(par, swing)
+    return e_sw, e_dt, core_energy(par, swing), ac_copper_energy(par, swing), swing

@@ -138,7 +138,17 @@ from .layout import (
     W_Y2,
 )
 from .losses import ac_copper_energy, core_energy, switching_energy
-from .solver import INV, INV_FACT, _m_pair, bus_k, circuit, conduction, piece_integrals, segment
+from .solver import (
+    INV,
+    INV_FACT,
+    _m_pair,
+    bus_k,
+    circuit,
+    conduction,
+    piece_integrals,
+    segment,
+    slow_rail,
+)
 from .source import advance_phase, source_at
 
 
@@ -297,11 +307,7 @@ def _period_setup(par, lane, harm, t, compare, gates, relay, ws, switching):
         dl = min(max(float(compare[j]) / par[P_COUNTS], 0.0), 1.0)
         td = par[P_TDEAD] if (dl > 0.0 and dl < 1.0) else 0.0
         g = int(gates[j])
-        s_lo = (g & GATE_SLOW_LO) != 0
-        s_hi = (g & GATE_SLOW_HI) != 0
-        qb = 0 if (s_lo and not s_hi) else (1 if (s_hi and not s_lo) else -1)
-        if par[P_SDIODE] != 0.0:  # a slow leg of diodes: no gate moves it
-            qb = -1
+        qb = slow_rail(g, par[P_SDIODE] != 0.0)
         # a slow switch turned on takes its midpoint to its rail at once, through its
         # channel: the node capacitance's energy over the step is lost (hard switching)
         sn = lane[j, L_SN]

@@ -14,6 +14,7 @@ import math
 import numpy as np
 
 from .jit import jit, jit_inline
+from .layout import GATE_SLOW_HI, GATE_SLOW_LO
 
 # -- linear pieces -----------------------------------------------------------------------
 INV = np.array([0.0] + [1.0 / j for j in range(1, 40)])  # 1/j
@@ -299,6 +300,17 @@ def segment(i, vc, dt, m_pos, m_neg, vs, cc, pieces, order, sn, cn, qrr):
         was_on = free
         remaining = max(remaining - tz, 0.0)
     return i, vc, m_used, sq, sq2, sqm, sqm2, sqb, sn, i_hi, i_lo
+
+
+@jit_inline
+def slow_rail(g, diode):
+    """The slow midpoint's rail from the gate mask ``g``: 0 (its low switch on), 1 (its high
+    switch on) or -1 (neither, both, or a slow leg of ``diode``s: the current's sign picks)."""
+    if diode:
+        return -1
+    s_lo = (g & GATE_SLOW_LO) != 0
+    s_hi = (g & GATE_SLOW_HI) != 0
+    return 0 if (s_lo and not s_hi) else (1 if (s_hi and not s_lo) else -1)
 
 
 @jit_inline

@@ -162,37 +162,48 @@ def _interval(x, ta, tb, qa, qb):
     return x
 
 
+def fast_intervals(comp, gates, p=P, edge=False):
+    """One period's sub-intervals laid out by the carrier, by our own reading of it:
+    (start, end, the fast midpoint's rail: 0 low switch on, 1 high switch on, None neither),
+    the empty ones left out."""
+    T = p.period_s
+    dl = min(max(comp / p.period_counts, 0.0), 1.0)
+    td = p.dead_time_s if 0.0 < dl < 1.0 else 0.0
+    if edge:  # the low switch from the period start (after the dead time) for dl T
+        ton = dl * T
+        bounds = [
+            (0.0, min(td, ton), "dead"),
+            (min(td, ton), ton, "lo"),
+            (ton, min(ton + td, T), "dead"),
+            (min(ton + td, T), T, "hi"),
+        ]
+    else:  # the low switch dl T/2 at each end
+        t1, t2 = dl * T / 2, T - dl * T / 2
+        bounds = [
+            (0.0, t1, "lo"),
+            (t1, min(t1 + td, t2), "dead"),
+            (min(t1 + td, t2), t2, "hi"),
+            (t2, min(t2 + td, T), "dead"),
+            (min(t2 + td, T), T, "lo"),
+        ]
+    out = []
+    for a, b, kind in bounds:
+        if b <= a:
+            continue
+        lo_on = kind == "lo" and gates & GATE_FAST_LO
+        qa = 0 if lo_on else (1 if (kind == "hi" and gates & GATE_FAST_HI) else None)
+        out.append((a, b, qa))
+    return out
+
+
 def reference(seq, edge=False):
     T = P.period_s
     x = np.array([0.0, VBUS0])
     out = [x.copy()]
     t0 = 0.0
     for comp, gates in seq:
-        dl = min(max(comp / P.period_counts, 0.0), 1.0)
-        td = P.dead_time_s if 0.0 < dl < 1.0 else 0.0
-        if edge:  # the low switch from the period start (after the dead time) for dl T
-            ton = dl * T
-            bounds = [
-                (0.0, min(td, ton), "dead"),
-                (min(td, ton), ton, "lo"),
-                (ton, min(ton + td, T), "dead"),
-                (min(ton + td, T), T, "hi"),
-            ]
-        else:  # the low switch dl T/2 at each end
-            t1, t2 = dl * T / 2, T - dl * T / 2
-            bounds = [
-                (0.0, t1, "lo"),
-                (t1, min(t1 + td, t2), "dead"),
-                (min(t1 + td, t2), t2, "hi"),
-                (t2, min(t2 + td, T), "dead"),
-                (min(t2 + td, T), T, "lo"),
-            ]
         qb = 0 if gates & GATE_SLOW_LO else (1 if gates & GATE_SLOW_HI else None)
-        for a, b, kind in bounds:
-            if b <= a:
-                continue
-            lo_on = kind == "lo" and gates & GATE_FAST_LO
-            qa = 0 if lo_on else (1 if (kind == "hi" and gates & GATE_FAST_HI) else None)
+        for a, b, qa in fast_intervals(comp, gates, edge=edge):
             x = _interval(x, t0 + a, t0 + b, qa, qb)
         out.append(x.copy())
         t0 += T

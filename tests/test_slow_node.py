@@ -28,7 +28,7 @@ from plant.grid import Grid
 from plant.load import Load
 
 from .helpers import GHI, GLO
-from .test_plant_reference import K_ESR, VBUS0, VRMS, F, G, _vs, make_sequence
+from .test_plant_reference import K_ESR, VBUS0, VRMS, F, G, _vs, fast_intervals, make_sequence
 from .test_plant_reference import P as P0
 
 CN = 2e-9  # a superjunction pair's node (F), illustrative
@@ -124,21 +124,7 @@ def reference(seq):
     out = [x.copy()]
     t0 = 0.0
     for comp, gates in seq:
-        dl = min(max(comp / P.period_counts, 0.0), 1.0)
-        td = P.dead_time_s if 0.0 < dl < 1.0 else 0.0
-        t1, t2 = dl * T / 2, T - dl * T / 2
-        bounds = [
-            (0.0, t1, "lo"),
-            (t1, min(t1 + td, t2), "dead"),
-            (min(t1 + td, t2), t2, "hi"),
-            (t2, min(t2 + td, T), "dead"),
-            (min(t2 + td, T), T, "lo"),
-        ]
-        for a, b, kind in bounds:
-            if b <= a:
-                continue
-            lo, hi = kind == "lo" and gates & GLO, kind == "hi" and gates & GHI
-            qa = 0 if lo else (1 if hi else None)
+        for a, b, qa in fast_intervals(comp, gates, P):
             x = _interval(x, t0 + a, t0 + b, qa)
         out.append(x.copy())
         t0 += T
