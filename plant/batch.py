@@ -104,6 +104,20 @@ def step_plans(p: StageParams, g_max_S: float) -> np.ndarray:
     return plans
 
 
+PARALLEL_MIN_LANES = 32  # below this a batch runs on one thread (the fork and join cost more)
+
+
+def chunks(n: int):
+    """The lane bounds of a batch split over numba's threads, and a scratch space per chunk;
+    ``(None, None)`` for one thread or a small batch."""
+    threads = K.threads()
+    if threads < 2 or n < PARALLEL_MIN_LANES:
+        return None, None
+    bounds = np.linspace(0, n, threads + 1).round().astype(np.int64)
+    width = int(np.diff(bounds).max())
+    return bounds, np.stack([LY.workspace(width) for _ in range(threads)])
+
+
 class Plant:
     """Grid, stage, load and ADC for ``n`` lanes; ``i0_A``/``vc0_V`` scalars or (n,)."""
 
@@ -124,6 +138,7 @@ class Plant:
             raise NotImplementedError(f"the plant's period kernel does not simulate {t}")
         n = grid.n
         self.p, self.n = p, n
+        self.T = p.period_s  # s
         self.par = stage_par(p, load)
         self.plans = step_plans(p, g_max_S)
         lane = np.zeros(
@@ -164,6 +179,7 @@ class Plant:
         self.codes = np.zeros((n, self.channels), dtype=np.uint16)
         self.no_relay = np.zeros(n, dtype=np.uint8)
         self.ws = LY.workspace(n)
+        self.bounds, self.wss = chunks(n)
         self.failed = SensorFaults(
             n,
             sensors.s.zero_counts
@@ -227,29 +243,41 @@ class Plant:
         model: str = "switching",
         codes=None,
         relay=None,
+        after=None,
     ) -> np.ndarray:
         """Advance every lane through period ``k`` (starting at ``k T``) with ``compare``
         (timer counts), ``gates`` (bit masks) and ``relay`` (the bypass relay's command, bit 0
         set: close; default open), arrays of shape (n,); the period's records go into ``out``
         (n, len(FIELDS)); returns the ADC codes sampled in it, (n, channels) uint16 (into
-        ``codes`` when given; 4 channels with split line sensing)."""
+        ``codes`` when given; 4 channels with split line sensing).
+
+        ``after``: ``(fn, ctx)``, a compiled function ``fn(ctx, k, first, end)`` of C
+        signature void(uintptr_t, int64_t, uint32_t, uint32_t) (a ``ctypes`` function) called
+        once the codes of lanes ``first..end-1`` are final: on a batch split over threads
+        (``chunks``), on each chunk's thread as soon as its lanes are done; otherwise once,
+        for all lanes, after the sensor faults have changed the codes."""
         codes = self.codes if codes is None else codes
         relay = self.no_relay if relay is None else relay
-        K.step_lanes(
-            self.par,
-            self.plans,
-            self.lane,
-            self.harm,
-            self.seed,
-            k,
-            k * self.p.period_s,
-            LY.MODEL_SWITCHING if model == "switching" else LY.MODEL_AVERAGED,
-            compare,
-            gates,
-            relay,
-            codes,
-            out,
-            self.ws,
-        )
-        self.failed.apply(k * self.p.period_s, codes)
+        t = k * self.T
+        kind = LY.MODEL_SWITCHING if model == "switching" else LY.MODEL_AVERAGED
+        par, plans, lane, harm, seed = self.par, self.plans, self.lane, self.harm, self.seed
+        if self.bounds is None:
+            K.step_lanes(
+                par, plans, lane, harm, seed, k, t, kind, compare, gates, relay, codes, out,
+                self.ws,
+            )  # fmt: skip
+        elif after is None or self.failed.active:
+            K.step_chunks(
+                par, plans, lane, harm, seed, k, t, kind, compare, gates, relay, codes, out,
+                self.wss, self.bounds,
+            )  # fmt: skip
+        else:  # no sensor fault active: the codes are final as the kernel writes them
+            K.step_chunks_then(
+                par, plans, lane, harm, seed, k, t, kind, compare, gates, relay, codes, out,
+                self.wss, self.bounds, after[0], after[1],
+            )  # fmt: skip
+            return codes
+        self.failed.apply(t, codes)
+        if after is not None:
+            after[0](after[1], k, 0, self.n)
         return codes

@@ -39,6 +39,10 @@ try:  # numba compiles the kernels; without it they run as Python
         array arguments)."""
         return _njit(cache=True, nogil=True, error_model="numpy", inline="always")(fn)
 
+    def jit_parallel(fn):
+        """A kernel whose ``numba.prange`` loops run on numba's threads."""
+        return _njit(cache=True, nogil=True, error_model="numpy", parallel=True)(fn)
+
     COMPILED = True
 except ImportError:  # pragma: no cover - exercised only where numba is missing
 
@@ -46,4 +50,5 @@ except ImportError:  # pragma: no cover - exercised only where numba is missing
         return fn
 
     jit_inline = jit
+    jit_parallel = jit
     COMPILED = False

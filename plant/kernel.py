@@ -13,10 +13,12 @@ from __future__ import annotations
 
 import math
 
+import numpy as np
+
 from .adc import adc_channel, neutral_V
 from .averaged import period_averaged
 from .filt import advance, no_filter, period_end
-from .jit import jit, jit_inline
+from .jit import COMPILED, jit, jit_inline, jit_parallel
 from .layout import (
     GATE_FAST_HI,
     GATE_FAST_LO,
@@ -631,3 +633,49 @@ def step_lanes(par, plans, lane, harm, seed, k, t, model, compare, gates, relay,
         codes[j, 1] = adc_channel(par, lane, seed, j, k, 1, out[j, R_ISAMPLE])
         codes[j, 2] = adc_channel(par, lane, seed, j, k, 2, out[j, R_VBSAMPLE])
         advance_phase(lane, j, T)
+
+
+if COMPILED:
+    from numba import get_num_threads, prange
+
+    def threads() -> int:
+        """numba's threads for a batch (``NUMBA_NUM_THREADS``, the cores by default)."""
+        return int(get_num_threads())
+
+else:  # pragma: no cover - without numba the chunks run one after another
+    prange = range
+
+    def threads() -> int:
+        return 1
+
+
+@jit_parallel
+def step_chunks(
+    par, plans, lane, harm, seed, k, t, model, compare, gates, relay, codes, out, wss, bounds
+):
+    """``step_lanes`` over the lanes ``bounds[c]:bounds[c + 1]`` of each chunk ``c``, the
+    chunks on numba's threads, each with its own scratch ``wss[c]``: the lanes are
+    independent, so a lane's numbers do not depend on the chunking."""
+    for c in prange(bounds.shape[0] - 1):
+        a, b = bounds[c], bounds[c + 1]
+        step_lanes(
+            par, plans, lane[a:b], harm[a:b], seed[a:b], k, t, model, compare[a:b],
+            gates[a:b], relay[a:b], codes[a:b], out[a:b], wss[c],
+        )  # fmt: skip
+
+
+@jit_parallel
+def step_chunks_then(
+    par, plans, lane, harm, seed, k, t, model, compare, gates, relay, codes, out, wss, bounds,
+    after, ctx,
+):  # fmt: skip
+    """``step_chunks``, then on the same thread ``after(ctx, k, first, end)`` for the chunk's
+    lanes once their codes are written (a compiled function of signature
+    void(uintptr, int64, uint32, uint32), whatever it does with them)."""
+    for c in prange(bounds.shape[0] - 1):
+        a, b = bounds[c], bounds[c + 1]
+        step_lanes(
+            par, plans, lane[a:b], harm[a:b], seed[a:b], k, t, model, compare[a:b],
+            gates[a:b], relay[a:b], codes[a:b], out[a:b], wss[c],
+        )  # fmt: skip
+        after(ctx, k, np.uint32(a), np.uint32(b))

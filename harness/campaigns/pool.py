@@ -56,7 +56,8 @@ def dask_map(
 ) -> Iterator[Any]:
     """``fn`` over ``jobs`` on Dask (``dask.distributed``), each result in the jobs' order.
     ``scheduler`` (``tcp://HOST:PORT``): an existing cluster; else an embedded
-    ``LocalCluster`` of ``workers`` single-threaded processes, closed at the end.  Dask
+    ``LocalCluster`` of ``workers`` single-threaded processes (the plant's kernels too:
+    ``NUMBA_NUM_THREADS=1``), closed at the end.  Dask
     re-runs the job of a worker lost mid-way on another (up to its ``allowed-failures``), so
     the results do not depend on where or how often a job ran: the jobs are deterministic."""
     import logging
@@ -73,6 +74,8 @@ def dask_map(
             processes=True,
             dashboard_address=None,
             silence_logs=logging.ERROR,
+            # each worker steps its batches on one thread: the workers share the cores
+            env={"NUMBA_NUM_THREADS": "1"},
         )
         client = Client(cluster)
     try:

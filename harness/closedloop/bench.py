@@ -28,8 +28,8 @@ from .loop import adc_scaling, run
 from .scenario import Scenario
 
 TARGETS = {
-    "single_switching_rtf": 1.0,
-    "batch256_scenario_s_per_s": 30.0,
+    "single_switching_rtf": 2.5,
+    "batch256_scenario_s_per_s": 40.0,
     "best_batch_vs_bare_c_max_ratio": 10.0,
 }
 

@@ -10,6 +10,7 @@ connected at power-good, the controller's own soft start in between.
 
 from __future__ import annotations
 
+import ctypes
 import mmap
 import sys
 import time
@@ -244,6 +245,24 @@ class Controllers:
 
         return record
 
+    def chunked(self, pwm_rec: np.ndarray, probe_rec: np.ndarray):
+        """``(fn, ctx)`` for ``Plant.step``'s ``after``: the host build's ``batch_chunk`` as a
+        ``ctypes`` function and the address of its context (these instances, their inputs and
+        outputs, and the records that ``recorder`` fills), so that a plant stepping its lanes
+        on several threads steps each chunk's controllers on the same thread."""
+        ffi, lib, p = self.b.ffi, self.b.lib, self.p
+        ctx = ffi.new(f"{p}_chunk_ctx_t *")
+        ctx.c, ctx.adc, ctx.pwm, ctx.n = self.ctrl, self.adc, self.pwm, self.n
+        ctx.pwm_rec = ffi.cast(f"{p}_pwm_t *", ffi.from_buffer(pwm_rec))
+        ctx.probe_rec = ffi.cast("float *", ffi.from_buffer(probe_rec))
+        self._ctx = ctx  # kept alive with the instances
+        self._ctx_refs = (pwm_rec, probe_rec)
+        proto = ctypes.CFUNCTYPE(
+            None, ctypes.c_size_t, ctypes.c_int64, ctypes.c_uint32, ctypes.c_uint32
+        )
+        fn = proto(int(ffi.cast("uintptr_t", ffi.addressof(lib, f"{p}_batch_chunk"))))
+        return fn, int(ffi.cast("uintptr_t", ctx))
+
     def internals(self) -> np.ndarray:
         """(n, N_PROBES) float32: ``design.contract.PROBES`` (duty, current reference (A), bus
         reference (V), power command (W))."""
@@ -357,32 +376,24 @@ def run(
     aborted = None
     clock = time.perf_counter
     stamps = np.zeros(periods + 1)  # wall clock at the start of each period (s), for `pfcrig bench`
-    record = ctl.recorder(pwm_rec, probe_rec) if local else None
+    after, record = _controller_hooks(ctl, plant, perturb, pwm, codes, pwm_rec, probe_rec)
     t0 = clock()
     alloc_s = t0 - t_alloc  # mapping the records: a cost per period too, paid up front
     for k in range(periods):
         stamps[k] = clock()
         t = k * T
         if t >= next_min:
-            for j in range(n):
-                while events[j] and events[j][0].t_s <= t:
-                    _apply(plant, j, events[j].pop(0), t)
-                next_t[j] = events[j][0].t_s if events[j] else np.inf
-            next_min = min(next_t)
-        plant.step(k, compare, gates, plant_rec[k], model, codes, relay)
+            next_min = _due_events(plant, events, next_t, t)
+        plant.step(k, compare, gates, plant_rec[k], model, codes, relay, after)
         if perturb is not None:
             perturb(k, codes)
         if record is not None:
-            record(k)
-        else:
             try:
-                pwm[:] = ctl.step(codes)
+                record(k)
             except (RuntimeError, TimeoutError) as exc:  # a target over a link stopped answering
                 aborted = f"stopped at period {k} (t = {t:.6f} s): {exc}"
                 periods = k
                 break
-            pwm_rec[k + 1] = pwm
-            probe_rec[k] = ctl.internals()
         bar.update(k + 1)
     stamps[periods] = clock()
     bar.close()
@@ -414,6 +425,35 @@ def run(
     if aborted:
         result.extras["aborted"] = aborted
     return result
+
+
+def _controller_hooks(ctl, plant: Plant, perturb, pwm, codes, pwm_rec, probe_rec):
+    """``(after, record)``: how the controllers step after the plant's period ``k`` and keep
+    their outputs (row k + 1 of ``pwm_rec``) and internals (row k of ``probe_rec``).  In
+    process, on a batch the plant splits over threads and with nothing to change the codes in
+    between: ``after`` for ``Plant.step``, each chunk's controllers on its thread; otherwise
+    ``record(k)``, called once the plant is done (for controllers elsewhere, a target over a
+    link: ``step(codes)`` and ``internals()``)."""
+    if not isinstance(ctl, Controllers):
+
+        def record(k: int) -> None:
+            pwm[:] = ctl.step(codes)
+            pwm_rec[k + 1] = pwm
+            probe_rec[k] = ctl.internals()
+
+        return None, record
+    if perturb is None and plant.bounds is not None:
+        return ctl.chunked(pwm_rec, probe_rec), None
+    return None, ctl.recorder(pwm_rec, probe_rec)
+
+
+def _due_events(plant: Plant, events: list[list], next_t: list[float], t: float) -> float:
+    """Apply every lane's events due by run time ``t`` (s); returns the time of the next."""
+    for j, evs in enumerate(events):
+        while evs and evs[0].t_s <= t:
+            _apply(plant, j, evs.pop(0), t)
+        next_t[j] = evs[0].t_s if evs else np.inf
+    return min(next_t)
 
 
 def _apply(plant: Plant, j: int, ev, t: float) -> None:
