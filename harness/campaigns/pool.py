@@ -6,6 +6,7 @@ from __future__ import annotations
 import threading
 import time
 from collections.abc import Callable, Iterator, Sequence
+from functools import partial
 from typing import Any
 
 
@@ -21,6 +22,19 @@ def progress_line(
         f"  batch {k + 1}/{batches} done: {done}/{total} {unit}, {tally}, {el:.0f} s, "
         f"{rate:.1f} {unit}/s, {left}"
     )
+
+
+def one_thread(fn: Callable[[Any], Any], job: Any) -> Any:
+    """``fn(job)`` with numba's parallel kernels on one thread (``numba.set_num_threads``
+    holds for the calling thread only, the task's): a batch on a worker does not split over
+    the cores the other workers use.  Not the ``NUMBA_NUM_THREADS`` variable: numba refuses
+    to compile once its threads run if the variable then reads differently."""
+    try:
+        import numba
+    except ImportError:  # pragma: no cover - without numba the kernels run as Python
+        return fn(job)
+    numba.set_num_threads(1)
+    return fn(job)
 
 
 CONNECT_S = 30.0  # longest wait for a scheduler's answer (s)
@@ -56,8 +70,8 @@ def dask_map(
 ) -> Iterator[Any]:
     """``fn`` over ``jobs`` on Dask (``dask.distributed``), each result in the jobs' order.
     ``scheduler`` (``tcp://HOST:PORT``): an existing cluster; else an embedded
-    ``LocalCluster`` of ``workers`` single-threaded processes (the plant's kernels too:
-    ``NUMBA_NUM_THREADS=1``), closed at the end.  Dask
+    ``LocalCluster`` of ``workers`` single-threaded processes, closed at the end; each job
+    runs its plant on one thread (``one_thread``): the workers share the cores.  Dask
     re-runs the job of a worker lost mid-way on another (up to its ``allowed-failures``), so
     the results do not depend on where or how often a job ran: the jobs are deterministic."""
     import logging
@@ -74,12 +88,10 @@ def dask_map(
             processes=True,
             dashboard_address=None,
             silence_logs=logging.ERROR,
-            # each worker steps its batches on one thread: the workers share the cores
-            env={"NUMBA_NUM_THREADS": "1"},
         )
         client = Client(cluster)
     try:
-        futures = client.map(fn, list(jobs), pure=False)
+        futures = client.map(partial(one_thread, fn), list(jobs), pure=False)
         for f in futures:
             yield f.result()
     finally:
