@@ -12,6 +12,7 @@ import numpy as np
 import pytest
 from scipy.integrate import solve_ivp
 
+from design.filter import step_peak, system
 from design.project import from_config
 from harness.closedloop.loop import run
 from harness.closedloop.report import lane_report
@@ -28,7 +29,7 @@ ELEMENTS = dict(
 def test_period_map_against_solve_ivp():
     """Ten periods at 65 kHz: the exact map (source first-order held, stage current held)
     equals DOP853 at rtol 1e-12 on the same held inputs, to 1e-9 of the state's scale."""
-    a, b_v, b_i = filt.system(**ELEMENTS)
+    a, b_v, b_i = system(**ELEMENTS)
     T = 1.0 / 65e3
     phi, g_v, g_s, g_i = filt.discretise(a, b_v, b_i, T)
     rng = np.random.default_rng(3)
@@ -52,7 +53,7 @@ def test_a_grid_without_inductance_keeps_the_filter_exact():
     """L_src = 0 is given the wiring's 1 nH: a stiff mode the exact map still handles (its
     terms stay finite and the X capacitor follows its own time constants)."""
     el = dict(ELEMENTS, l_src_H=0.0)
-    a, b_v, b_i = filt.system(**el)
+    a, b_v, b_i = system(**el)
     phi, g_v, g_s, g_i = filt.discretise(a, b_v, b_i, 1.0 / 65e3)
     assert np.all(np.isfinite(phi)) and np.all(np.isfinite(g_v)) and np.all(np.isfinite(g_i))
     # a held source and no stage current: the X capacitor settles at the source's level
@@ -154,3 +155,20 @@ def test_the_feedforward_low_pass_keeps_the_filter_resonance_quiet(demo_project)
     quiet = _ringing_A(demo_project)
     raw = _ringing_A(from_config(demo_project.config.replace("control", ff_corner=1e7)))
     assert raw > 0.08 > 0.04 > quiet, (raw, quiet)
+
+
+def test_step_peak_against_scipy_signal_step():
+    """The X capacitor's peak after a unit step of the source (the filter at rest, no stage
+    current) equals scipy.signal.step's response of the same system, to 1e-3; with the
+    damper removed it approaches the undamped 2 (an LC's step response peaks at twice the
+    step: analytic)."""
+    from scipy import signal
+
+    for el in (ELEMENTS, {**ELEMENTS, "r_d_ohm": 1e6, "r_src_ohm": 1e-4, "r_dm_ohm": 1e-4}):
+        a, b_v, _ = system(**el)
+        sys_ = signal.StateSpace(a, b_v[:, None], np.array([[0.0, 0.0, 1.0]]), np.zeros((1, 1)))
+        f_res = 1.0 / (2.0 * math.pi * math.sqrt((el["l_src_H"] + el["l_dm_H"]) * el["c_x_F"]))
+        t = np.linspace(0.0, 10.0 / f_res, 20001)
+        _, y = signal.step(sys_, T=t)
+        assert step_peak(**el) == pytest.approx(float(np.max(y)), abs=1e-3)
+    assert step_peak(**el) == pytest.approx(2.0, abs=0.01)
