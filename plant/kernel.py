@@ -649,6 +649,19 @@ else:  # pragma: no cover - without numba the chunks run one after another
         return 1
 
 
+@jit_inline
+def _step_chunk(
+    par, plans, lane, harm, seed, k, t, model, compare, gates, relay, codes, out, wss, bounds, c
+):
+    """``step_lanes`` over chunk ``c``'s lanes, with its scratch ``wss[c]``; its bounds."""
+    a, b = bounds[c], bounds[c + 1]
+    step_lanes(
+        par, plans, lane[a:b], harm[a:b], seed[a:b], k, t, model, compare[a:b],
+        gates[a:b], relay[a:b], codes[a:b], out[a:b], wss[c],
+    )  # fmt: skip
+    return a, b
+
+
 @jit_parallel
 def step_chunks(
     par, plans, lane, harm, seed, k, t, model, compare, gates, relay, codes, out, wss, bounds
@@ -657,10 +670,9 @@ def step_chunks(
     chunks on numba's threads, each with its own scratch ``wss[c]``: the lanes are
     independent, so a lane's numbers do not depend on the chunking."""
     for c in prange(bounds.shape[0] - 1):
-        a, b = bounds[c], bounds[c + 1]
-        step_lanes(
-            par, plans, lane[a:b], harm[a:b], seed[a:b], k, t, model, compare[a:b],
-            gates[a:b], relay[a:b], codes[a:b], out[a:b], wss[c],
+        _step_chunk(
+            par, plans, lane, harm, seed, k, t, model, compare, gates, relay, codes, out, wss,
+            bounds, c,
         )  # fmt: skip
 
 
@@ -673,9 +685,8 @@ def step_chunks_then(
     lanes once their codes are written (a compiled function of signature
     void(uintptr, int64, uint32, uint32), whatever it does with them)."""
     for c in prange(bounds.shape[0] - 1):
-        a, b = bounds[c], bounds[c + 1]
-        step_lanes(
-            par, plans, lane[a:b], harm[a:b], seed[a:b], k, t, model, compare[a:b],
-            gates[a:b], relay[a:b], codes[a:b], out[a:b], wss[c],
+        a, b = _step_chunk(
+            par, plans, lane, harm, seed, k, t, model, compare, gates, relay, codes, out, wss,
+            bounds, c,
         )  # fmt: skip
         after(ctx, k, np.uint32(a), np.uint32(b))
