@@ -9,6 +9,7 @@ import math
 from dataclasses import asdict, dataclass
 
 from .config import Config, ConfigError
+from .filter import step_peak
 from .rules import (
     BLANK_OF_VPK_MIN,
     BROWNOUT_OFF_OF_VMIN,
@@ -141,14 +142,24 @@ def _pick(value: float | None, default: float) -> float:
 
 def line_terminal_max_V(cfg: Config, vpk_max_V: float, ov_V: float, inductance_H: float) -> float:
     """The highest voltage the sensed line (the stage's input terminals) can show (V). With an
-    input filter the X capacitor holds it at the line's. Without one, the grid's inductance
+    input filter, the X capacitor's: the line stepping from 0 to its peak onto a stopped stage
+    (an IEC 61000-4-11 interruption ending at the peak, the largest step that standard's dips
+    make) rings it past the line, to vpk s with s the filter's peak step response
+    (``design.filter.step_peak``, up to 2 undamped), at most the over-voltage trip (above the
+    bus the diodes carry its charge into the bus). A larger step (a phase jump near 180
+    degrees at the peak) may rail the channel. Without one, the grid's inductance
     L_s stands in series with the boost inductor L: while the rectifier's diodes carry a
     surge into the bus (the line returning onto a sagged bus), the two inductances divide the
     difference between line and bus, and the terminals sit L_s/(L_s + L) of the way from the
     line's peak to the bus, at most the over-voltage trip (a voltage divider of two
     inductances carrying the same current)."""
-    if x_capacitance_F(cfg) > 0.0:
-        return vpk_max_V
+    cx, pl = x_capacitance_F(cfg), cfg.plant
+    if cx > 0.0:
+        r_d = _pick(pl.dm_damping, math.sqrt(pl.dm_inductance / cx))
+        s = step_peak(
+            pl.source_inductance, pl.source_resistance, pl.dm_inductance, pl.dm_resistance, r_d, cx
+        )
+        return max(vpk_max_V, min(ov_V, vpk_max_V * s))
     share = cfg.plant.source_inductance / (cfg.plant.source_inductance + inductance_H)
     return vpk_max_V + share * max(ov_V - vpk_max_V, 0.0)
 

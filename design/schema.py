@@ -269,8 +269,7 @@ class ControlTable:
         "Hz",
         "corner of the first-order low-pass on |v| in the duty feedforward 1 - |v|/v_bus "
         "(default fsw/10 with an input filter, none without: above the current loop's "
-        "crossover, it keeps the sampled feedforward's delay from exciting the filter's "
-        "resonance)",
+        "crossover, below the filter's resonance)",
         hi=1e7,
     )
     current_phase_margin_deg: float = key(
@@ -402,9 +401,10 @@ class SensingTable:
     vac_range: float | None = pos(
         "V",
         "line voltage at the top of the bipolar ADC range (default 1.25 x the highest voltage "
-        "the stage's input can show: the highest line peak with an input filter; without one, "
-        "that peak plus L_s/(L_s + L) of the way up to the over-voltage trip, where a "
-        "rectified surge puts it)",
+        "the stage's input can show: with an input filter, where its X capacitor rings when "
+        "the line steps from 0 to its highest peak (an IEC 61000-4-11 interruption ending at "
+        "the peak), at most the over-voltage trip; without one, that peak plus L_s/(L_s + L) "
+        "of the way up to the over-voltage trip, where a rectified surge puts it)",
         hi=10000.0,
     )
     il_range: float | None = pos(

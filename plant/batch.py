@@ -14,6 +14,7 @@ import math
 import numpy as np
 
 from design.contract import timing
+from design.filter import MIN_L_SRC, system
 
 from . import filt
 from . import kernel as K
@@ -57,7 +58,7 @@ def stage_par(p: StageParams, load: Load) -> np.ndarray:
     par[LY.P_CORE_C], par[LY.P_CORE_BETA] = p.core_energy_coeff, p.core_beta
     par[LY.P_ACX] = p.ac_copper_ohm / 12.0  # the triangle's mean square: di^2/12
     if p.filtered:
-        a, b_v, b_i = filt.system(
+        a, b_v, b_i = system(
             p.source_inductance_H,
             p.source_resistance_ohm,
             p.dm_inductance_H,
@@ -73,7 +74,7 @@ def stage_par(p: StageParams, load: Load) -> np.ndarray:
             p.dm_damping_ohm,
         )
         par[LY.P_FLS], par[LY.P_FLM], par[LY.P_FCX] = (
-            max(p.source_inductance_H, filt.MIN_L_SRC),
+            max(p.source_inductance_H, MIN_L_SRC),
             p.dm_inductance_H,
             p.x_capacitance_F,
         )

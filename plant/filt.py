@@ -23,9 +23,9 @@ states; the exact discretisation is unaffected by the stiffness this gives.
 
 from __future__ import annotations
 
-import math
-
 import numpy as np
+
+from design.filter import expm
 
 from .jit import jit_inline
 from .layout import (
@@ -50,39 +50,6 @@ from .layout import (
     R_ILINE,
     R_VTERM,
 )
-
-MIN_L_SRC = 1e-9  # H: the wiring of a grid given as inductance-free
-
-
-def system(
-    l_src_H: float, r_src_ohm: float, l_dm_H: float, r_dm_ohm: float, r_d_ohm: float, c_x_F: float
-) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-    """``(A, b_v, b_i)`` of ``x' = A x + b_v v_s + b_i i_stage``, ``x = (i_s, i_m, v_x)``."""
-    ls = max(l_src_H, MIN_L_SRC)
-    a = np.array(
-        [
-            [-(r_src_ohm + r_d_ohm) / ls, r_d_ohm / ls, -1.0 / ls],
-            [r_d_ohm / l_dm_H, -(r_d_ohm + r_dm_ohm) / l_dm_H, 0.0],
-            [1.0 / c_x_F, 0.0, 0.0],
-        ]
-    )
-    return a, np.array([1.0 / ls, 0.0, 0.0]), np.array([0.0, 0.0, -1.0 / c_x_F])
-
-
-def expm(m: np.ndarray) -> np.ndarray:
-    """exp(m) by scaling and squaring of the Taylor series (to double precision for the
-    small matrices here: the scaled norm is at most 1/2 and 24 terms are summed)."""
-    norm = float(np.max(np.sum(np.abs(m), axis=1)))
-    s = max(0, int(math.ceil(math.log2(norm / 0.5)))) if norm > 0.5 else 0
-    x = m / (2.0**s)
-    out = np.eye(len(m))
-    term = np.eye(len(m))
-    for k in range(1, 25):
-        term = term @ x / k
-        out = out + term
-    for _ in range(s):
-        out = out @ out
-    return out
 
 
 def discretise(
