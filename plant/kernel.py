@@ -186,21 +186,53 @@ def _load_terms(par, lane, j, vc):
 
 
 @jit_inline
-def _stage_input(par, lane, harm, j, scale, s0, c0, ws):
-    """With a filter: the X capacitor's voltage at the period's start and where the filter
-    takes it by the end with the last period's current (the stage sees it move linearly
-    between them), the source at both ends into ``ws``; without: zeros, and the stage's input
-    at T/2 is the source's."""
+def _filter_ends(par, lane, harm, j, scale, s0, c0, ws):
+    """With a filter: the source at the period's ends into ``ws`` and the X capacitor's
+    voltage at the start; ``(0, 0)`` without one (the stage's input at T/2 is then the
+    source's)."""
     if par[P_FILT] == 0.0:
         ws[W_VXH, j] = ws[W_VSH, j]
         return 0.0, 0.0
     v0 = source_at(lane, harm, j, scale, 0.0, s0, c0)
     v1 = source_at(lane, harm, j, scale, par[P_T], s0, c0)
     ws[W_VG0, j], ws[W_VG1, j] = v0, v1
-    vxa = lane[j, L_FVX]
-    vxb = period_end(par, lane, j, v0, v1, lane[j, L_FISTG])[2]
-    ws[W_VXH, j] = 0.5 * (vxa + vxb)
-    return vxa, vxb
+    return lane[j, L_FVX], 0.0
+
+
+@jit_inline
+def _predicted_current(ws, j, vx, vc, r_path, Lt, T):
+    """The stage's current averaged over the period ahead, walked sub-interval by sub-interval
+    from its present value with the X capacitor held at ``vx`` and the bus at ``vc``: each
+    sub-interval's slope (vx - R i - m vc)/L, m by the current's sign where a diode carries it,
+    a diode's current stopping at zero. The filter then takes the stage's draw over the period
+    into account when it predicts where the X capacitor will be at the period's end."""
+    i = ws[W_I, j]
+    acc = 0.0
+    for seg in range(7):
+        dt = ws[W_DT + seg, j]
+        if dt <= 0.0:
+            continue
+        mp, mn = ws[W_MP + seg, j], ws[W_MN + seg, j]
+        forced = mp == mn
+        if forced or i > 0.0:
+            m = mp
+        elif i < 0.0:
+            m = mn
+        elif vx - mp * vc > 0.0:
+            m = mp
+        elif vx - mn * vc < 0.0:
+            m = mn
+        else:
+            continue  # no path forward-biased: the current stays at zero
+        slope = (vx - r_path * i - m * vc) / Lt
+        i1 = i + slope * dt
+        if not forced and ((i > 0.0 and i1 < 0.0) or (i < 0.0 and i1 > 0.0)):
+            acc += 0.5 * i * (-i / slope)  # the diode's current falls to zero and stays
+            i = 0.0
+        else:
+            acc += dt * 0.5 * (i + i1)
+            i = i1
+    return acc / T
 
 
 @jit_inline
@@ -303,8 +335,11 @@ def _period_setup(par, lane, harm, t, compare, gates, relay, ws, switching):
         s0, c0 = lane[j, L_S0], lane[j, L_C0]
         ws[W_VSH, j] = source_at(lane, harm, j, scale, half, s0, c0)
         filtered = par[P_FILT] != 0.0
-        vxa, vxb = _stage_input(par, lane, harm, j, scale, s0, c0, ws)
+        vxa, vxb = _filter_ends(par, lane, harm, j, scale, s0, c0, ws)
         if not switching:
+            if filtered:  # the averaged model: the filter with the last period's current
+                vxb = period_end(par, lane, j, ws[W_VG0, j], ws[W_VG1, j], lane[j, L_FISTG])[2]
+                ws[W_VXH, j] = 0.5 * (vxa + vxb)
             continue
         dl = min(max(float(compare[j]) / par[P_COUNTS], 0.0), 1.0)
         td = par[P_TDEAD] if (dl > 0.0 and dl < 1.0) else 0.0
@@ -333,13 +368,22 @@ def _period_setup(par, lane, harm, t, compare, gates, relay, ws, switching):
             m_pos, m_neg = _m_pair(qa, qb)
             ws[W_NOSW + seg, j] = 1.0 if qa < 0 else 0.0
             ws[W_DT + seg, j] = dt
-            if dt <= 0.0:
+            ws[W_MP + seg, j], ws[W_MN + seg, j] = m_pos, m_neg
+            ws[W_VS + seg, j] = a + 0.5 * dt  # the sub-interval's midpoint, for now
+        if filtered:
+            # where the filter takes the X capacitor by the period's end with the stage's
+            # current predicted over it: the stage sees it move linearly from the start there
+            i_pred = _predicted_current(ws, j, vxa, vc, r_path, Lt, T)
+            vxb = period_end(par, lane, j, ws[W_VG0, j], ws[W_VG1, j], i_pred)[2]
+            ws[W_VXH, j] = 0.5 * (vxa + vxb)
+        for seg in range(7):
+            tm = ws[W_VS + seg, j]
+            if ws[W_DT + seg, j] <= 0.0:
                 ws[W_VS + seg, j] = 0.0
             elif filtered:
-                ws[W_VS + seg, j] = vxa + (vxb - vxa) * (a + 0.5 * dt) / T
+                ws[W_VS + seg, j] = vxa + (vxb - vxa) * tm / T
             else:
-                ws[W_VS + seg, j] = source_at(lane, harm, j, scale, a + 0.5 * dt, s0, c0)
-            ws[W_MP + seg, j], ws[W_MN + seg, j] = m_pos, m_neg
+                ws[W_VS + seg, j] = source_at(lane, harm, j, scale, tm, s0, c0)
 
 
 @jit

@@ -150,8 +150,8 @@ def _ringing_A(prj) -> float:
 def test_the_feedforward_low_pass_keeps_the_filter_resonance_quiet(demo_project):
     """The sampled |v| reaches the duty feedforward 1.5 periods late; at the resonance of the X
     capacitor with the grid and DM inductance that delay drives the resonance.  Unfiltered
-    (a corner far above fsw) the demo rings at light load; with the default corner (fsw/10)
-    it does not (measured: 0.12 A against 0.02 A)."""
+    (a corner far above fsw) the demo rings at light load (10 % load, 264 V); with the
+    default corner (fsw/10) it does not. Measured: 0.24 A against 0.019 A."""
     quiet = _ringing_A(demo_project)
     raw = _ringing_A(from_config(demo_project.config.replace("control", ff_corner=1e7)))
     assert raw > 0.08 > 0.04 > quiet, (raw, quiet)
