@@ -23,10 +23,7 @@ class Project:
 
     def tuning_at(self, line_freq_Hz: float) -> Tuning:
         """Both loops tuned for another line frequency (the voltage loop's update follows it)."""
-        r = self.resolved
-        return tune(
-            self.config, r.inductance_H, r.capacitance_F, r.current_bandwidth_Hz, line_freq_Hz
-        )
+        return tune(self.config, self.resolved, line_freq_Hz)
 
 
 def from_config(cfg: Config) -> Project:
@@ -40,9 +37,7 @@ def from_config(cfg: Config) -> Project:
         capacitance_holdup_F=rules.capacitance_holdup_F,
     )
     r = resolve(cfg, L, C, sized.il_peak_A)
-    return Project(
-        cfg, sized, r, tune(cfg, r.inductance_H, r.capacitance_F, r.current_bandwidth_Hz)
-    )
+    return Project(cfg, sized, r, tune(cfg, r))
 
 
 def load_project(path: str | Path) -> Project:

@@ -51,13 +51,16 @@ builds itself.
 from __future__ import annotations
 
 import math
-from collections.abc import Callable
 from dataclasses import asdict, dataclass, replace
+from typing import Any
 
 import numpy as np
 
 from .config import Config, ConfigError
 from .contract import timing
+from .derive import Resolved
+from .filter import expm
+from .filter import system as filter_system
 
 BUS_BLOCKS = 8  # blocks of the sliding half-cycle bus average (a power of two)
 
@@ -79,6 +82,13 @@ class LoopDesign:
     phase_margin_deg: float
     gain_margin_dB: float
     units: str
+    # the sensed line's own paths (current loop with an input filter): the duty to sampled
+    # line-voltage plant over ``plant_den`` (empty: none), the current reference's gain on
+    # |v| at the design point (A/V), the feedforward low-pass's step and the bus (V)
+    line_num: tuple[float, ...] = ()
+    ref_gain_A_per_V: float = 0.0
+    ff_k: float = 1.0
+    vout_V: float = 1.0
 
     @property
     def ki_ts(self) -> float:
@@ -95,21 +105,41 @@ class LoopDesign:
         z = np.exp(2j * np.pi * np.asarray(f_Hz, dtype=float) * self.ts_s)
         return np.polyval(self.plant_num, z) / np.polyval(self.plant_den, z)
 
+    def line_paths(self, f_Hz: np.ndarray | float) -> tuple[np.ndarray, np.ndarray]:
+        """``(P_v, F)`` at ``f_Hz``: the duty to sampled |v| plant and the feedforward's
+        low-pass ``F(z) = K z/(z - (1 - K))`` (``P_v`` 0 without the paths)."""
+        z = np.exp(2j * np.pi * np.asarray(f_Hz, dtype=float) * self.ts_s)
+        if not self.line_num:
+            return np.zeros_like(z), np.ones_like(z)
+        pv = np.polyval(self.line_num, z) / np.polyval(self.plant_den, z)
+        return pv, self.ff_k * z / (z - (1.0 - self.ff_k))
+
     def loop_gain(self, f_Hz: np.ndarray) -> np.ndarray:
-        """Open-loop gain C(exp(jwT)) P(exp(jwT)) at frequencies ``f_Hz``."""
+        """Open-loop gain at frequencies ``f_Hz``, the loop broken at its feedback sample:
+        ``C P`` with ``C(z)`` the PI and ``P(z)`` the sampled plant; with the line's paths
+        (module docstring) ``C P/(1 + F P_v (1/V_o - C g))``."""
         z = np.exp(2j * np.pi * np.asarray(f_Hz, dtype=float) * self.ts_s)
         pi = self.kp + self.ki * self.ts_s * z / (z - 1.0)
-        return pi * self.plant(f_Hz)
+        pv, ff = self.line_paths(f_Hz)
+        return (
+            pi
+            * self.plant(f_Hz)
+            / (1.0 + (ff * pv) * (1.0 / self.vout_V - pi * self.ref_gain_A_per_V))
+        )
 
 
-def _pi_for(
-    plant: Callable[[float], complex], ts: float, fc: float, pm_deg: float, name: str
-) -> tuple[float, float]:
-    """(kp, ki) placing ``C(z) P(z)`` at magnitude 1 and phase -180 + pm at ``fc``:
-    ``kp + ki q = C_t`` with ``q = T z/(z - 1)``, real and imaginary parts."""
+def _pi_for(loop: LoopDesign, fc: float, pm_deg: float) -> tuple[float, float]:
+    """(kp, ki) placing ``loop.loop_gain`` at magnitude 1 and phase -180 + pm at ``fc``: the
+    PI's value ``C_t`` there solves ``T = C P/(1 + F P_v (1/V_o - C g))`` for the target ``T``
+    (``C_t = T/P`` without the line's paths), then ``kp + ki q = C_t`` with ``q = T z/(z -
+    1)``, real and imaginary parts."""
+    ts, name = loop.ts_s, loop.name
     z = complex(np.exp(2j * math.pi * fc * ts))
-    p = complex(plant(fc))
-    ct = complex(np.exp(1j * math.radians(pm_deg - 180.0))) / p
+    p = complex(loop.plant(fc))
+    pv, ff = (complex(x) for x in loop.line_paths(fc))
+    tt = complex(np.exp(1j * math.radians(pm_deg - 180.0)))
+    ct = tt * (1.0 + ff * pv / loop.vout_V) / (p + tt * ff * pv * loop.ref_gain_A_per_V)
+    p = tt / ct  # the plant the PI sees there, its own path folded in
     q = ts * z / (z - 1.0)
     ki = ct.imag / q.imag
     kp = ct.real - ki * q.real
@@ -128,10 +158,24 @@ def cmath_phase(c: complex) -> float:
     return math.atan2(c.imag, c.real)
 
 
-def _margins(loop: LoopDesign) -> tuple[float, float, float]:
+def _grid(loop: LoopDesign) -> tuple[np.ndarray, np.ndarray]:
+    """A dense log grid from three decades under the target crossover to Nyquist, and the
+    loop gain on it."""
     nyq = 0.5 / loop.ts_s
     f = np.logspace(math.log10(loop.target_crossover_Hz) - 3, math.log10(nyq * 0.999), 20000)
-    g = loop.loop_gain(f)
+    return f, loop.loop_gain(f)
+
+
+def phase_crossover_Hz(loop: LoopDesign) -> float | None:
+    """Where the loop's phase first reaches -180 deg (Hz), None below Nyquist."""
+    f, g = _grid(loop)
+    ph = np.unwrap(np.angle(g))
+    j = np.nonzero((ph[:-1] > -np.pi) & (ph[1:] <= -np.pi))[0]
+    return float(f[j[0]]) if len(j) else None
+
+
+def _margins(loop: LoopDesign) -> tuple[float, float, float]:
+    f, g = _grid(loop)
     mag = np.abs(g)
     ph = np.unwrap(np.angle(g))
     i = np.nonzero((mag[:-1] >= 1.0) & (mag[1:] < 1.0))[0]
@@ -158,42 +202,188 @@ def _design(
     pm: float,
     ts: float,
     units: str,
+    **line: Any,
 ) -> LoopDesign:
     nums, dens = tuple(float(x) for x in num), tuple(float(x) for x in den)
     nan = math.nan
-    probe = LoopDesign(name, 0.0, 0.0, ts, k_plant, nums, dens, fc, pm, nan, nan, nan, units)
-    kp, ki = _pi_for(lambda f: complex(probe.plant(f)), ts, fc, pm, name)
-    loop = LoopDesign(name, kp, ki, ts, k_plant, nums, dens, fc, pm, nan, nan, nan, units)
-    return LoopDesign(name, kp, ki, ts, k_plant, nums, dens, fc, pm, *_margins(loop), units)
+    probe = LoopDesign(
+        name, 0.0, 0.0, ts, k_plant, nums, dens, fc, pm, nan, nan, nan, units, **line
+    )
+    kp, ki = _pi_for(probe, fc, pm)
+    loop = replace(probe, kp=kp, ki=ki)
+    fc_m, pm_m, gm_m = _margins(loop)
+    return replace(loop, crossover_Hz=fc_m, phase_margin_deg=pm_m, gain_margin_dB=gm_m)
 
 
-def with_plant(loop: LoopDesign, num: np.ndarray, den: np.ndarray) -> LoopDesign:
+def with_plant(
+    loop: LoopDesign, num: np.ndarray, den: np.ndarray, line_num: np.ndarray | None = None
+) -> LoopDesign:
     """``loop``'s PI on another sampled plant (for example the edge-aligned current plant at
-    another point of the line cycle), its crossover and margins computed afresh."""
+    another point of the line cycle; ``line_num`` its line path over the same ``den``, kept
+    when None), its crossover and margins computed afresh."""
     nums, dens = tuple(float(x) for x in num), tuple(float(x) for x in den)
     nan = math.nan
-    other = replace(loop, plant_num=nums, plant_den=dens, crossover_Hz=nan)
+    lines = loop.line_num if line_num is None else tuple(float(x) for x in line_num)
+    other = replace(loop, plant_num=nums, plant_den=dens, line_num=lines, crossover_Hz=nan)
     other = replace(other, phase_margin_deg=nan, gain_margin_dB=nan)
     fc, pm, gm = _margins(other)
     return replace(other, crossover_Hz=fc, phase_margin_deg=pm, gain_margin_dB=gm)
 
 
+@dataclass(frozen=True)
+class CurrentCircuit:
+    """What the duty drives (H, ohm, F): the boost inductor, and between it and the grid (a
+    short for the loop) the input filter of ``design.filter.system``; with ``c_x_F`` 0 there
+    is none and the grid's inductance stands in series with the boost inductor.
+    ``duty`` is the main switch's duty at which the centre-aligned carrier's edges sit (the
+    line cycle's mean at the nominal line; only the filter's states notice where they sit)."""
+
+    inductance_H: float
+    l_src_H: float
+    r_src_ohm: float
+    l_dm_H: float
+    r_dm_ohm: float
+    r_d_ohm: float
+    c_x_F: float
+    duty: float
+
+    @classmethod
+    def inductor(cls, inductance_H: float) -> CurrentCircuit:
+        """An inductor alone between a stiff source and the bridge."""
+        return cls(inductance_H, 0.0, 0.0, 0.0, 0.0, 0.0, 0.0, 0.5)
+
+    @property
+    def has_filter(self) -> bool:
+        return self.c_x_F > 0.0
+
+    def states(self) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+        """``(A, b, c)``: ``x' = A x + b u``, ``i_L = c x``, ``u`` the volts the duty takes off
+        the bridge (``V_o`` per unit duty). With a filter ``x = (i_s, i_m, v_x, i_L)``,
+        ``L di_L/dt = v_x + u`` and the X capacitor feeding ``i_L``; without one ``x = (i_L)``,
+        the boost and grid inductances in series (resistances left out: their pole, R/L, sits
+        two decades under the crossover)."""
+        if not self.has_filter:
+            return (
+                np.zeros((1, 1)),
+                np.array([1.0 / (self.inductance_H + self.l_src_H)]),
+                np.array([1.0]),
+            )
+        af, _, bi = filter_system(
+            self.l_src_H, self.r_src_ohm, self.l_dm_H, self.r_dm_ohm, self.r_d_ohm, self.c_x_F
+        )
+        a = np.zeros((4, 4))
+        a[:3, :3], a[:3, 3] = af, bi
+        a[3, 2] = 1.0 / self.inductance_H
+        b = np.array([0.0, 0.0, 0.0, 1.0 / self.inductance_H])
+        return a, b, np.array([0.0, 0.0, 0.0, 1.0])
+
+
+def circuit_of(cfg: Config, r: Resolved) -> CurrentCircuit:
+    """The current loop's circuit from a config and its derived values."""
+    pl, s = cfg.plant, cfg.spec
+    mean_line = 2.0 * math.sqrt(2.0) / math.pi * s.vin_rms_nominal  # |v| over a half (analytic)
+    return CurrentCircuit(
+        r.inductance_H,
+        pl.source_inductance,
+        pl.source_resistance,
+        pl.dm_inductance,
+        pl.dm_resistance,
+        r.dm_damping_ohm,
+        r.x_capacitance_F,
+        min(max(1.0 - mean_line / s.vout, 0.0), 1.0),
+    )
+
+
+def line_fields(
+    cfg: Config, r: Resolved, circuit: CurrentCircuit, carrier: str, a_rel: float = 0.0
+) -> dict[str, Any]:
+    """The sensed line's own paths around the current loop (``LoopDesign``'s line fields):
+    with an input filter the duty's current moves the X capacitor, whose sampled voltage,
+    through the feedforward's low-pass ``F(z)``, feeds the duty back through the feedforward
+    ``1 - F |v|/V_o`` and the current reference ``P F |v|/V_rms^2`` (at the design point:
+    rated input power at the nominal line);
+    without one the duty has no path to the sample (the grid's ``L di/dt`` at the sample
+    instant is the ripple's slope, which the duty does not move). ``F``'s step is the
+    firmware's ``FF_K``, ``1 - exp(-2 pi f_c/f_sw)``."""
+    s = cfg.spec
+    if not circuit.has_filter:
+        return {}
+    ts = 1.0 / s.fsw
+    fc = r.ff_corner_Hz
+    return {
+        "line_num": tuple(
+            float(x) for x in current_plant(circuit, s.vout, ts, carrier, a_rel, "line")[0]
+        ),
+        "ref_gain_A_per_V": s.power / s.efficiency / s.vin_rms_nominal**2,
+        "ff_k": 1.0 - math.exp(-2.0 * math.pi * fc / s.fsw) if math.isfinite(fc) else 1.0,
+        "vout_V": s.vout,
+    }
+
+
+def _ss_poly(phi: np.ndarray, b: np.ndarray, c: np.ndarray) -> np.ndarray:
+    """Numerator of ``c (zI - phi)^-1 b`` over ``det(zI - phi)`` (SISO: ``det(zI - phi + b c)
+    - det(zI - phi)``), descending powers of z, as long as the denominator."""
+    return np.poly(phi - np.outer(b, c)) - np.poly(phi)
+
+
 def current_plant(
-    k_i: float, ts: float, carrier: str = "centre", a_rel: float = 0.0
+    circuit: CurrentCircuit,
+    vout_V: float,
+    ts: float,
+    carrier: str = "centre",
+    a_rel: float = 0.0,
+    output: str = "current",
 ) -> tuple[np.ndarray, np.ndarray]:
-    """The duty to current-sample plant of ``carrier``'s timing (module docstring):
-    centre-aligned ``(K_i T/2) (z + 1)/(z (z - 1))``; edge-aligned ``K_i T ((1 - a') + a' z)/
-    (z (z - 1))`` with ``a' = a_rel`` in [0, 1/2] (0: the worst case, which the tuning uses)."""
+    """The duty to current-sample plant of ``carrier``'s timing (module docstring). Each
+    period's duty acts through pulses of the bridge voltage at the switching edges it moves,
+    of area ``V_o T`` per unit duty; the samples see their impulse response ``g(t) = c e^{At}
+    b`` (``circuit.states``), summed in closed form: ``sum_j c e^{A (jT + tau)} b z^-j = c
+    e^{A tau} z (zI - Phi)^-1 b``, ``Phi = e^{AT}`` (exact for the linear circuit; the edges'
+    finite width left out). Centre-aligned: edges at ``d T/2`` after the period start and
+    before its end, the sample at mid-period, so ``tau = (1 - d) T/2`` for the first and ``(1
+    + d) T/2`` one period on for the second; with the boost inductance alone ``(K_i T/2) (z +
+    1)/(z (z - 1))``. Edge-aligned: the low switch's edge at ``d_low T`` after the start, the
+    sample at half of it (``d_low = 1 - 2 a'``), so the sample moves ``a' K_i T`` along the
+    period's own ramp (the boost inductor alone at that scale) and the edge reaches the
+    samples from the next one on with ``tau = T - d_low T/2``; with the boost inductance
+    alone ``K_i T ((1 - a') + a' z)/(z (z - 1))``. ``a' = a_rel`` in [0, 1/2], 0 the worst
+    case, which the tuning uses. ``output = "line"``: the same pulses seen in the sampled line
+    voltage (the X capacitor's; the sign of the voltage the duty's current takes off it),
+    with a filter only (its own ramp at the sample is the capacitor's ripple, zero at the
+    ramp's middle)."""
     t = timing(carrier)
+    a, b, c = circuit.states()
+    if output == "line":
+        if not circuit.has_filter:
+            raise ValueError("without an input filter the duty has no path to the sampled line")
+        c = np.array([0.0, 0.0, 1.0, 0.0])
+    phi = expm(a * ts)
+    den = np.poly(phi)
     if t["carrier"] == "centre-aligned" and t["sample"] == "counter top":
-        a = 0.5 * k_i * ts
-        return np.array([a, a]), np.array([1.0, -1.0, 0.0])
-    if t["carrier"] == "edge-aligned" and t["sample"] == "half the low switch's on-time":
+        d = circuit.duty
+        first = _ss_poly(phi, b, c @ expm(a * (1.0 - d) * ts / 2.0))
+        second = _ss_poly(phi, b, c @ expm(a * (1.0 + d) * ts / 2.0))
+        num = 0.5 * vout_V * ts * np.polyadd(np.polymul(first, [1.0, 0.0]), second)
+    elif t["carrier"] == "edge-aligned" and t["sample"] == "half the low switch's on-time":
         if not 0.0 <= a_rel <= 0.5:
             raise ValueError(f"a_rel {a_rel} outside [0, 0.5]")
-        k = k_i * ts
-        return np.array([a_rel * k, (1.0 - a_rel) * k]), np.array([1.0, -1.0, 0.0])
-    raise NotImplementedError(f"no sampled current plant derived for {t}")
+        tau = ts * (1.0 + 2.0 * a_rel) / 2.0
+        later = _ss_poly(phi, b, c @ expm(a * tau))
+        own = a_rel * float(c @ b) * den  # the period's own ramp, over the same denominator
+        num = vout_V * ts * np.polyadd(own, later)
+    else:
+        raise NotImplementedError(f"no sampled current plant derived for {t}")
+    return _trim(num), np.polymul(den, [1.0, 0.0])  # the compare takes effect a period on
+
+
+def _trim(num: np.ndarray) -> np.ndarray:
+    """Drop leading coefficients that are zero to rounding."""
+    num = np.asarray(num, dtype=float)
+    scale = float(np.max(np.abs(num))) or 1.0
+    k = 0
+    while k < len(num) - 1 and abs(num[k]) <= 1e-13 * scale:
+        k += 1
+    return num[k:]
 
 
 def voltage_plant(k_v: float, tv: float, blocks: int = BUS_BLOCKS) -> tuple[np.ndarray, np.ndarray]:
@@ -224,42 +414,34 @@ class Tuning:
         return {"current": self.current.as_dict(), "voltage": self.voltage.as_dict()}
 
 
-def tune(
-    cfg: Config,
-    inductance_H: float,
-    capacitance_F: float,
-    current_bandwidth_Hz: float,
-    line_freq_Hz: float | None = None,
-) -> Tuning:
-    """Gains for both loops; ``line_freq_Hz`` (default: the spec's) sets the voltage-loop update."""
+def tune(cfg: Config, r: Resolved, line_freq_Hz: float | None = None) -> Tuning:
+    """Gains for both loops on the derived values ``r`` (the inductor, the bus capacitor, the
+    current bandwidth, the input filter); ``line_freq_Hz`` (default: the spec's) sets the
+    voltage-loop update."""
     try:
-        return _tune(cfg, inductance_H, capacitance_F, current_bandwidth_Hz, line_freq_Hz)
+        return _tune(cfg, r, line_freq_Hz)
     except ConfigError as exc:  # name the file too
         raise ConfigError(f"{cfg.source}: {exc}") from None
 
 
-def _tune(
-    cfg: Config,
-    inductance_H: float,
-    capacitance_F: float,
-    current_bandwidth_Hz: float,
-    line_freq_Hz: float | None,
-) -> Tuning:
+def _tune(cfg: Config, r: Resolved, line_freq_Hz: float | None) -> Tuning:
     s, c = cfg.spec, cfg.control
     ts = 1.0 / s.fsw
     fl = s.line_freq if line_freq_Hz is None else line_freq_Hz
     th = 1.0 / (2.0 * fl)
     tv = th / BUS_BLOCKS
-    k_i = s.vout / series_inductance_H(cfg, inductance_H)
-    k_v = s.efficiency / (capacitance_F * s.vout)
+    circuit = circuit_of(cfg, r)
+    k_i = s.vout / r.inductance_H
+    k_v = s.efficiency / (r.capacitance_F * s.vout)
     cur = _design(
         "current_bandwidth/current_phase_margin_deg",
         k_i,
-        *current_plant(k_i, ts, c.carrier),
-        current_bandwidth_Hz,
+        *current_plant(circuit, s.vout, ts, c.carrier),
+        r.current_bandwidth_Hz,
         c.current_phase_margin_deg,
         ts,
         "duty per A",
+        **line_fields(cfg, r, circuit, c.carrier),
     )
     vol = _design(
         "voltage_bandwidth/voltage_phase_margin_deg",

@@ -21,7 +21,7 @@ import pytest
 from scipy import signal
 
 from design.project import from_config, load_project
-from design.tuning import current_plant, with_plant
+from design.tuning import CurrentCircuit, circuit_of, current_plant, with_plant
 from harness.campaigns import fuzz
 from harness.closedloop import loopgain as lg
 from plant.batch import FIELDS, Plant
@@ -77,7 +77,7 @@ def test_simulated_stage_answers_a_duty_pulse_as_the_tuned_plant(carrier):
     k_i = V_BUS / STAGE.inductance_H
     ts = 1.0 / STAGE.fsw_Hz
     a_rel = V_IN / (2.0 * V_BUS) if edge else 0.0
-    num, den = current_plant(k_i, ts, carrier, a_rel)
+    num, den = current_plant(CurrentCircuit.inductor(STAGE.inductance_H), V_BUS, ts, carrier, a_rel)
     # the duty computed at sample k takes effect in period k + 1: the pulse of period
     # PULSE_AT is the design's input at sample PULSE_AT - 1
     _, (h,) = signal.dimpulse((num, den, ts), n=len(diff) - PULSE_AT + 1)
@@ -108,7 +108,11 @@ def test_measured_edge_aligned_loop_matches_the_line_cycle_mean_design():
     prj = load_project(EXAMPLES / "appliance_1k2.toml")
     prj = from_config(prj.config.replace("control", carrier="edge"))
     lp = prj.tuning.current
-    mean = with_plant(lp, *current_plant(lp.plant_gain, lp.ts_s, "edge", 0.25))
+    circuit = circuit_of(prj.config, prj.resolved)
+    vout = prj.config.spec.vout
+    num, den = current_plant(circuit, vout, lp.ts_s, "edge", 0.25)
+    line = current_plant(circuit, vout, lp.ts_s, "edge", 0.25, "line")[0]
+    mean = with_plant(lp, num, den, line)
     m = lg.measure(prj, "current").figures()
     assert m["crossover_Hz"] == pytest.approx(mean.crossover_Hz, rel=0.10)
     assert m["phase_margin_deg"] == pytest.approx(mean.phase_margin_deg, abs=5.0)

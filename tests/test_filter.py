@@ -147,14 +147,18 @@ def _ringing_A(prj) -> float:
     return float(spec[f > 3000.0].max())
 
 
-def test_the_feedforward_low_pass_keeps_the_filter_resonance_quiet(demo_project):
-    """The sampled |v| reaches the duty feedforward 1.5 periods late; at the resonance of the X
-    capacitor with the grid and DM inductance that delay drives the resonance.  Unfiltered
-    (a corner far above fsw) the demo rings at light load (10 % load, 264 V); with the
-    default corner (fsw/10) it does not. Measured: 0.24 A against 0.019 A."""
+def test_the_filter_resonance_stays_quiet_at_light_load(demo_project):
+    """The sampled |v| reaches the duty feedforward and the current reference a period or
+    two late, and the stage's own current moves it through the filter: a path that drives
+    the resonance of the boost inductor with the X capacitor unless the current loop's tuning
+    takes it in (``design.tuning.line_fields``). It does: the demo stays quiet at light load
+    (10 % load, 264 V) with its default feedforward low-pass (f_sw/10) and without one (a
+    corner far above f_sw, the tuning then placed on the unfiltered path). Measured: 0.016 A
+    and 0.018 A; a tuning on the series inductance, blind to the path, rang at 0.24 A without
+    the low-pass."""
     quiet = _ringing_A(demo_project)
     raw = _ringing_A(from_config(demo_project.config.replace("control", ff_corner=1e7)))
-    assert raw > 0.08 > 0.04 > quiet, (raw, quiet)
+    assert max(quiet, raw) < 0.04, (raw, quiet)
 
 
 def test_step_peak_against_scipy_signal_step():

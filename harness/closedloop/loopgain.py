@@ -22,6 +22,7 @@ import numpy as np
 
 from design.contract import Channel, Mode
 from design.project import Project
+from design.tuning import phase_crossover_Hz
 
 from .loop import run
 from .scenario import Scenario
@@ -114,15 +115,24 @@ def margins_from_points(f_Hz: np.ndarray, g: np.ndarray) -> dict:
     return out
 
 
+GM_POINTS = (0.9, 0.95, 1.0, 1.05, 1.1)  # x the design's -180 deg crossing
+
+
 def default_points(prj: Project, loop: str) -> np.ndarray:
-    """Multiples of the design's crossover, moved off the line's harmonics (a point within
-    20 % of a harmonic's spacing from one is moved by 0.3 of the line frequency)."""
+    """Multiples of the design's crossover, and for the current loop five points around the
+    design's -180 deg crossing (within 10 %, below 0.45 f_sw) so that the gain margin is
+    measured; moved off the line's harmonics (a point within 20 % of a harmonic's spacing
+    from one is moved by 0.3 of the line frequency)."""
     lp = getattr(prj.tuning, loop)
     fl = prj.config.spec.line_freq
     mult = CURRENT_POINTS if loop == "current" else VOLTAGE_POINTS
+    targets = [m * lp.crossover_Hz for m in mult]
+    f180 = phase_crossover_Hz(lp) if loop == "current" else None
+    if f180 is not None:
+        top = 0.45 * prj.config.spec.fsw
+        targets += [k * f180 for k in GM_POINTS if k * f180 < top and k * f180 > targets[-1]]
     fs = []
-    for m in mult:
-        f = m * lp.crossover_Hz
+    for f in targets:
         if f > 0.5 * fl and abs(f / fl - round(f / fl)) < 0.2:
             f += 0.3 * fl
         fs.append(f)
