@@ -43,7 +43,6 @@ from .rules import (
     Add,
 )
 from .rules import HALF_MAX_FREQ_MARGIN as HALF_MAX_MARGIN
-from .tuning import series_inductance_H
 
 
 def plausibility(add: Add, prj: Project) -> None:
@@ -82,15 +81,18 @@ def plausibility(add: Add, prj: Project) -> None:
         "consecutive such periods before the bus channel counts as failed",
         f"rule: {BUS_LOW_PERIODS}",
     )
-    l_series = series_inductance_H(prj.config, r.inductance_H)
+    pl = prj.config.plant
+    # the duty drives, over the several periods the check watches, the boost inductor with
+    # the grid's (and below the filter's resonance the DM) inductance in series
+    l_series = r.inductance_H + pl.source_inductance
+    l_series += pl.dm_inductance if r.x_capacitance_F > 0.0 else 0.0
     add(
         "IL_SLOPE_A_PER_V",
         1.0 / (s.fsw * l_series),
         "f",
         "A/V",
         "current rise per period per volt the duty puts across the inductors (T/L): the boost "
-        "inductor with the grid's (and an input filter's DM) inductance in series, as the "
-        "current loop's tuning takes it",
+        "inductor with the grid's (and an input filter's DM) inductance in series",
         f"1/(fsw x L), L = {l_series:.6g} H (boost {r.inductance_H:.6g} H)",
         (ib / vb, 15),
     )

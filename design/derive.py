@@ -16,6 +16,7 @@ from .rules import (
     BROWNOUT_ON_OF_VMIN,
     CURRENT_BW_DIVISOR,
     CURRENT_BW_DIVISOR_EDGE,
+    CURRENT_BW_OF_FRES,
     DEVICE_OF_OC,
     FF_CORNER_DIVISOR,
     HW_OV_OF_VOUT,
@@ -27,6 +28,7 @@ from .rules import (
     RANGE_MARGIN,
     SOFT_START_CHARGE_OF_RATED,
     SOFT_START_MIN_S,
+    X_CAP_PER_W,
 )
 from .schema import PlantTable
 
@@ -105,8 +107,9 @@ class Resolved:
 
 
 def x_capacitance_F(cfg: Config) -> float:
-    """The input filter's X capacitance (F), ``[plant] x_capacitance`` (0: no filter)."""
-    return cfg.plant.x_capacitance
+    """The input filter's X capacitance (F), ``[plant] x_capacitance`` (0: no filter), by
+    default ``X_CAP_PER_W`` times the rated power."""
+    return _pick(cfg.plant.x_capacitance, X_CAP_PER_W * cfg.spec.power)
 
 
 def filter_resonance_Hz(cfg: Config) -> float:
@@ -117,6 +120,16 @@ def filter_resonance_Hz(cfg: Config) -> float:
     if cx <= 0.0:
         return 0.0
     return 1.0 / (2.0 * math.pi * math.sqrt((pl.source_inductance + pl.dm_inductance) * cx))
+
+
+def current_bandwidth_default(cfg: Config) -> float:
+    """The current loop's default crossover (Hz): f_sw over ``CURRENT_BW_DIVISOR`` (its
+    ``_EDGE`` value with the edge-aligned carrier), with an input filter at most its
+    resonance over ``CURRENT_BW_OF_FRES``."""
+    s, c = cfg.spec, cfg.control
+    fc = s.fsw / (CURRENT_BW_DIVISOR_EDGE if c.carrier == "edge" else CURRENT_BW_DIVISOR)
+    f_res = filter_resonance_Hz(cfg)
+    return min(fc, f_res / CURRENT_BW_OF_FRES) if f_res > 0.0 else fc
 
 
 def zc_debounce_default(fsw_Hz: float, f_res_Hz: float) -> int:
@@ -177,10 +190,7 @@ def resolve(cfg: Config, inductance_H: float, capacitance_F: float, il_peak_A: f
     r = Resolved(
         inductance_H=_pick(cfg.plant.inductance, inductance_H),
         capacitance_F=cap,
-        current_bandwidth_Hz=_pick(
-            c.current_bandwidth,
-            s.fsw / (CURRENT_BW_DIVISOR_EDGE if c.carrier == "edge" else CURRENT_BW_DIVISOR),
-        ),
+        current_bandwidth_Hz=_pick(c.current_bandwidth, current_bandwidth_default(cfg)),
         # the feedforward's low-pass keeps the input filter's resonance quiet: none without one
         ff_corner_Hz=_pick(c.ff_corner, s.fsw / FF_CORNER_DIVISOR if cx > 0.0 else math.inf),
         soft_start_s=_pick(c.soft_start_time, soft_start_s(cap, s.vout, s.power)),

@@ -21,10 +21,20 @@ CURRENT_BW_DIVISOR = 15.0  # current-loop crossover: fsw over this (centre-align
 # out of reach; at fsw/25 the PI reaches it with a gain margin (11.9 dB on the demo) near the
 # centre-aligned loop's at fsw/15 (13.2 dB), computed on the sampled loops
 CURRENT_BW_DIVISOR_EDGE = 25.0
-# duty feedforward's line voltage: a first-order low-pass at fsw over this (above the current
-# loop's crossover, below the input filter's resonance: the sampled |v| reaches the duty 1.5
-# periods late, and unfiltered that delay makes the X capacitor's resonance with the grid and
-# DM inductance ring on the demo at light load, 0.24 A against 0.019 A; measured, see README)
+# ... and with an input filter at most its resonance over this: near the resonance the X
+# capacitor's voltage, which the stage's own current moves, comes back into the duty through
+# the feedforward and the current reference and takes the loop's phase; with the reference's
+# path gone (light load) survey designs of 4-10 kW with 1 uF per kW on a 20 uH grid (9-14 kHz
+# resonances) had negative phase margins at fsw/15, and at f_res/3 57 deg or more over the
+# whole load range (computed on the sampled loops; common practice keeps the crossover well
+# below the filter's resonance)
+CURRENT_BW_OF_FRES = 3.0
+X_CAP_PER_W = 1e-9  # input filter's X capacitance by default: 1 uF per kW of rated power
+# (typical of a kW front end; illustrative)
+# duty feedforward's line voltage (and the current reference's): a first-order low-pass at
+# fsw over this, above the current loop's crossover (the tuning takes its path through the X
+# capacitor's voltage in; on the appliance example the raw sample in the reference cost 4.5 dB
+# of gain margin; see README)
 FF_CORNER_DIVISOR = 10.0
 RAMP_HOLD_OF_VOUT = 0.02  # soft-start ramp holds while the bus lags it by its lag plus this
 FF_STEP_OF_VPK_MIN = 0.1  # |v| off the filtered value by this x the lowest peak: a line step

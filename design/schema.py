@@ -229,13 +229,12 @@ class PlantTable:
         lo=1.0,
         hi=100.0,
     )
-    x_capacitance: float = nonneg(
+    x_capacitance: float | None = nonneg(
         "F",
         "input filter's X capacitance across the stage's input, after the DM inductor; it "
-        "carries the inductor's ripple and its voltage is the sensed line (1 uF per kW of "
-        "rated power is typical; 0, the default: no filter, the grid's impedance then in "
-        "series with the boost inductor; see the README on why the default is off)",
-        0.0,
+        "carries the inductor's ripple and its voltage is the sensed line (default 1 uF per "
+        "kW of rated power, typical, illustrative; 0: no filter, the grid's impedance then in "
+        "series with the boost inductor)",
         hi=1e-3,
     )
     dm_inductance: float = pos(

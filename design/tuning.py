@@ -3,8 +3,8 @@ the exact sampled loops the firmware and the plant form.
 
 Averaged plants (Erickson & Maksimovic, Fundamentals of Power Electronics, averaged switch
 modelling chapters): current loop duty -> inductor current ``K_i/s``, ``K_i = Vo/L`` (from
-``L di/dt = v - (1 - d) Vo``; ``L`` the boost inductor with the grid's and the DM inductance in
-series, ``series_inductance_H``); voltage loop input power command -> bus voltage ``K_v/s``,
+``L di/dt = v - (1 - d) Vo``; with an input filter the circuit of ``CurrentCircuit``, sampled
+exactly, ``current_plant``); voltage loop input power command -> bus voltage ``K_v/s``,
 ``K_v = eta/(C Vo)`` (energy balance ``C Vo dv/dt = eta P_cmd - P_load``, constant-power load,
 the least damped case).
 
@@ -175,9 +175,12 @@ def phase_crossover_Hz(loop: LoopDesign) -> float | None:
 
 
 def _margins(loop: LoopDesign) -> tuple[float, float, float]:
+    """(crossover Hz, phase margin deg, gain margin dB) on the dense grid: the first fall of
+    the gain through 1, the phase there (wrapped: the feedforward's path cancels the plant's
+    gain at DC, so a phase unwrapped from the grid's bottom can sit a turn off), and the gain
+    at the first phase crossing of -180 deg above the crossover (inf if none)."""
     f, g = _grid(loop)
     mag = np.abs(g)
-    ph = np.unwrap(np.angle(g))
     i = np.nonzero((mag[:-1] >= 1.0) & (mag[1:] < 1.0))[0]
     if len(i) == 0:
         raise ConfigError(
@@ -187,9 +190,11 @@ def _margins(loop: LoopDesign) -> tuple[float, float, float]:
     k = i[0]
     t = (0.0 - math.log(mag[k])) / (math.log(mag[k + 1]) - math.log(mag[k]))
     fc = math.exp(math.log(f[k]) + t * (math.log(f[k + 1]) - math.log(f[k])))
-    pm = 180.0 + math.degrees(ph[k] + t * (ph[k + 1] - ph[k]))
+    ph = np.unwrap(np.angle(g[k:]))
+    pm = 180.0 + math.degrees(ph[0] + t * (ph[1] - ph[0]))
+    pm = (pm + 180.0) % 360.0 - 180.0
     j = np.nonzero((ph[:-1] > -np.pi) & (ph[1:] <= -np.pi))[0]
-    gm = -20.0 * math.log10(mag[j[0]]) if len(j) else math.inf
+    gm = -20.0 * math.log10(mag[k + j[0]]) if len(j) else math.inf
     return fc, pm, gm
 
 
@@ -226,6 +231,19 @@ def with_plant(
     lines = loop.line_num if line_num is None else tuple(float(x) for x in line_num)
     other = replace(loop, plant_num=nums, plant_den=dens, line_num=lines, crossover_Hz=nan)
     other = replace(other, phase_margin_deg=nan, gain_margin_dB=nan)
+    fc, pm, gm = _margins(other)
+    return replace(other, crossover_Hz=fc, phase_margin_deg=pm, gain_margin_dB=gm)
+
+
+def ref_gain_A_per_V(cfg: Config, p_load_W: float, vrms_V: float) -> float:
+    """The current reference's gain on |v| (A/V) at a load and a line: ``P_in/V_rms^2``."""
+    return p_load_W / cfg.spec.efficiency / vrms_V**2
+
+
+def at_ref_gain(loop: LoopDesign, g_A_per_V: float) -> LoopDesign:
+    """``loop`` (a current loop) with its reference's path at gain ``g_A_per_V`` (an operating
+    point's, ``ref_gain_A_per_V``), its crossover and margins computed afresh."""
+    other = replace(loop, ref_gain_A_per_V=g_A_per_V, crossover_Hz=math.nan)
     fc, pm, gm = _margins(other)
     return replace(other, crossover_Hz=fc, phase_margin_deg=pm, gain_margin_dB=gm)
 
@@ -300,11 +318,15 @@ def line_fields(
     """The sensed line's own paths around the current loop (``LoopDesign``'s line fields):
     with an input filter the duty's current moves the X capacitor, whose sampled voltage,
     through the feedforward's low-pass ``F(z)``, feeds the duty back through the feedforward
-    ``1 - F |v|/V_o`` and the current reference ``P F |v|/V_rms^2`` (at the design point:
-    rated input power at the nominal line);
-    without one the duty has no path to the sample (the grid's ``L di/dt`` at the sample
-    instant is the ripple's slope, which the duty does not move). ``F``'s step is the
-    firmware's ``FF_K``, ``1 - exp(-2 pi f_c/f_sw)``."""
+    ``1 - F |v|/V_o`` and the current reference ``P F |v|/V_rms^2``. The loop is placed and
+    its margins reported at the design point, rated power at the nominal line (the
+    operating point ``pfcrig loopgain`` measures by default; ``at_ref_gain`` gives the loop
+    at another load or line: the reference's path adds phase at a crossover under the
+    filter's resonance, so the margins are least at no load, ``tests/test_tuning.py`` checks
+    them over the load range); without a filter the duty has no path to the sample (the
+    grid's ``L di/dt`` at the sample instant is the ripple's slope, which the duty does not
+    move).
+    ``F``'s step is the firmware's ``FF_K``, ``1 - exp(-2 pi f_c/f_sw)``."""
     s = cfg.spec
     if not circuit.has_filter:
         return {}
@@ -314,7 +336,7 @@ def line_fields(
         "line_num": tuple(
             float(x) for x in current_plant(circuit, s.vout, ts, carrier, a_rel, "line")[0]
         ),
-        "ref_gain_A_per_V": s.power / s.efficiency / s.vin_rms_nominal**2,
+        "ref_gain_A_per_V": ref_gain_A_per_V(cfg, s.power, s.vin_rms_nominal),
         "ff_k": 1.0 - math.exp(-2.0 * math.pi * fc / s.fsw) if math.isfinite(fc) else 1.0,
         "vout_V": s.vout,
     }
@@ -391,18 +413,6 @@ def voltage_plant(k_v: float, tv: float, blocks: int = BUS_BLOCKS) -> tuple[np.n
     num = 0.5 * k_v * tv / blocks * np.polymul([1.0, 1.0], np.ones(blocks))
     den = np.polymul(np.concatenate(([1.0], np.zeros(blocks))), [1.0, -1.0])
     return num, den
-
-
-def series_inductance_H(cfg: Config, inductance_H: float) -> float:
-    """The inductance the current loop drives around its crossover (H): the boost inductor
-    with the grid's inductance in series, and with an input filter its DM inductor too. The
-    filter's X capacitor decouples them only above its resonance; at a crossover well below it
-    (f_sw/15 against 16-27 kHz on the shipped configs) its impedance is some ten times the
-    inductances', so the current loop's plant is the sum (the measured appliance loop crossed
-    over 12 % below a design on the boost inductor alone)."""
-    pl = cfg.plant
-    dm = pl.dm_inductance if pl.x_capacitance > 0.0 else 0.0
-    return inductance_H + pl.source_inductance + dm
 
 
 @dataclass(frozen=True)

@@ -12,8 +12,9 @@ their difference equations (not from the design's polynomials):
   inductor) as python-control transfer functions, sampled in closed form from their state
   space (scipy.linalg.expm) at the instants the carrier's edges and the sample take; the
   sampled X capacitor voltage comes back through the feedforward's first-order low-pass
-  into the duty (``-|v|/Vo``) and the current reference (``P/Vrms^2 |v|``), which the
-  reported loop gain includes (``design.tuning`` docstrings);
+  into the duty (``-|v|/Vo``) and the current reference (``P/Vrms^2 |v|``, at rated power
+  and nominal line, the design's placement), which the reported loop gain includes
+  (``design.tuning`` docstrings);
 * voltage loop: the power command held over a block of ``Th/8``, the bus ``K/s`` with
   ``K = eta/(C Vo)``, averaged over the last 8 block means (a sliding half line cycle).
 
@@ -98,7 +99,7 @@ def filtered_loop(prj, lp, carrier: str, a_rel: float = 0.0):
         p_v = vo * T * _sampled(v, tau, T) / z
     k = 1 - np.exp(-2 * np.pi * r.ff_corner_Hz / sp.fsw)
     f = control.tf([k, 0], [1, -(1 - k)], T)
-    g_ref = sp.power / sp.efficiency / sp.vin_rms_nominal**2
+    g_ref = sp.power / sp.efficiency / sp.vin_rms_nominal**2  # rated, nominal line
     pi = control.tf([lp.kp + lp.ki * T, -lp.kp], [1, -1], T)
     return pi * p_i / (1 + f * p_v * (1 / vo - pi * g_ref))
 
@@ -183,6 +184,23 @@ def test_filtered_current_plant_answers_a_duty_pulse_as_the_circuit(carrier):
     got = got[: len(expect)]
     assert len(got) >= 20
     np.testing.assert_allclose(got, expect, atol=0.02 * np.max(np.abs(expect)))
+
+
+@pytest.mark.parametrize("cfg", CONFIGS, ids=ids)
+def test_current_loop_margins_hold_over_the_load_range(cfg):
+    """The current loop is placed at rated power and nominal line; the current reference's
+    path through the filter has its gain P/(eta Vrms^2) there. From no load (the path gone)
+    to rated power at the lowest line (its largest gain) the phase margin stays above 45 deg
+    and the gain margin above 6 dB (common practice for a current loop)."""
+    from design.tuning import at_ref_gain, ref_gain_A_per_V
+
+    prj = project_of(cfg)
+    lp, sp = prj.tuning.current, prj.config.spec
+    g_max = ref_gain_A_per_V(prj.config, sp.power, sp.vin_rms_min)
+    for k in (0.0, 0.1, 0.25, 0.5, 0.75, 1.0):
+        at = at_ref_gain(lp, k * g_max)
+        assert at.phase_margin_deg > 45.0, (k, at.phase_margin_deg)
+        assert at.gain_margin_dB > 6.0, (k, at.gain_margin_dB)
 
 
 @pytest.mark.parametrize("cfg", CONFIGS, ids=ids)

@@ -67,6 +67,8 @@ def loopgain_cmd(args: argparse.Namespace) -> int:
                 "remove its [[event]] tables"
             )
         scn = replace(given, duration_s=max(given.duration_s, scn.duration_s))
+    if not args.freqs:  # the gain margin's points at the scenario's operating point
+        fs = lg.default_points(prj, args.loop, scn)
     checks.run_length(scn.duration_s, spec.fsw, len(fs) + 1, RECORD_BYTES_PER_PERIOD)
     try:
         res = lg.measure(prj, args.loop, fs, scn, progress=not args.quiet)
@@ -123,7 +125,7 @@ def _plot(prj, res: lg.LoopGainResult, out: Path) -> Path:
 
     from codegen.files import atomic_path
 
-    lp = getattr(prj.tuning, res.loop)
+    lp = lg.design_at(prj, res.loop, res.scenario)
     f = np.logspace(np.log10(res.f_Hz.min()) - 0.5, np.log10(0.499 / lp.ts_s), 600)
     g = lp.loop_gain(f)
     fig, (a, b) = plt.subplots(2, 1, figsize=(8, 6), sharex=True)

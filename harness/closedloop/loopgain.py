@@ -22,7 +22,7 @@ import numpy as np
 
 from design.contract import Channel, Mode
 from design.project import Project
-from design.tuning import phase_crossover_Hz
+from design.tuning import LoopDesign, at_ref_gain, phase_crossover_Hz, ref_gain_A_per_V
 
 from .loop import run
 from .scenario import Scenario
@@ -118,12 +118,13 @@ def margins_from_points(f_Hz: np.ndarray, g: np.ndarray) -> dict:
 GM_POINTS = (0.9, 0.95, 1.0, 1.05, 1.1)  # x the design's -180 deg crossing
 
 
-def default_points(prj: Project, loop: str) -> np.ndarray:
+def default_points(prj: Project, loop: str, scn: Scenario | None = None) -> np.ndarray:
     """Multiples of the design's crossover, and for the current loop five points around the
-    design's -180 deg crossing (within 10 %, below 0.45 f_sw) so that the gain margin is
-    measured; moved off the line's harmonics (a point within 20 % of a harmonic's spacing
-    from one is moved by 0.3 of the line frequency)."""
-    lp = getattr(prj.tuning, loop)
+    design's -180 deg crossing (within 10 %, below 0.45 f_sw; at the operating point of
+    ``scn`` when given) so that the gain margin is measured; moved off the line's harmonics
+    (a point within 20 % of a harmonic's spacing from one is moved by 0.3 of the line
+    frequency)."""
+    lp = getattr(prj.tuning, loop) if scn is None else design_at(prj, loop, scn)
     fl = prj.config.spec.line_freq
     mult = CURRENT_POINTS if loop == "current" else VOLTAGE_POINTS
     targets = [m * lp.crossover_Hz for m in mult]
@@ -137,6 +138,16 @@ def default_points(prj: Project, loop: str) -> np.ndarray:
             f += 0.3 * fl
         fs.append(f)
     return np.array(fs)
+
+
+def design_at(prj: Project, loop: str, scn: Scenario) -> LoopDesign:
+    """The design's loop at the scenario's operating point: the current loop with an input
+    filter takes its reference's path at the scenario's load and line
+    (``design.tuning.at_ref_gain``; the design places it at no load)."""
+    lp: LoopDesign = getattr(prj.tuning, loop)
+    if loop != "current" or not lp.line_num:
+        return lp
+    return at_ref_gain(lp, ref_gain_A_per_V(prj.config, scn.load_power_W, scn.vrms_V))
 
 
 def default_scenario(prj: Project, loop: str, f_min_Hz: float) -> Scenario:
@@ -164,8 +175,12 @@ def measure(
 ) -> LoopGainResult:
     if loop not in ("current", "voltage"):
         raise ValueError(f"loop must be 'current' or 'voltage', not {loop!r}")
-    fs = default_points(prj, loop) if f_Hz is None else np.asarray(f_Hz, dtype=float)
-    scn = default_scenario(prj, loop, float(fs.min())) if scenario is None else scenario
+    if scenario is None:
+        first = default_points(prj, loop) if f_Hz is None else np.asarray(f_Hz, dtype=float)
+        scn = default_scenario(prj, loop, float(first.min()))
+    else:
+        scn = scenario
+    fs = default_points(prj, loop, scn) if f_Hz is None else np.asarray(f_Hz, dtype=float)
     settle = SETTLE_S[loop] if settle_s is None else settle_s
     if settle >= scn.duration_s:
         raise ValueError(
@@ -219,7 +234,7 @@ def measure(
         yp, xp = complex(cy[0], -cy[1]), complex(cx[0], -cx[1])
         meas.append(-yp / (yp + xp))
         used.append(int(m.sum()))
-    lp = getattr(prj.tuning, loop)
+    lp = design_at(prj, loop, scn)
     return LoopGainResult(
         loop,
         fs,
