@@ -435,9 +435,28 @@ def test_feedforward_voltage_is_a_first_order_low_pass(demo_project, demo_built)
     lib.pfc_iloop_track(s, 400.0, v0 + 1.5 * c["FF_STEP_V"], True)
     assert s.surge and s.vff == pytest.approx(v0 + 1.5 * c["FF_STEP_V"], rel=1e-5)
     assert lib.pfc_iloop_step(s, 5.0, 1.0, 1, c["DUTY_MAX"]) == 0.0
+    # the step's rise going on over the next period (the X capacitor takes a period or two
+    # to reach the new line): cut again
+    lib.pfc_iloop_track(s, 400.0, s.vff + 1.5 * c["FF_STEP_V"], True)
+    assert s.surge
     lib.pfc_iloop_track(s, 400.0, s.vff, True)
     assert not s.surge
     assert lib.pfc_iloop_step(s, 5.0, 1.0, 1, c["DUTY_MAX"]) > 0.0
+    # the window is open and the step's rise over: a ring's next rise beyond the peak passes
+    # at once and re-opens it, but takes no on-time away (cutting the stage's current each
+    # time rang the filter on)
+    assert s.step_win > 0
+    v1 = s.vff
+    lib.pfc_iloop_track(s, 400.0, v1 + 1.5 * c["FF_STEP_V"], True)
+    assert not s.surge and s.vff == pytest.approx(v1 + 1.5 * c["FF_STEP_V"], rel=1e-5)
+    assert s.step_win == c["FF_STEP_WINDOW"]
+    assert lib.pfc_iloop_step(s, 5.0, 1.0, 1, c["DUTY_MAX"]) > 0.0
+    # once the window has run out, a step up cuts the on-time again
+    for _ in range(int(c["FF_STEP_WINDOW"])):
+        lib.pfc_iloop_track(s, 400.0, s.vff, False)
+    assert s.step_win == 0
+    lib.pfc_iloop_track(s, 400.0, s.vff + 1.5 * c["FF_STEP_V"], True)
+    assert s.surge
 
 
 def test_x_capacitor_current_estimate(demo_project):
