@@ -1,8 +1,9 @@
 """Two controller mutants (rendered from patched templates, ``tests/helpers.py``) against the
 block checks that see them: without the duty ramp after a crossing, and without the floor
-under the mean square before 1/Vrms^2.  The fault campaign does not tell either from the
-shipped controller (README, "The slow leg's midpoint" and "Fault campaign invariants"); these
-checks do, on the block each one breaks.
+under the mean square before 1/Vrms^2; and the one case of the fault campaigns that tells
+the first from the shipped controller (the appliance example's sensor-fault campaign, seed
+91: 1 of 500 cases; the floor's mutant fails none of the plain or sensor-fault campaigns of
+the three configs, README "The slow leg's midpoint").
 
 Sources: the ramp's limit d_k = k / ZC_RAMP_PERIODS x DUTY_MAX (its definition in the config
 header); a sine of amplitude A has a half-cycle mean square A^2 / 2 (analytic)."""
@@ -15,8 +16,11 @@ import numpy as np
 import pytest
 
 from codegen.build import build_project
+from design.project import load_project
+from harness.campaigns import fuzz
+from harness.closedloop import scenario
 
-from .helpers import broken_loader, consts
+from .helpers import EXAMPLES, ROOT, broken_loader, consts
 from .test_c_blocks import FSW, run_rms, wave
 
 
@@ -67,3 +71,20 @@ def test_mean_square_floor_check_tells_the_mutant(demo_project, demo_built, no_f
     assert mutant[-1][3] == pytest.approx(2.0 / amp**2, rel=0.05)
     assert mutant[-1][3] > 2.0 / c["MS_FLOOR_V2"]
     assert math.isfinite(float(np.float64(mutant[-1][3])))
+
+
+def test_sensor_fault_campaign_case_tells_the_no_ramp_mutant():
+    """The case the appliance's sensor-fault campaign (seed 91) found on the mutant without
+    the duty ramp: the line channel offset by -484 counts during soft start. The shipped
+    controller resumes with its on-time ramping in, the current answers less than the duty
+    asks, and the current check latches a sensor fault within a millisecond; the mutant
+    resumes at full duty, its current answers, and it cycles between line loss and soft
+    start past the fault-response bound (invariant ``fault_response``)."""
+    prj = load_project(EXAMPLES / "appliance_1k2.toml")
+    case = ROOT / "tests" / "corpus" / "appliance_1k2"
+    scn = scenario.load(case / "vac_offset_at_soft_start_needs_the_duty_ramp.toml")
+    (shipped,) = fuzz.run_cases(prj, [scn])
+    assert shipped.ok, shipped.failed
+    mutant_built = build_project(prj, broken_loader("no_zc_ramp"))
+    (mutant,) = fuzz.run_cases(prj, [scn], built=mutant_built)
+    assert "fault_response" in mutant.failed, mutant.failed
