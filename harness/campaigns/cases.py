@@ -13,12 +13,14 @@ from __future__ import annotations
 
 import contextlib
 import math
+import warnings
 from collections.abc import Iterator
 from dataclasses import dataclass
 from typing import Any
 
 from hypothesis import HealthCheck, Phase, given, settings
 from hypothesis import strategies as st
+from hypothesis.errors import HypothesisDeprecationWarning
 
 from design.project import Project
 from design.rules import SOFT_START_MIN_S
@@ -342,7 +344,16 @@ def draw_distinct(strat: st.SearchStrategy[Any], n: int, seed: int, group: int =
                 out.append(c)
 
     rounds = 0
-    with no_local_constants():
+    with no_local_constants(), warnings.catch_warnings():
+        # a campaign draws its next cases while its Dask client's threads run, and they use
+        # the global random module; hypothesis takes that for a strategy's own use and warns.
+        # The strategies here draw only through hypothesis (without a cluster nothing warns),
+        # and hypothesis's own generator, seeded above, is untouched by it
+        warnings.filterwarnings(
+            "ignore",
+            message="Do not use the `random` module inside strategies",
+            category=HypothesisDeprecationWarning,
+        )
         while len(out) < n and rounds < 20:  # a round may stop early: go on with the next seed
             hseed(seed * 1000 + rounds)(collect)()
             rounds += 1
