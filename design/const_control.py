@@ -5,7 +5,7 @@ from __future__ import annotations
 
 import math
 
-from .derive import filter_resonance_Hz, ramp_charge_W
+from .derive import ff_step, filter_resonance_Hz, ramp_charge_W
 from .project import Project
 from .rules import (
     DIODE_MARGIN_OF_VOUT,
@@ -232,7 +232,7 @@ def iloop(add: Add, prj: Project) -> None:
     fc = prj.resolved.ff_corner_Hz
     add(
         "FF_K",
-        1.0 - math.exp(-2.0 * math.pi * fc / s.fsw),
+        ff_step(fc, s.fsw),
         "f",
         "1",
         "step of the first-order low-pass on |v| feeding the duty feedforward, "

@@ -122,6 +122,13 @@ def filter_resonance_Hz(cfg: Config) -> float:
     return 1.0 / (2.0 * math.pi * math.sqrt((pl.source_inductance + pl.dm_inductance) * cx))
 
 
+def ff_step(fc_Hz: float, fsw_Hz: float) -> float:
+    """The step per period of the first-order low-pass on |v| that feeds the duty feedforward
+    and the current reference (the firmware's ``FF_K``): ``1 - exp(-2 pi f_c/f_sw)``, the
+    exact discretisation of a first-order lag; 1 (no low-pass) for an infinite corner."""
+    return 1.0 - math.exp(-2.0 * math.pi * fc_Hz / fsw_Hz)
+
+
 def current_bandwidth_default(cfg: Config) -> float:
     """The current loop's default crossover (Hz): f_sw over ``CURRENT_BW_DIVISOR`` (its
     ``_EDGE`` value with the edge-aligned carrier), with an input filter at most its

@@ -58,7 +58,7 @@ import numpy as np
 
 from .config import Config, ConfigError
 from .contract import timing
-from .derive import Resolved
+from .derive import Resolved, ff_step
 from .filter import expm
 from .filter import system as filter_system
 
@@ -167,18 +167,24 @@ def _grid(loop: LoopDesign) -> tuple[np.ndarray, np.ndarray]:
 
 
 def phase_crossover_Hz(loop: LoopDesign) -> float | None:
-    """Where the loop's phase first reaches -180 deg (Hz), None below Nyquist."""
-    f, g = _grid(loop)
-    ph = np.unwrap(np.angle(g))
-    j = np.nonzero((ph[:-1] > -np.pi) & (ph[1:] <= -np.pi))[0]
-    return float(f[j[0]]) if len(j) else None
+    """Where the loop's phase first reaches -180 deg above its crossover (Hz), None below
+    Nyquist (the phase read as ``_margins`` reads it)."""
+    return _crossings(loop)[2]
 
 
 def _margins(loop: LoopDesign) -> tuple[float, float, float]:
-    """(crossover Hz, phase margin deg, gain margin dB) on the dense grid: the first fall of
-    the gain through 1, the phase there (wrapped: the feedforward's path cancels the plant's
-    gain at DC, so a phase unwrapped from the grid's bottom can sit a turn off), and the gain
-    at the first phase crossing of -180 deg above the crossover (inf if none)."""
+    """(crossover Hz, phase margin deg, gain margin dB): ``_crossings`` without the phase
+    crossing's frequency."""
+    fc, pm, _, gm = _crossings(loop)
+    return fc, pm, gm
+
+
+def _crossings(loop: LoopDesign) -> tuple[float, float, float | None, float]:
+    """(crossover Hz, phase margin deg, -180 deg crossing Hz or None, gain margin dB) on the
+    dense grid: the first fall of the gain through 1, the phase there (wrapped: the
+    feedforward's path cancels the plant's gain at DC, so a phase unwrapped from the grid's
+    bottom can sit a turn off), and the first phase crossing of -180 deg above the crossover,
+    the phase unwrapped from the crossover up, with the gain there (inf if none)."""
     f, g = _grid(loop)
     mag = np.abs(g)
     i = np.nonzero((mag[:-1] >= 1.0) & (mag[1:] < 1.0))[0]
@@ -194,8 +200,15 @@ def _margins(loop: LoopDesign) -> tuple[float, float, float]:
     pm = 180.0 + math.degrees(ph[0] + t * (ph[1] - ph[0]))
     pm = (pm + 180.0) % 360.0 - 180.0
     j = np.nonzero((ph[:-1] > -np.pi) & (ph[1:] <= -np.pi))[0]
-    gm = -20.0 * math.log10(mag[k + j[0]]) if len(j) else math.inf
-    return fc, pm, gm
+    if len(j) == 0:
+        return fc, pm, None, math.inf
+    return fc, pm, float(f[k + j[0]]), -20.0 * math.log10(mag[k + j[0]])
+
+
+def _with_margins(loop: LoopDesign) -> LoopDesign:
+    """``loop`` with its crossover and margins computed afresh (``_margins``)."""
+    fc, pm, gm = _margins(loop)
+    return replace(loop, crossover_Hz=fc, phase_margin_deg=pm, gain_margin_dB=gm)
 
 
 def _design(
@@ -215,9 +228,7 @@ def _design(
         name, 0.0, 0.0, ts, k_plant, nums, dens, fc, pm, nan, nan, nan, units, **line
     )
     kp, ki = _pi_for(probe, fc, pm)
-    loop = replace(probe, kp=kp, ki=ki)
-    fc_m, pm_m, gm_m = _margins(loop)
-    return replace(loop, crossover_Hz=fc_m, phase_margin_deg=pm_m, gain_margin_dB=gm_m)
+    return _with_margins(replace(probe, kp=kp, ki=ki))
 
 
 def with_plant(
@@ -227,12 +238,8 @@ def with_plant(
     another point of the line cycle; ``line_num`` its line path over the same ``den``, kept
     when None), its crossover and margins computed afresh."""
     nums, dens = tuple(float(x) for x in num), tuple(float(x) for x in den)
-    nan = math.nan
     lines = loop.line_num if line_num is None else tuple(float(x) for x in line_num)
-    other = replace(loop, plant_num=nums, plant_den=dens, line_num=lines, crossover_Hz=nan)
-    other = replace(other, phase_margin_deg=nan, gain_margin_dB=nan)
-    fc, pm, gm = _margins(other)
-    return replace(other, crossover_Hz=fc, phase_margin_deg=pm, gain_margin_dB=gm)
+    return _with_margins(replace(loop, plant_num=nums, plant_den=dens, line_num=lines))
 
 
 def ref_gain_A_per_V(cfg: Config, p_load_W: float, vrms_V: float) -> float:
@@ -243,9 +250,7 @@ def ref_gain_A_per_V(cfg: Config, p_load_W: float, vrms_V: float) -> float:
 def at_ref_gain(loop: LoopDesign, g_A_per_V: float) -> LoopDesign:
     """``loop`` (a current loop) with its reference's path at gain ``g_A_per_V`` (an operating
     point's, ``ref_gain_A_per_V``), its crossover and margins computed afresh."""
-    other = replace(loop, ref_gain_A_per_V=g_A_per_V, crossover_Hz=math.nan)
-    fc, pm, gm = _margins(other)
-    return replace(other, crossover_Hz=fc, phase_margin_deg=pm, gain_margin_dB=gm)
+    return _with_margins(replace(loop, ref_gain_A_per_V=g_A_per_V))
 
 
 @dataclass(frozen=True)
@@ -326,18 +331,17 @@ def line_fields(
     them over the load range); without a filter the duty has no path to the sample (the
     grid's ``L di/dt`` at the sample instant is the ripple's slope, which the duty does not
     move).
-    ``F``'s step is the firmware's ``FF_K``, ``1 - exp(-2 pi f_c/f_sw)``."""
+    ``F``'s step is the firmware's ``FF_K`` (``design.derive.ff_step``)."""
     s = cfg.spec
     if not circuit.has_filter:
         return {}
     ts = 1.0 / s.fsw
-    fc = r.ff_corner_Hz
     return {
         "line_num": tuple(
             float(x) for x in current_plant(circuit, s.vout, ts, carrier, a_rel, "line")[0]
         ),
         "ref_gain_A_per_V": ref_gain_A_per_V(cfg, s.power, s.vin_rms_nominal),
-        "ff_k": 1.0 - math.exp(-2.0 * math.pi * fc / s.fsw) if math.isfinite(fc) else 1.0,
+        "ff_k": ff_step(r.ff_corner_Hz, s.fsw),
         "vout_V": s.vout,
     }
 

@@ -67,11 +67,11 @@ def _sampled(g, tau: float, T: float):
     return control.ss(linalg.expm(a * T), b, c @ linalg.expm(a * tau), 0.0, T)
 
 
-def filtered_loop(prj, lp, carrier: str, a_rel: float = 0.0):
-    """The current loop's gain with an input filter, built from impedances (module
-    docstring): ``C P/(1 + F P_v (1/Vo - C g))``."""
-    pl, r, sp = prj.config.plant, prj.resolved, prj.config.spec
-    T, vo = lp.ts_s, sp.vout
+def circuit_tfs(prj):
+    """(volts the duty takes off the bridge -> inductor current, -> X capacitor voltage) of a
+    config's circuit, from its impedances: grid, DM inductor with its damping resistor across
+    it, X capacitor, boost inductor (the grid a short)."""
+    pl, r = prj.config.plant, prj.resolved
     s = control.tf("s")
     z_dm = (
         (pl.dm_resistance + pl.dm_inductance * s)
@@ -81,8 +81,16 @@ def filtered_loop(prj, lp, carrier: str, a_rel: float = 0.0):
     z_grid = pl.source_resistance + pl.source_inductance * s + z_dm
     z_x = 1 / (r.x_capacitance_F * s)
     z_in = control.minreal(z_grid * z_x / (z_grid + z_x), verbose=False)
-    y = control.minreal(1 / (r.inductance_H * s + z_in), verbose=False)  # volts -> i_L
-    v = control.minreal(-z_in * y, verbose=False)  # volts -> the X capacitor's voltage
+    y = control.minreal(1 / (r.inductance_H * s + z_in), verbose=False)
+    return y, control.minreal(-z_in * y, verbose=False)
+
+
+def filtered_loop(prj, lp, carrier: str, a_rel: float = 0.0):
+    """The current loop's gain with an input filter, built from impedances (module
+    docstring): ``C P/(1 + F P_v (1/Vo - C g))``."""
+    r, sp = prj.resolved, prj.config.spec
+    T, vo = lp.ts_s, sp.vout
+    y, v = circuit_tfs(prj)
     z = control.tf([1, 0], [1], T)
     if carrier == "centre":
         mean_line = 2 * np.sqrt(2) / np.pi * sp.vin_rms_nominal
@@ -150,17 +158,9 @@ def test_filtered_current_plant_answers_a_duty_pulse_as_the_circuit(carrier):
     from scipy import signal
 
     prj = project_of((EXAMPLES / "appliance_1k2.toml", carrier))
-    pl, r, sp, lp = prj.config.plant, prj.resolved, prj.config.spec, prj.tuning.current
+    sp, lp = prj.config.spec, prj.tuning.current
     T, vo, dd = lp.ts_s, sp.vout, 0.01
-    s = control.tf("s")
-    z_dm = (
-        (pl.dm_resistance + pl.dm_inductance * s)
-        * r.dm_damping_ohm
-        / (pl.dm_resistance + pl.dm_inductance * s + r.dm_damping_ohm)
-    )
-    z_grid = pl.source_resistance + pl.source_inductance * s + z_dm
-    z_x = 1 / (r.x_capacitance_F * s)
-    y = control.minreal(1 / (r.inductance_H * s + z_grid * z_x / (z_grid + z_x)), verbose=False)
+    y, _ = circuit_tfs(prj)
     num, den = np.ravel(y.num[0][0]), np.ravel(y.den[0][0])
     n_per, periods, at = 2000, 30, 3
     idx = np.arange(periods * n_per + 1)
