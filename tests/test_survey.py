@@ -76,6 +76,9 @@ def test_bounded_survey(tmp_path):
     for rec in doc["designs"]:
         assert rec["build_error"] is None
         assert rec["refused"] or rec["cases"] == 8
+        for surge in rec.get("passive_surges", []):
+            assert surge["il_peak_A"] > rec["device_current_limit_A"]
+            assert 0 <= surge["case_index"] < 8
         if rec.get("light_load_zc_of_rated") is not None:
             light.append(rec["light_load_zc_of_rated"])
     assert light and max(light) <= ZC_LIMIT_OF_RATED

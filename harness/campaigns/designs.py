@@ -156,6 +156,8 @@ def survey_one(args: tuple) -> dict:
             {"failed": v.failed, "case": asdict(v.case)} for v in res.verdicts if not v.ok
         ]
         rec["light_load_zc_of_rated"] = light_load_zc(res.verdicts)
+        rec["device_current_limit_A"] = prj.resolved.device_current_A
+        rec["passive_surges"] = fuzz.passive_surges(res.verdicts, prj.resolved.device_current_A)
         if rec["failing"] and folder is not None:
             path = folder / "config.toml"
             head = (

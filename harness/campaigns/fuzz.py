@@ -135,6 +135,39 @@ class CampaignResult:
         return all(v.ok for v in self.verdicts)
 
 
+def passive_surges(verdicts: list[Verdict], limit_A: float) -> list[dict]:
+    """The cases whose inductor current (``il_peak_A``, controlled or not) passed the device
+    limit in A without an invariant failing: the passive surge of the line rectified into a
+    bus below its peak, which ``ov_oc`` leaves out (no gate pattern stops it)."""
+    return [
+        {"case_index": k, "il_peak_A": v.figures["il_peak_A"]}
+        for k, v in enumerate(verdicts)
+        if v.ok and v.figures.get("il_peak_A", 0.0) > limit_A
+    ]
+
+
+def save_surges(
+    prj: Project, verdicts: list[Verdict], surges: list[dict], out_dir, most: int = 5
+) -> list[Path]:
+    """The scenario files of up to ``most`` of the ``surges`` (``passive_surges``), largest
+    first, as ``out_dir/surge_<case>.toml``: cases that pass, so not saved as failing ones."""
+    out, paths = Path(out_dir), []
+    out.mkdir(parents=True, exist_ok=True)
+    for s in sorted(surges, key=lambda s: -s["il_peak_A"])[:most]:
+        k = s["case_index"]
+        path = out / f"surge_{k}.toml"
+        c = verdicts[k].case
+        scn = c.to_scenario(prj, path.stem) if isinstance(c, Case) else c
+        text = (
+            f"# pfcrig fuzz: case {k} passed, but drove {s['il_peak_A']:.1f} A through the "
+            "inductor, past the device limit, as current no gate pattern stops\n" + dumps(scn)
+        )
+        with atomic_path(path) as tmp:
+            tmp.write_text(text)
+        paths.append(path)
+    return paths
+
+
 def campaign(
     prj: Project,
     n: int,
