@@ -387,7 +387,7 @@ def relay(add: Add, prj: Project) -> None:
         2.0 * RELAY_OPEN_OF_PEAK**2,
         "f",
         "1",
-        "with the gates off and the line lost or low, the relay opens when vbus^2 < K x ms "
+        "with the gates off and the line still gone, the relay opens when vbus^2 < K x ms "
         f"({100 * RELAY_OPEN_OF_PEAK:g} % of the line peak): the line's return would drive an "
         "inrush the limiter must take",
         f"rule: {RELAY_OPEN_OF_PEAK:g} x line peak",
