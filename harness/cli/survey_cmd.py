@@ -121,8 +121,8 @@ def survey_cmd(args: argparse.Namespace) -> int:
         )
         print(
             f"{len(surged)} designs passed cases whose inductor carried more than the device "
-            f"limit with the gates off (the line rectified into a bus under its peak; no "
-            f"invariant holds it, README 'Known limitation: the rectified surge'): "
+            f"limit as current no gate pattern stops (the line rectified into a bus under its "
+            f"peak; no invariant holds it, README 'Known limitation: the rectified surge'): "
             f"{sum(len(r['passive_surges']) for r in surged)} cases, worst "
             f"{worst[0]:.2f} x the limit (design {worst[1]})"
         )
