@@ -20,11 +20,22 @@ from design.project import load_project
 from harness.closedloop import scenario as S
 from harness.closedloop.loop import run
 
-from .helpers import EXAMPLES, consts
+from .helpers import EXAMPLES, ROOT, consts
 
 pytestmark = pytest.mark.slow
 
 TELECOM = load_project(EXAMPLES / "telecom_3k3.toml")
+# the series L-C's characteristic impedance sqrt(L/C), the boost and grid inductance against
+# the bus capacitor (ohm): a step dV drives at most dV / Z0
+Z0 = math.sqrt(
+    (TELECOM.resolved.inductance_H + TELECOM.config.plant.source_inductance)
+    / TELECOM.resolved.capacitance_F
+)
+
+
+def _il(d) -> np.ndarray:
+    """The inductor's largest current in each period (A)."""
+    return np.maximum(np.abs(d["i_max_A"]), np.abs(d["i_min_A"]))
 
 
 def _scn(name: str, vrms: float, freq: float, power: float, duration: float, events=()):
@@ -74,9 +85,8 @@ def test_relay_opens_at_the_floor_and_recloses_near_the_peak(lanes):
     relay = (d["status"] & Status.RELAY) != 0
     during = (t > 0.25) & (t < back)
     assert not relay[during][-1], "the relay must be open when the line returns onto the floor"
-    r = TELECOM.resolved
     after = t >= back
-    il = np.maximum(np.abs(d["i_max_A"]), np.abs(d["i_min_A"]))
+    il = _il(d)
     # the close: at 95 % of the 363 V peak at most 5 % of it is left across the inductors,
     # and the undamped series L-C step bounds the current it drives (the limiter, source
     # and inductor resistances only lower it); closing at the old precharge test, 36 V
@@ -86,10 +96,9 @@ def test_relay_opens_at_the_floor_and_recloses_near_the_peak(lanes):
     assert len(closes) == 1
     k0 = closes[0] + int(TELECOM.config.plant.relay_delay * TELECOM.config.spec.fsw)
     near = slice(k0, k0 + int(TELECOM.config.spec.fsw / 59.0))  # the contact's first cycle
-    z0 = math.sqrt((r.inductance_H + TELECOM.config.plant.source_inductance) / r.capacitance_F)
     vpk = math.sqrt(2.0) * 257.0
-    assert il[near].max() < 0.05 * vpk / z0
-    assert il[after].max() < 0.05 * vpk / z0
+    assert il[near].max() < 0.05 * vpk / Z0
+    assert il[after].max() < 0.05 * vpk / Z0
     # and it does come back: RUN, the bus within 2 % of vout 20 cycles after the return
     mode = d["mode"][after]
     assert mode[-1] == Mode.RUN
@@ -120,12 +129,10 @@ def test_rectified_surge_through_the_closed_relay_is_reported_not_held(tmp_path)
         them for replay."""
     from harness.campaigns import fuzz
 
-    from .helpers import ROOT
-
     case = ROOT / "tests" / "corpus" / "telecom_3k3"
     scn = S.load(case / "dropout_263V_full_load_rectified_surge_past_device_limit.toml")
     r = run(TELECOM, [scn], progress=False).lane(0)
-    il = np.maximum(np.abs(r["i_max_A"]), np.abs(r["i_min_A"]))
+    il = _il(r)
     k = int(np.argmax(il))
     limit = TELECOM.resolved.device_current_A
     assert il[k] > limit
@@ -177,10 +184,9 @@ def test_relay_opens_at_the_floor_under_a_brown_line_in_wait_line():
     assert Mode.WAIT_LINE in d["mode"][(t > back) & (t < 1.2)]
     assert d["vbus_V"][(t > 1.1) & (t < 1.2)].max() < consts(TELECOM)["RELAY_OPEN_V"]
     assert not relay[(t > 1.1) & (t < 1.2)].any()
-    il = np.maximum(np.abs(d["i_max_A"]), np.abs(d["i_min_A"]))
+    il = _il(d)
     r, vpk = TELECOM.resolved, math.sqrt(2.0) * 264.0
-    z0 = math.sqrt((r.inductance_H + TELECOM.config.plant.source_inductance) / r.capacitance_F)
-    assert il[t > 1.2].max() < 0.05 * vpk / z0 < r.device_current_A
+    assert il[t > 1.2].max() < 0.05 * vpk / Z0 < r.device_current_A
     assert d["mode"][-1] == Mode.RUN
 
 
@@ -192,8 +198,6 @@ def test_relay_does_not_close_in_the_half_the_line_stepped_up():
     new peak: 107 A through the inductor with the gates off. A half in which the rise rule
     fired no longer counts as settled, so the relay closes at 95 % of the new peak, within
     the same series L-C bound as the first test."""
-    from .helpers import ROOT
-
     case = ROOT / "tests" / "corpus" / "telecom_3k3"
     scn = S.load(case / "dip40_12_cycles_relay_closed_on_the_brown_lines_peak.toml")
     d = run(TELECOM, [scn], progress=False).lane(0)
@@ -206,8 +210,7 @@ def test_relay_does_not_close_in_the_half_the_line_stepped_up():
     assert len(closes) == 1
     vpk = float(np.abs(d["vs_V"][t > back]).max())
     assert d["vbus_V"][closes[0]] > 0.95 * vpk * 0.98  # the close level (2 % for the gain errors)
-    il = np.maximum(np.abs(d["i_max_A"]), np.abs(d["i_min_A"]))
+    il = _il(d)
     r = TELECOM.resolved
-    z0 = math.sqrt((r.inductance_H + TELECOM.config.plant.source_inductance) / r.capacitance_F)
-    assert il[t > back].max() < 0.05 * vpk / z0 < r.device_current_A
+    assert il[t > back].max() < 0.05 * vpk / Z0 < r.device_current_A
     assert d["mode"][-1] == Mode.RUN
